@@ -1,0 +1,9 @@
+//! Signal processing building blocks: sweep, deconvolution, grids, smoothing.
+//!
+//! FFT normalisation (stated once, kept everywhere): forward transforms are unnormalised
+//! (`X[k] = Σ x[n]·e^{−j2πkn/N}`), inverse transforms are unnormalised too, and the code that
+//! calls an inverse divides by N itself.
+
+pub mod bands;
+pub mod smoothing;
+pub mod sweep;

@@ -1,0 +1,67 @@
+//! tragus: end-of-line test station software for earphones.
+//!
+//! Data flows one way (see `DEVELOPERS.md`):
+//! [`plan`] → [`dsp::sweep`] (stimulus) → [`rig`] (capture) → [`analysis`] (measurement)
+//! → [`checks`] (verdicts) → [`store`] (record) → [`report`].
+//! Nothing below [`cli`] prints or exits; errors are values.
+#![forbid(unsafe_code)]
+
+pub mod analysis;
+pub mod checks;
+pub mod cli;
+pub mod dsp;
+pub mod plan;
+pub mod report;
+pub mod result;
+pub mod rig;
+pub mod store;
+pub mod wav;
+
+/// The software version recorded with every result.
+pub const VERSION: &str = env!("CARGO_PKG_VERSION");
+
+/// Verdict of one check, one channel or one unit.
+///
+/// A retest is never counted as a pass: it means the measurement itself was not valid
+/// (no signal, clipping, dropouts, a rig fault), so nothing is known about the unit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Verdict {
+    /// Every check met its limits on a valid measurement.
+    Pass,
+    /// At least one check failed on a valid measurement.
+    Fail,
+    /// The measurement was not valid; test the unit again.
+    Retest,
+}
+
+impl Verdict {
+    /// Combine verdicts: retest wins over fail only when the measurement was invalid, which
+    /// callers express by passing `Retest`; otherwise fail wins over pass.
+    pub fn worst(self, other: Verdict) -> Verdict {
+        use Verdict::*;
+        match (self, other) {
+            (Retest, _) | (_, Retest) => Retest,
+            (Fail, _) | (_, Fail) => Fail,
+            _ => Pass,
+        }
+    }
+
+    /// Upper-case word for human output (never colour alone).
+    pub fn word(self) -> &'static str {
+        match self {
+            Verdict::Pass => "PASS",
+            Verdict::Fail => "FAIL",
+            Verdict::Retest => "RETEST",
+        }
+    }
+
+    /// Process exit code per DESIGN.md: 0 pass, 1 fail, 3 retest.
+    pub fn exit_code(self) -> i32 {
+        match self {
+            Verdict::Pass => 0,
+            Verdict::Fail => 1,
+            Verdict::Retest => 3,
+        }
+    }
+}

@@ -1,0 +1,1 @@
+//! The plan's SHA-256 over a canonical form.

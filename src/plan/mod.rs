@@ -1,0 +1,300 @@
+//! Test plans: the YAML file an engineer writes, loaded in two stages.
+//!
+//! Stage one ([`raw`]) mirrors the YAML with serde and does no I/O; stage two
+//! ([`Plan::from_raw`], in [`validate`]) checks every field and cross-field rule, resolves
+//! limit-line CSV files relative to the plan, and builds the typed [`Plan`] below. Every
+//! problem is reported at once as `PATH:LINE:COL: message` ([`PlanError`]). The plan's
+//! SHA-256 is taken over a canonical JSON form ([`hash`]), so formatting and comments do not
+//! change it. `tragus validate` stops after stage two.
+
+pub mod hash;
+pub mod raw;
+pub mod validate;
+
+use std::fmt;
+use std::path::{Path, PathBuf};
+
+pub use validate::{load_plan, load_plan_str};
+
+/// Default number of points per octave of the analysis grid.
+pub const DEFAULT_POINTS_PER_OCTAVE: u32 = 24;
+/// Default highest harmonic order analysed.
+pub const DEFAULT_MAX_HARMONIC: usize = 5;
+/// Default minimum SNR (dB) for a valid measurement.
+pub const DEFAULT_MIN_SNR_DB: f64 = 20.0;
+
+/// A validated test plan, ready to drive a run.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Plan {
+    /// Plan identifier (stable across revisions).
+    pub id: String,
+    /// Revision number, incremented by the engineer on every change.
+    pub revision: u32,
+    /// Free-text description.
+    pub description: String,
+    /// Hex SHA-256 of the canonical form (see [`hash`]).
+    pub sha256: String,
+    /// The file the plan came from (`<string>` when loaded from memory).
+    pub source: PathBuf,
+    /// Sample rate of stimulus and capture, Hz.
+    pub sample_rate_hz: u32,
+    /// Stimulus definition.
+    pub stimulus: StimulusSpec,
+    /// Analysis options.
+    pub analysis: AnalysisSpec,
+    /// Named channels in plan order.
+    pub channels: Vec<ChannelSpec>,
+    /// Which rig runs the plan when `--rig` is not given.
+    pub rig: RigSpec,
+    /// Checks in plan order.
+    pub checks: Vec<CheckSpec>,
+}
+
+impl Plan {
+    /// Index of a named channel in [`Plan::channels`].
+    pub fn channel_index(&self, name: &str) -> Option<usize> {
+        self.channels.iter().position(|c| c.name == name)
+    }
+
+    /// Number of output channels the stimulus needs (highest output index + 1).
+    pub fn n_outputs(&self) -> usize {
+        self.channels.iter().map(|c| c.output + 1).max().unwrap_or(0)
+    }
+
+    /// Number of input channels a capture must have (highest input index + 1).
+    pub fn n_inputs(&self) -> usize {
+        self.channels.iter().map(|c| c.input + 1).max().unwrap_or(0)
+    }
+
+    /// Directory of the plan file, against which relative paths resolve.
+    pub fn dir(&self) -> &Path {
+        self.source.parent().unwrap_or(Path::new("."))
+    }
+}
+
+/// The synchronized exponential sweep and its surroundings.
+#[derive(Debug, Clone, PartialEq)]
+pub struct StimulusSpec {
+    /// Sweep start frequency f1, Hz.
+    pub start_hz: f64,
+    /// Sweep stop frequency f2, Hz.
+    pub stop_hz: f64,
+    /// Requested sweep duration T̂, s; the synchronized duration differs slightly.
+    pub duration_s: f64,
+    /// Peak level of the sweep, dB re digital full scale (0 dBFS = amplitude 1.0).
+    pub level_dbfs: f64,
+    /// Half-cosine fade-in length, s.
+    pub fade_in_s: f64,
+    /// Half-cosine fade-out length, s.
+    pub fade_out_s: f64,
+    /// Silence before the sweep (also the noise window for SNR), s.
+    pub silence_before_s: f64,
+    /// Silence after the sweep (room for latency and the impulse response tail), s.
+    pub silence_after_s: f64,
+}
+
+/// Analysis options.
+#[derive(Debug, Clone, PartialEq)]
+pub struct AnalysisSpec {
+    /// Highest harmonic order analysed (2..=N); 1 means none.
+    pub max_harmonic: usize,
+    /// Points per octave of the IEC 61260-1 base-10 grid.
+    pub points_per_octave: u32,
+    /// A measurement whose SNR is below this is a retest, dB.
+    pub min_snr_db: f64,
+}
+
+/// One named channel: which output drives it and which input captures it (0-based).
+#[derive(Debug, Clone, PartialEq)]
+pub struct ChannelSpec {
+    /// Channel name used by checks and reports.
+    pub name: String,
+    /// Output channel index (0-based).
+    pub output: usize,
+    /// Input channel index (0-based).
+    pub input: usize,
+}
+
+/// Which rig runs the plan by default.
+#[derive(Debug, Clone, PartialEq)]
+pub enum RigSpec {
+    /// The simulated rig; `unit` picks a population member by name when the serial does not.
+    Simulated {
+        /// Seed of the simulated population.
+        seed: u64,
+    },
+    /// A sound card (needs a station configuration).
+    Soundcard,
+}
+
+/// A limit line: points (frequency Hz, level dB), frequencies strictly ascending.
+/// Interpolated linearly in log-frequency between points; undefined outside its span.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LimitLine {
+    /// (frequency Hz, level dB) points.
+    pub points: Vec<(f64, f64)>,
+    /// Where the points came from: `inline` or the CSV path as written in the plan.
+    pub origin: String,
+}
+
+/// A frequency band, Hz, low < high.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Band {
+    /// Lower edge, Hz.
+    pub low_hz: f64,
+    /// Upper edge, Hz.
+    pub high_hz: f64,
+}
+
+/// How a response is normalised before it is compared with its limits.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Normalize {
+    /// Subtract the level at this frequency.
+    AtHz(f64),
+    /// Subtract the mean level (dB, averaged on the log grid) over this band.
+    Band(Band),
+}
+
+/// Expected polarity.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Polarity {
+    /// Positive drive gives positive pressure.
+    Positive,
+    /// Inverted.
+    Negative,
+}
+
+/// One check in the plan.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CheckSpec {
+    /// Check identifier, unique in the plan.
+    pub id: String,
+    /// Channels the check applies to (names; every channel when the plan gave none).
+    pub channels: Vec<String>,
+    /// What is checked.
+    pub kind: CheckKind,
+}
+
+/// The kinds of check.
+#[derive(Debug, Clone, PartialEq)]
+pub enum CheckKind {
+    /// Frequency response between limit lines.
+    Response {
+        /// Upper limit line (at least one of upper/lower is present).
+        upper: Option<LimitLine>,
+        /// Lower limit line.
+        lower: Option<LimitLine>,
+        /// Fractional-octave smoothing, 1/N octave (power domain); `None` for none.
+        smoothing_fraction: Option<u32>,
+        /// Optional normalisation before comparison.
+        normalize: Option<Normalize>,
+    },
+    /// Mean level in a band within `[min_db, max_db]`.
+    Sensitivity {
+        /// Band over which the level is averaged.
+        band: Band,
+        /// Lower limit, dB.
+        min_db: f64,
+        /// Upper limit, dB.
+        max_db: f64,
+    },
+    /// THD (re fundamental, %) below a maximum over a band of excitation frequencies.
+    Thd {
+        /// Band of excitation frequencies.
+        band: Band,
+        /// Upper limit, %.
+        max_percent: f64,
+    },
+    /// One harmonic (HDn re fundamental, dB) below a maximum over a band.
+    Harmonic {
+        /// Harmonic order n ≥ 2.
+        order: usize,
+        /// Band of excitation frequencies.
+        band: Band,
+        /// Upper limit, dB re fundamental.
+        max_db: f64,
+    },
+    /// Rub-and-buzz indicator (dB re fundamental) below a maximum over a band.
+    RubBuzz {
+        /// Band of excitation frequencies.
+        band: Band,
+        /// Upper limit, dB re fundamental.
+        max_db: f64,
+    },
+    /// Polarity equals the expected one.
+    Polarity {
+        /// Expected polarity.
+        expected: Polarity,
+    },
+    /// Level difference between exactly two channels within ±`max_diff_db` over a band.
+    Balance {
+        /// Band over which the difference is checked.
+        band: Band,
+        /// Allowed absolute difference, dB.
+        max_diff_db: f64,
+        /// Fractional-octave smoothing applied to both responses first.
+        smoothing_fraction: Option<u32>,
+    },
+}
+
+impl CheckKind {
+    /// The kind's name as written in the plan.
+    pub fn name(&self) -> &'static str {
+        match self {
+            CheckKind::Response { .. } => "response",
+            CheckKind::Sensitivity { .. } => "sensitivity",
+            CheckKind::Thd { .. } => "thd",
+            CheckKind::Harmonic { .. } => "harmonic",
+            CheckKind::RubBuzz { .. } => "rub_buzz",
+            CheckKind::Polarity { .. } => "polarity",
+            CheckKind::Balance { .. } => "balance",
+        }
+    }
+}
+
+/// A position in a source file, 1-based line and column.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Location {
+    /// File path as given by the user.
+    pub path: String,
+    /// 1-based line (0 when unknown).
+    pub line: usize,
+    /// 1-based column (0 when unknown).
+    pub col: usize,
+}
+
+/// One problem found in a plan.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Problem {
+    /// Where the problem is.
+    pub location: Location,
+    /// What was expected and what was found, lowercase, no trailing period.
+    pub message: String,
+}
+
+impl fmt::Display for Problem {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(
+            f,
+            "{}:{}:{}: {}",
+            self.location.path, self.location.line, self.location.col, self.message
+        )
+    }
+}
+
+/// Every problem found in a plan (never empty), or the file could not be read.
+#[derive(Debug, thiserror::Error)]
+pub enum PlanError {
+    /// The file could not be read.
+    #[error("{path}: cannot read plan: {source}")]
+    Io {
+        /// The path.
+        path: String,
+        /// The I/O error.
+        source: std::io::Error,
+    },
+    /// The plan was read but is not valid; one line per problem.
+    #[error("{}", .0.iter().map(|p| p.to_string()).collect::<Vec<_>>().join("\n"))]
+    Invalid(Vec<Problem>),
+}

@@ -1,0 +1,1 @@
+//! Stage one of plan loading: serde structs that mirror the YAML (no I/O, no validation).

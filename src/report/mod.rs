@@ -1,0 +1,1 @@
+//! Reports: human-readable tables of a unit result.

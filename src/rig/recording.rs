@@ -1,0 +1,1 @@
+//! The recording rig: a capture read from a WAV file.

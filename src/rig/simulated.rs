@@ -1,0 +1,1 @@
+//! The simulated rig: a behavioural earphone model and a seeded population.

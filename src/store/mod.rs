@@ -1,0 +1,1 @@
+//! The store: one SQLite database per station, append-only records, raw captures by hash.
