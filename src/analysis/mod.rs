@@ -57,7 +57,10 @@ impl std::fmt::Display for RetestReason {
             RetestReason::LowSnr { snr_db, min_db } => {
                 write!(f, "SNR {snr_db:.1} dB below the minimum {min_db:.1} dB")
             }
-            RetestReason::Truncated { n_captured, n_needed } => {
+            RetestReason::Truncated {
+                n_captured,
+                n_needed,
+            } => {
                 write!(f, "capture truncated ({n_captured} of {n_needed} samples)")
             }
             RetestReason::RigFault { message } => write!(f, "rig fault: {message}"),

@@ -58,7 +58,11 @@ impl Plan {
 
     /// Number of output channels the stimulus needs (highest output index + 1).
     pub fn n_outputs(&self) -> usize {
-        self.channels.iter().map(|c| c.output + 1).max().unwrap_or(0)
+        self.channels
+            .iter()
+            .map(|c| c.output + 1)
+            .max()
+            .unwrap_or(0)
     }
 
     /// Number of input channels a capture must have (highest input index + 1).

@@ -60,6 +60,9 @@ pub trait Rig {
 
     /// Play `stimulus` and return what the inputs captured; `n_inputs` is how many input
     /// channels the plan reads.
-    fn play_and_capture(&mut self, stimulus: &Stimulus, n_inputs: usize)
-        -> Result<Capture, RigError>;
+    fn play_and_capture(
+        &mut self,
+        stimulus: &Stimulus,
+        n_inputs: usize,
+    ) -> Result<Capture, RigError>;
 }
