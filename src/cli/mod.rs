@@ -1,7 +1,227 @@
 //! The command line: argument types, wiring of the library, human and JSON output.
+//!
+//! The only place that connects the stages of the data flow (plan → stimulus → rig →
+//! analysis → checks → store → report). One file per command. Exit codes (DESIGN.md):
+//! 0 pass/success, 1 fail, 2 bad input, 3 retest (including "the record could not be
+//! written": a unit without a record must be tested again, never shipped).
+
+mod analyze;
+mod pipeline;
+mod records;
+mod run;
+mod stimulus;
+mod validate;
+
+use clap::{Parser, Subcommand};
+use std::ffi::OsString;
+use std::io::IsTerminal;
+use std::path::PathBuf;
+
+/// Exit code: pass / success.
+pub const EXIT_PASS: i32 = 0;
+/// Exit code: a unit failed a check.
+pub const EXIT_FAIL: i32 = 1;
+/// Exit code: bad input (arguments, plan, files).
+pub const EXIT_BAD_INPUT: i32 = 2;
+/// Exit code: retest (measurement not valid, rig fault, record not written).
+pub const EXIT_RETEST: i32 = 3;
+
+/// End-of-line acoustic test for earphones: synchronized sweep, deconvolution, limit checks,
+/// records.
+///
+/// Exit codes: 0 pass, 1 fail, 2 bad input, 3 retest.
+#[derive(Debug, Parser)]
+#[command(name = "tragus", version, about, long_about = None)]
+pub struct Cli {
+    /// More log output on stderr (-v info, -vv debug, -vvv trace).
+    #[arg(short, long, action = clap::ArgAction::Count, global = true)]
+    pub verbose: u8,
+
+    /// Never colour the output (also when NO_COLOR is set or stdout is not a terminal).
+    #[arg(long, global = true)]
+    pub no_color: bool,
+
+    /// The command to run.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// The commands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Check test plans; print one `PATH:LINE:COL: message` line per problem.
+    Validate(validate::Args),
+    /// Write the exact signal a plan plays (all output channels) as 32-bit float WAV.
+    Stimulus(stimulus::Args),
+    /// Judge a recorded capture of a plan's stimulus.
+    Analyze(analyze::Args),
+    /// Test one unit end to end on a rig and record it in the store.
+    Run(run::Args),
+    /// List records from a store, newest first.
+    Records(records::ListArgs),
+    /// Recompute every record hash, the chain and every raw capture's SHA-256.
+    Verify(records::VerifyArgs),
+}
+
+/// Where a `--json` document goes.
+#[derive(Debug, Clone)]
+pub enum JsonOut {
+    /// Standard output (`-`).
+    Stdout,
+    /// A file.
+    File(PathBuf),
+}
+
+impl std::str::FromStr for JsonOut {
+    type Err = std::convert::Infallible;
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        Ok(if s == "-" {
+            JsonOut::Stdout
+        } else {
+            JsonOut::File(PathBuf::from(s))
+        })
+    }
+}
+
+impl JsonOut {
+    /// Write a JSON document (pretty, newline-terminated) atomically for files.
+    pub fn write(&self, value: &impl serde::Serialize) -> anyhow::Result<()> {
+        let mut text = serde_json::to_string_pretty(value)?;
+        text.push('\n');
+        match self {
+            JsonOut::Stdout => {
+                use std::io::Write;
+                let mut out = std::io::stdout().lock();
+                out.write_all(text.as_bytes())?;
+                out.flush()?;
+            }
+            JsonOut::File(path) => write_atomic(path, text.as_bytes())?,
+        }
+        Ok(())
+    }
+
+    /// True when the document goes to stdout (human output then stays off stdout).
+    pub fn is_stdout(&self) -> bool {
+        matches!(self, JsonOut::Stdout)
+    }
+}
+
+/// Write a file through a temporary sibling and a rename, so a crash never leaves half a
+/// file under the final name.
+pub(crate) fn write_atomic(path: &std::path::Path, bytes: &[u8]) -> anyhow::Result<()> {
+    use anyhow::Context;
+    use std::io::Write;
+    let dir = path
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(std::path::Path::new("."));
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "out".into());
+    let tmp = dir.join(format!(".{name}.tmp-{}", std::process::id()));
+    let result = (|| -> std::io::Result<()> {
+        let mut f = std::fs::File::create(&tmp)?;
+        f.write_all(bytes)?;
+        f.sync_all()?;
+        std::fs::rename(&tmp, path)
+    })();
+    if result.is_err() {
+        let _ = std::fs::remove_file(&tmp);
+    }
+    result.with_context(|| format!("{}: cannot write", path.display()))
+}
+
+/// An error with the exit code it maps to.
+#[derive(Debug)]
+pub(crate) struct Exit {
+    pub code: i32,
+    pub error: anyhow::Error,
+}
+
+impl Exit {
+    pub fn bad_input(error: impl Into<anyhow::Error>) -> Self {
+        Exit {
+            code: EXIT_BAD_INPUT,
+            error: error.into(),
+        }
+    }
+    pub fn retest(error: impl Into<anyhow::Error>) -> Self {
+        Exit {
+            code: EXIT_RETEST,
+            error: error.into(),
+        }
+    }
+}
+
+/// Output settings shared by the commands.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Output {
+    pub color: bool,
+}
+
+fn init_tracing(verbose: u8) {
+    let level = match verbose {
+        0 => "warn",
+        1 => "info",
+        2 => "debug",
+        _ => "trace",
+    };
+    let filter = tracing_subscriber::EnvFilter::try_from_env("TRAGUS_LOG")
+        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(format!("tragus={level}")));
+    let _ = tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_writer(std::io::stderr)
+        .with_target(false)
+        .try_init();
+}
 
 /// Run with the given arguments and return the process exit code.
-pub fn main_with_args<I: IntoIterator<Item = std::ffi::OsString>>(args: I) -> i32 {
-    let _ = args.into_iter();
-    0
+pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
+    let cli = match Cli::try_parse_from(args) {
+        Ok(cli) => cli,
+        Err(e) => {
+            let code = match e.kind() {
+                clap::error::ErrorKind::DisplayHelp | clap::error::ErrorKind::DisplayVersion => {
+                    EXIT_PASS
+                }
+                _ => EXIT_BAD_INPUT,
+            };
+            let _ = e.print();
+            return code;
+        }
+    };
+    init_tracing(cli.verbose);
+    let out = Output {
+        color: !cli.no_color
+            && std::env::var_os("NO_COLOR").is_none()
+            && std::io::stdout().is_terminal(),
+    };
+    let result = match cli.command {
+        Command::Validate(a) => validate::run(a),
+        Command::Stimulus(a) => stimulus::run(a),
+        Command::Analyze(a) => analyze::run(a, out),
+        Command::Run(a) => run::run(a, out),
+        Command::Records(a) => records::list(a),
+        Command::Verify(a) => records::verify(a),
+    };
+    match result {
+        Ok(code) => code,
+        Err(Exit { code, error }) => {
+            eprintln!("tragus: {}", format_error(&error));
+            code
+        }
+    }
+}
+
+/// `outer: inner: innermost`, without repeating text a cause already contains.
+fn format_error(error: &anyhow::Error) -> String {
+    let mut parts: Vec<String> = Vec::new();
+    for cause in error.chain() {
+        let s = cause.to_string();
+        if !parts.iter().any(|p| p.contains(&s)) {
+            parts.push(s);
+        }
+    }
+    parts.join(": ")
 }

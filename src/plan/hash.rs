@@ -1,1 +1,298 @@
 //! The plan's SHA-256 over a canonical form.
+//!
+//! Computed at the end of stage two ([`super::validate`]) and recorded with every result, so
+//! that a record says exactly which limits judged the unit. The hash is taken over the
+//! *typed* plan, not the file: comments, key order, flow or block style, quoting, `20`
+//! versus `20.0`, and writing a default out or leaving it implicit do not change it; any
+//! change of a value does, including an edit of a limit-line CSV file (its points are part
+//! of the canonical form).
+//!
+//! # The canonical form (a contract: auditors recompute it)
+//!
+//! `sha256` is the lowercase hex SHA-256 of the UTF-8 bytes of one JSON document:
+//!
+//! - no whitespace outside strings; object keys sorted by their UTF-8 bytes; strings
+//!   escaped as JSON requires (`"`, `\`, control characters as `\n` `\r` `\t` `\b` `\f` or
+//!   `\u00xx`, lowercase hex), all other characters written as themselves;
+//! - whole-number fields (`revision`, `sample_rate_hz`, `max_harmonic`, `points_per_octave`,
+//!   channel `output`/`input`, `seed`, `order`, `smoothing_fraction`) as JSON integers;
+//! - every other number as a JSON real in the shortest form that reads back to the same
+//!   `f64`, as serde_json 1 writes it (`20.0`, `0.005`, `-12.5`, `0.00001`, `1e+16`), with
+//!   `-0.0` written as `0.0`; for 0 and 1e-4 ≤ |x| < 1e16 (every value in a sensible plan)
+//!   this is exactly Python's `json.dumps` of the float;
+//! - absent optional values as `null`.
+//!
+//! The document, with the fields of [`Plan`] (all but `sha256` and `source`):
+//!
+//! ```text
+//! {"analysis":{"max_harmonic":I,"min_snr_db":R,"points_per_octave":I},
+//!  "canonical":"tragus-plan/1",
+//!  "channels":[{"input":I,"name":S,"output":I},...],        (0-based channel indices)
+//!  "checks":[{"channels":[S,...],"id":S,"kind":S, ...kind fields...},...],
+//!  "description":S,"id":S,"revision":I,
+//!  "rig":{"kind":"simulated","seed":I} | {"kind":"soundcard"},
+//!  "sample_rate_hz":I,
+//!  "stimulus":{"duration_s":R,"fade_in_s":R,"fade_out_s":R,"level_dbfs":R,
+//!              "silence_after_s":R,"silence_before_s":R,"start_hz":R,"stop_hz":R}}
+//! ```
+//!
+//! Kind fields (kind names as in the plan; defaults already applied):
+//!
+//! - `response`: `"upper"`, `"lower"`: `{"origin":S,"points":[[R,R],...]}` or `null`
+//!   (`origin` is `"inline"` or the CSV path as written); `"smoothing_fraction"`: I or
+//!   `null`; `"normalize"`: `{"at_hz":R}`, `{"band":{"high_hz":R,"low_hz":R}}` or `null`;
+//! - `sensitivity`: `"band"`, `"max_db"`, `"min_db"`; `thd`: `"band"`, `"max_percent"`;
+//! - `harmonic`: `"band"`, `"max_db"`, `"order"`; `rub_buzz`: `"band"`, `"max_db"`;
+//! - `polarity`: `"expected"`: `"positive"` or `"negative"`;
+//! - `balance`: `"band"`, `"max_diff_db"`, `"smoothing_fraction"` (I or `null`);
+//!
+//! where `"band"` is `{"high_hz":R,"low_hz":R}`. `"canonical"` names this version of the
+//! form; a change to it gets a new name.
+
+use super::{Band, CheckKind, LimitLine, Normalize, Plan, Polarity, RigSpec};
+use sha2::{Digest, Sha256};
+use std::collections::BTreeMap;
+
+/// Name of this version of the canonical form, written into it.
+pub const CANONICAL_FORM: &str = "tragus-plan/1";
+
+/// A value of the canonical document.
+enum C {
+    Null,
+    Int(i128),
+    Real(f64),
+    Str(String),
+    List(Vec<C>),
+    Obj(BTreeMap<&'static str, C>),
+}
+
+fn obj<const N: usize>(fields: [(&'static str, C); N]) -> C {
+    C::Obj(fields.into_iter().collect())
+}
+
+fn s(text: &str) -> C {
+    C::Str(text.to_string())
+}
+
+fn real(x: f64) -> C {
+    C::Real(x)
+}
+
+fn int<T: Into<i128>>(x: T) -> C {
+    C::Int(x.into())
+}
+
+fn band(b: &Band) -> C {
+    obj([("high_hz", real(b.high_hz)), ("low_hz", real(b.low_hz))])
+}
+
+fn limit(l: &Option<LimitLine>) -> C {
+    match l {
+        None => C::Null,
+        Some(l) => obj([
+            ("origin", s(&l.origin)),
+            (
+                "points",
+                C::List(
+                    l.points
+                        .iter()
+                        .map(|(hz, db)| C::List(vec![real(*hz), real(*db)]))
+                        .collect(),
+                ),
+            ),
+        ]),
+    }
+}
+
+fn fraction(f: Option<u32>) -> C {
+    f.map_or(C::Null, int)
+}
+
+fn to_canonical(plan: &Plan) -> C {
+    // Destructured without `..`: a field added to `Plan` fails to compile here until the
+    // canonical form says what to do with it.
+    let Plan {
+        id,
+        revision,
+        description,
+        sha256: _,
+        source: _,
+        sample_rate_hz,
+        stimulus,
+        analysis,
+        channels,
+        rig,
+        checks,
+    } = plan;
+    let st = stimulus;
+    let stimulus = obj([
+        ("duration_s", real(st.duration_s)),
+        ("fade_in_s", real(st.fade_in_s)),
+        ("fade_out_s", real(st.fade_out_s)),
+        ("level_dbfs", real(st.level_dbfs)),
+        ("silence_after_s", real(st.silence_after_s)),
+        ("silence_before_s", real(st.silence_before_s)),
+        ("start_hz", real(st.start_hz)),
+        ("stop_hz", real(st.stop_hz)),
+    ]);
+    let analysis = obj([
+        ("max_harmonic", int(analysis.max_harmonic as u64)),
+        ("min_snr_db", real(analysis.min_snr_db)),
+        ("points_per_octave", int(analysis.points_per_octave)),
+    ]);
+    let channels = C::List(
+        channels
+            .iter()
+            .map(|c| {
+                obj([
+                    ("input", int(c.input as u64)),
+                    ("name", s(&c.name)),
+                    ("output", int(c.output as u64)),
+                ])
+            })
+            .collect(),
+    );
+    let rig = match rig {
+        RigSpec::Simulated { seed } => obj([("kind", s("simulated")), ("seed", int(*seed))]),
+        RigSpec::Soundcard => obj([("kind", s("soundcard"))]),
+    };
+    let checks = C::List(
+        checks
+            .iter()
+            .map(|c| {
+                let mut m: BTreeMap<&'static str, C> = BTreeMap::new();
+                m.insert("id", s(&c.id));
+                m.insert("kind", s(c.kind.name()));
+                m.insert(
+                    "channels",
+                    C::List(c.channels.iter().map(|n| s(n)).collect()),
+                );
+                match &c.kind {
+                    CheckKind::Response {
+                        upper,
+                        lower,
+                        smoothing_fraction,
+                        normalize,
+                    } => {
+                        m.insert("upper", limit(upper));
+                        m.insert("lower", limit(lower));
+                        m.insert("smoothing_fraction", fraction(*smoothing_fraction));
+                        let n = match normalize {
+                            None => C::Null,
+                            Some(Normalize::AtHz(f)) => obj([("at_hz", real(*f))]),
+                            Some(Normalize::Band(b)) => obj([("band", band(b))]),
+                        };
+                        m.insert("normalize", n);
+                    }
+                    CheckKind::Sensitivity {
+                        band: b,
+                        min_db,
+                        max_db,
+                    } => {
+                        m.insert("band", band(b));
+                        m.insert("min_db", real(*min_db));
+                        m.insert("max_db", real(*max_db));
+                    }
+                    CheckKind::Thd {
+                        band: b,
+                        max_percent,
+                    } => {
+                        m.insert("band", band(b));
+                        m.insert("max_percent", real(*max_percent));
+                    }
+                    CheckKind::Harmonic {
+                        order,
+                        band: b,
+                        max_db,
+                    } => {
+                        m.insert("order", int(*order as u64));
+                        m.insert("band", band(b));
+                        m.insert("max_db", real(*max_db));
+                    }
+                    CheckKind::RubBuzz { band: b, max_db } => {
+                        m.insert("band", band(b));
+                        m.insert("max_db", real(*max_db));
+                    }
+                    CheckKind::Polarity { expected } => {
+                        let e = match expected {
+                            Polarity::Positive => "positive",
+                            Polarity::Negative => "negative",
+                        };
+                        m.insert("expected", s(e));
+                    }
+                    CheckKind::Balance {
+                        band: b,
+                        max_diff_db,
+                        smoothing_fraction,
+                    } => {
+                        m.insert("band", band(b));
+                        m.insert("max_diff_db", real(*max_diff_db));
+                        m.insert("smoothing_fraction", fraction(*smoothing_fraction));
+                    }
+                }
+                C::Obj(m)
+            })
+            .collect(),
+    );
+    obj([
+        ("analysis", analysis),
+        ("canonical", s(CANONICAL_FORM)),
+        ("channels", channels),
+        ("checks", checks),
+        ("description", s(description)),
+        ("id", s(id)),
+        ("revision", int(*revision)),
+        ("rig", rig),
+        ("sample_rate_hz", int(*sample_rate_hz)),
+        ("stimulus", stimulus),
+    ])
+}
+
+fn write(c: &C, out: &mut String) {
+    match c {
+        C::Null => out.push_str("null"),
+        C::Int(i) => out.push_str(&i.to_string()),
+        C::Real(x) => {
+            // -0.0 and 0.0 are the same limit; validation admits only finite numbers, and a
+            // non-finite one would be written `null` by serde_json rather than panic.
+            let x = if *x == 0.0 { 0.0 } else { *x };
+            out.push_str(&serde_json::Value::from(x).to_string());
+        }
+        C::Str(text) => out.push_str(&serde_json::Value::from(text.as_str()).to_string()),
+        C::List(items) => {
+            out.push('[');
+            for (i, item) in items.iter().enumerate() {
+                if i > 0 {
+                    out.push(',');
+                }
+                write(item, out);
+            }
+            out.push(']');
+        }
+        C::Obj(fields) => {
+            // BTreeMap<&str> iterates in byte order of the keys, as the form requires.
+            out.push('{');
+            for (i, (k, v)) in fields.iter().enumerate() {
+                if i > 0 {
+                    out.push(',');
+                }
+                out.push_str(&serde_json::Value::from(*k).to_string());
+                out.push(':');
+                write(v, out);
+            }
+            out.push('}');
+        }
+    }
+}
+
+/// The canonical JSON text of a plan (see the module doc).
+pub fn canonical_json(plan: &Plan) -> String {
+    let mut out = String::new();
+    write(&to_canonical(plan), &mut out);
+    out
+}
+
+/// Lowercase hex SHA-256 of [`canonical_json`].
+pub fn plan_sha256(plan: &Plan) -> String {
+    hex::encode(Sha256::digest(canonical_json(plan).as_bytes()))
+}

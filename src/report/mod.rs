@@ -1,1 +1,333 @@
-//! Reports: human-readable tables of a unit result.
+//! Reports: the human-readable account of one unit result.
+//!
+//! The last stage of the data flow: the CLI hands a finished [`UnitResult`] (after the
+//! checks, before or after the store) to [`render_human`] and prints the text. The layout
+//! is made for a station screen read from a step away: a header (serial, plan, time, rig),
+//! the unit verdict as a large block word and as a plain word, the reasons for a retest in
+//! words, an aligned table of the checks, and an aligned table of the channels.
+//!
+//! The verdict is always written as a word; colour (ANSI escapes) only adds to it and is
+//! off when `color` is false, so a log or a colour-blind reader loses nothing.
+
+use crate::checks::format_hz;
+use crate::result::UnitResult;
+use crate::Verdict;
+
+/// Shown in a table cell that has no value.
+const NONE_CELL: &str = "—";
+
+/// Render `result` for a terminal; `color` adds ANSI colour to the verdicts.
+pub fn render_human(result: &UnitResult, color: bool) -> String {
+    let mut out = String::new();
+    let paint = |v: Verdict, s: &str| paint(color, v, s);
+
+    // Header.
+    out.push_str(&format!(
+        "{} {} · unit result\n",
+        result.tool.name, result.tool.version
+    ));
+    let serial = if result.serial.is_empty() {
+        "(none)"
+    } else {
+        result.serial.as_str()
+    };
+    let sha_short: String = result.plan.sha256.chars().take(12).collect();
+    let rig = match &result.simulated_unit {
+        Some(u) => format!("{} ({u})", result.rig),
+        None => result.rig.clone(),
+    };
+    let header = [
+        ("serial", serial.to_string()),
+        (
+            "plan",
+            format!(
+                "{} rev {} · sha256 {sha_short}…",
+                result.plan.id, result.plan.revision
+            ),
+        ),
+        ("time", result.time_utc.clone()),
+        ("rig", rig),
+    ];
+    for (k, v) in header {
+        out.push_str(&format!("  {k:<8}{v}\n"));
+    }
+    out.push('\n');
+
+    // The verdict, large and plain.
+    for line in block_word(result.verdict.word()) {
+        out.push_str("  ");
+        out.push_str(&paint(result.verdict, &line));
+        out.push('\n');
+    }
+    out.push('\n');
+    out.push_str(&format!(
+        "  verdict: {} · {}\n",
+        paint(result.verdict, result.verdict.word()),
+        summary(result)
+    ));
+
+    // Retest reasons in words.
+    let reasons = retest_reasons(result);
+    if !reasons.is_empty() {
+        out.push_str("\nretest reasons\n");
+        for r in reasons {
+            out.push_str(&format!("  - {r}\n"));
+        }
+    }
+
+    // Checks.
+    out.push_str("\nchecks\n");
+    if result.checks.is_empty() {
+        out.push_str("  (the plan has no checks)\n");
+    } else {
+        let mut t = Table::new(&[
+            ("check", Align::Left),
+            ("kind", Align::Left),
+            ("channel", Align::Left),
+            ("verdict", Align::Left),
+            ("margin dB", Align::Right),
+            ("at", Align::Right),
+            ("detail", Align::Left),
+        ]);
+        for c in &result.checks {
+            t.row(vec![
+                Cell::plain(&c.id),
+                Cell::plain(&c.kind),
+                Cell::plain(&c.channel),
+                Cell::verdict(c.verdict),
+                Cell::plain(&format_margin(c.worst_margin_db)),
+                Cell::plain(&c.at_hz.map_or(NONE_CELL.to_string(), format_hz)),
+                Cell::plain(&c.detail),
+            ]);
+        }
+        t.render(&mut out, color);
+    }
+
+    // Channels.
+    out.push_str("\nchannels\n");
+    if result.channels.is_empty() {
+        out.push_str("  (no channel measured)\n");
+    } else {
+        let mut t = Table::new(&[
+            ("channel", Align::Left),
+            ("latency", Align::Right),
+            ("polarity", Align::Left),
+            ("SNR", Align::Right),
+            ("peak", Align::Right),
+            ("measurement", Align::Left),
+        ]);
+        for m in &result.channels {
+            let polarity = match m.polarity {
+                crate::plan::Polarity::Positive => "positive",
+                crate::plan::Polarity::Negative => "negative",
+            };
+            let state = if m.is_valid() {
+                Cell::plain("valid")
+            } else {
+                Cell {
+                    text: "not valid".into(),
+                    verdict: Some(Verdict::Retest),
+                }
+            };
+            t.row(vec![
+                Cell::plain(&m.name),
+                Cell::plain(&format!("{} samples", m.latency_samples)),
+                Cell::plain(polarity),
+                Cell::plain(&format!("{:.1} dB", m.snr_db)),
+                Cell::plain(&format!("{:.1} dBFS", m.peak_dbfs)),
+                state,
+            ]);
+        }
+        t.render(&mut out, color);
+    }
+    out
+}
+
+/// One line after the verdict word: how many checks failed or could not be judged.
+fn summary(result: &UnitResult) -> String {
+    let n = result.checks.len();
+    let count = |v: Verdict| result.checks.iter().filter(|c| c.verdict == v).count();
+    let (n_fail, n_retest) = (count(Verdict::Fail), count(Verdict::Retest));
+    match result.verdict {
+        Verdict::Pass => format!("all {n} checks passed"),
+        Verdict::Fail => format!("{n_fail} of {n} checks failed"),
+        Verdict::Retest if n_retest > 0 => {
+            format!("{n_retest} of {n} checks not judged; test the unit again")
+        }
+        Verdict::Retest => "measurement not valid; test the unit again".to_string(),
+    }
+}
+
+/// Every reason for a retest in words: the unit's, each invalid channel's, and each check
+/// that could not be judged (without repeating the channel reasons it only echoes).
+fn retest_reasons(result: &UnitResult) -> Vec<String> {
+    let mut out: Vec<String> = result.retest_reasons.clone();
+    for m in &result.channels {
+        for r in &m.retest_reasons {
+            out.push(format!("{}: {r}", m.name));
+        }
+    }
+    let invalid: Vec<&str> = result
+        .channels
+        .iter()
+        .filter(|m| !m.is_valid())
+        .map(|m| m.name.as_str())
+        .collect();
+    for c in result
+        .checks
+        .iter()
+        .filter(|c| c.verdict == Verdict::Retest)
+    {
+        let echoes_channel = c.channel.split('/').any(|ch| invalid.contains(&ch));
+        if !echoes_channel {
+            out.push(format!("check {} on {}: {}", c.id, c.channel, c.detail));
+        }
+    }
+    out
+}
+
+/// A margin for the table: two decimals, or a dash when there is none.
+fn format_margin(margin_db: Option<f64>) -> String {
+    match margin_db {
+        Some(v) => format!("{v:.2}"),
+        None => NONE_CELL.to_string(),
+    }
+}
+
+/// Wrap `s` in the verdict's ANSI colour when `color` is on.
+fn paint(color: bool, v: Verdict, s: &str) -> String {
+    if !color {
+        return s.to_string();
+    }
+    // SGR codes (ECMA-48): 1 bold; 32 green, 31 red, 33 yellow; 0 reset.
+    let code = match v {
+        Verdict::Pass => "1;32",
+        Verdict::Fail => "1;31",
+        Verdict::Retest => "1;33",
+    };
+    format!("\x1b[{code}m{s}\x1b[0m")
+}
+
+/// The verdict word in 5-row block letters (`#`), for reading from a distance.
+fn block_word(word: &str) -> Vec<String> {
+    let glyph = |c: char| -> [&'static str; 5] {
+        match c {
+            'A' => [" ### ", "#   #", "#####", "#   #", "#   #"],
+            'E' => ["#####", "#    ", "#### ", "#    ", "#####"],
+            'F' => ["#####", "#    ", "#### ", "#    ", "#    "],
+            'I' => ["#####", "  #  ", "  #  ", "  #  ", "#####"],
+            'L' => ["#    ", "#    ", "#    ", "#    ", "#####"],
+            'P' => ["#### ", "#   #", "#### ", "#    ", "#    "],
+            'R' => ["#### ", "#   #", "#### ", "#  # ", "#   #"],
+            'S' => [" ####", "#    ", " ### ", "    #", "#### "],
+            'T' => ["#####", "  #  ", "  #  ", "  #  ", "  #  "],
+            _ => ["     ", "     ", "     ", "     ", "     "],
+        }
+    };
+    (0..5)
+        .map(|row| {
+            let line: Vec<&str> = word.chars().map(|c| glyph(c)[row]).collect();
+            line.join("  ").trim_end().to_string()
+        })
+        .collect()
+}
+
+#[derive(Clone, Copy)]
+enum Align {
+    Left,
+    Right,
+}
+
+struct Cell {
+    text: String,
+    /// Coloured as this verdict when colour is on.
+    verdict: Option<Verdict>,
+}
+
+impl Cell {
+    fn plain(s: &str) -> Cell {
+        Cell {
+            text: s.to_string(),
+            verdict: None,
+        }
+    }
+
+    fn verdict(v: Verdict) -> Cell {
+        Cell {
+            text: v.word().to_string(),
+            verdict: Some(v),
+        }
+    }
+}
+
+/// A text table: columns padded to their widest cell (in characters, so `—` counts as
+/// one), two spaces apart; the last column is not padded. Colour is applied after
+/// padding so escapes never shift a column.
+struct Table {
+    headers: Vec<(&'static str, Align)>,
+    rows: Vec<Vec<Cell>>,
+}
+
+impl Table {
+    fn new(headers: &[(&'static str, Align)]) -> Table {
+        Table {
+            headers: headers.to_vec(),
+            rows: Vec::new(),
+        }
+    }
+
+    fn row(&mut self, cells: Vec<Cell>) {
+        debug_assert_eq!(cells.len(), self.headers.len());
+        self.rows.push(cells);
+    }
+
+    fn render(&self, out: &mut String, color: bool) {
+        let width = |s: &str| s.chars().count();
+        let widths: Vec<usize> = (0..self.headers.len())
+            .map(|j| {
+                self.rows
+                    .iter()
+                    .map(|r| width(&r[j].text))
+                    .chain([width(self.headers[j].0)])
+                    .max()
+                    .unwrap_or(0)
+            })
+            .collect();
+        let last = self.headers.len() - 1;
+        let pad = |j: usize, s: &str| -> String {
+            if j == last && matches!(self.headers[j].1, Align::Left) {
+                return s.to_string();
+            }
+            let fill = " ".repeat(widths[j] - width(s));
+            match self.headers[j].1 {
+                Align::Left => format!("{s}{fill}"),
+                Align::Right => format!("{fill}{s}"),
+            }
+        };
+        let headers: Vec<String> = self
+            .headers
+            .iter()
+            .enumerate()
+            .map(|(j, (h, _))| pad(j, h))
+            .collect();
+        out.push_str("  ");
+        out.push_str(headers.join("  ").trim_end());
+        out.push('\n');
+        for r in &self.rows {
+            let cells: Vec<String> = r
+                .iter()
+                .enumerate()
+                .map(|(j, c)| {
+                    let padded = pad(j, &c.text);
+                    match c.verdict {
+                        Some(v) => paint(color, v, &padded),
+                        None => padded,
+                    }
+                })
+                .collect();
+            out.push_str("  ");
+            out.push_str(cells.join("  ").trim_end());
+            out.push('\n');
+        }
+    }
+}

@@ -1,1 +1,479 @@
 //! The store: one SQLite database per station, append-only records, raw captures by hash.
+//!
+//! It sits at the end of the data flow: after [`checks`](crate::checks) has judged a unit, the
+//! CLI hands the result (as JSON) and the raw capture (as WAV bytes) to [`Store::append`];
+//! [`report`](crate::report) and auditors read records back with [`Store::get`],
+//! [`Store::list`] and [`Store::verify`].
+//!
+//! # Layout on disk
+//!
+//! ```text
+//! DIR/tragus.db                      SQLite, WAL journal, synchronous=FULL
+//! DIR/tragus.db-wal, tragus.db-shm   SQLite's write-ahead log and its index
+//! DIR/captures/<sha256-hex>.wav      raw captures, named by the SHA-256 of their bytes
+//! ```
+//!
+//! Records are append-only: triggers make SQLite refuse any `UPDATE` or `DELETE` on
+//! `records`, and any `INSERT` whose id and `prev_hash` do not continue the chain. Triggers
+//! stop mistakes, not someone with write access to the file; the hash chain is what makes
+//! tampering visible. The schema version is `PRAGMA user_version` (see [`SCHEMA_VERSION`]);
+//! opening an older store migrates it, opening a newer one is refused.
+//!
+//! # Canonical byte form
+//!
+//! `record_hash` is the SHA-256 (FIPS 180-4) of these bytes, written as 64 lowercase hex
+//! digits. Auditors recompute it from the stored columns alone:
+//!
+//! ```text
+//! canonical = "tragus-record-v1" LF  field("id") field("time_utc") field("serial")
+//!             field("plan_id") field("plan_revision") field("plan_sha256")
+//!             field("software_version") field("station") field("operator") field("rig")
+//!             field("verdict") field("result_json") field("capture_sha256")
+//!             field("prev_hash")
+//! field(NAME) = NAME ":" LEN ":" VALUE LF
+//! ```
+//!
+//! - `NAME` is the column name in ASCII, exactly as above, in exactly that order.
+//! - `VALUE` is the column's value as UTF-8 bytes, unescaped and untrimmed: text as stored;
+//!   `id` and `plan_revision` in decimal ASCII digits with no sign, no leading zeros, no
+//!   separators; `verdict` as `pass`, `fail` or `retest`; hashes as 64 lowercase hex digits.
+//! - `LEN` is the number of bytes of `VALUE` (not characters) in decimal ASCII, no leading
+//!   zeros.
+//! - `LF` is the single byte 0x0A; there is no other separator and nothing at the end.
+//!
+//! The length prefix makes the form unambiguous whatever the values contain (colons, line
+//! feeds, JSON). The first record's `prev_hash` is [`GENESIS_PREV_HASH`] (64 zeros); every
+//! other record's `prev_hash` is the `record_hash` of the record with the id one less. Not
+//! hashed: `time_unix_ns` (derived from `time_utc`; verification checks it) and `signature`
+//! (reserved for the station key's signature over `record_hash`, NULL until station keys
+//! exist).
+//!
+//! Worked example (checked by `tests/store_reference.rs` against
+//! `tests/reference/store_record_hash.py`, which uses Python's `hashlib`): the first record
+//! of a store with `time_utc` `2025-03-14T09:26:53.589Z`, serial `E2-000123`, plan
+//! `demo-earbud` revision 3, `plan_sha256` 64 × `a`, software `0.1.0`, station
+//! `larkspur-line3-st1`, operator `j.okafor`, rig `simulated`, verdict `pass`,
+//! `result_json` `{"verdict":"pass"}` and as capture the 44-byte WAV header of a mono 16-bit
+//! 48 kHz file with no samples (SHA-256 `531cd597…caa0`), has these canonical bytes (each
+//! line ends with LF, including the last):
+//!
+//! ```text
+//! tragus-record-v1
+//! id:1:1
+//! time_utc:24:2025-03-14T09:26:53.589Z
+//! serial:9:E2-000123
+//! plan_id:11:demo-earbud
+//! plan_revision:1:3
+//! plan_sha256:64:aaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaa
+//! software_version:5:0.1.0
+//! station:18:larkspur-line3-st1
+//! operator:8:j.okafor
+//! rig:9:simulated
+//! verdict:4:pass
+//! result_json:18:{"verdict":"pass"}
+//! capture_sha256:64:531cd597b25052b4845ef2f3887dec2183240802a93b6e044960de8ba017caa0
+//! prev_hash:64:0000000000000000000000000000000000000000000000000000000000000000
+//! ```
+//!
+//! and `record_hash` `d43705c5cc69a7d592b5ba63ed20e990f3440f9348a7343bb0754c55bf12bcf6`.
+//!
+//! # Crash safety
+//!
+//! A crash must never leave a half record. [`Store::append`] writes the capture to a
+//! temporary file in `captures/`, fsyncs it, renames it to its hash name, fsyncs the
+//! directory, and only then inserts the record in one `BEGIN IMMEDIATE` transaction (which
+//! also serializes appends from several processes, so the chain stays linear). A crash can
+//! leave at worst a temporary file or an orphan capture, which [`Store::verify`] lists as
+//! [`Notice`]s, never a record without its capture and never a partial row.
+//!
+//! For tests of exactly this, debug builds read the environment variable
+//! [`CRASH_AT_ENV`] (`TRAGUS_STORE_CRASH_AT`): set to `during_capture` (temporary file
+//! written, not yet renamed), `after_capture` (capture in place, no transaction yet) or
+//! `before_commit` (row inserted, transaction not committed), an append reaching that
+//! point writes the line [`CRASH_MARKER`] followed by the point's name to stderr and then
+//! blocks forever, so the test can kill the process there with SIGKILL. Release builds
+//! ignore the variable.
+
+mod capture;
+mod error;
+mod hash;
+mod record;
+mod schema;
+mod verify;
+
+use std::path::{Path, PathBuf};
+
+use rusqlite::types::Value;
+use rusqlite::{params, Connection, OptionalExtension, Row, TransactionBehavior};
+
+pub use error::StoreError;
+pub use hash::{sha256_hex, CANONICAL_HEADER, GENESIS_PREV_HASH};
+pub use record::{NewRecord, RecordFilter, StoredRecord};
+pub use schema::SCHEMA_VERSION;
+pub use verify::{Notice, Problem, ProblemKind, VerifyReport};
+
+use capture::{capture_file, ensure_capture, looks_like_wav, CAPTURE_DIR};
+use hash::is_sha256_hex;
+use record::{unix_ns, verdict_from_word, verdict_word};
+use schema::{open_database, sqlite_err};
+
+/// File name of the database inside the store directory.
+pub const DB_FILE: &str = "tragus.db";
+
+/// Default store directory when the CLI gets no `--store`.
+pub const DEFAULT_DIR: &str = "./tragus-data";
+
+/// Environment variable naming a crash point for tests (debug builds only; module doc).
+pub const CRASH_AT_ENV: &str = "TRAGUS_STORE_CRASH_AT";
+
+/// Written to stderr, followed by the point's name, when a debug build stops at a crash
+/// point (module doc).
+pub const CRASH_MARKER: &str = "tragus-store-crash-point: ";
+
+/// Stop here forever if the crash-point variable names `point` (debug builds only).
+#[cfg(debug_assertions)]
+pub(crate) fn crash_point(point: &str) {
+    use std::io::Write;
+    if std::env::var_os(CRASH_AT_ENV).is_some_and(|v| v == point) {
+        let mut err = std::io::stderr().lock();
+        let _ = writeln!(err, "{CRASH_MARKER}{point}");
+        let _ = err.flush();
+        drop(err);
+        // Park, not exit: the test must kill the process itself so nothing (no destructor,
+        // no rollback) runs after this point, as in a real crash.
+        loop {
+            std::thread::park();
+        }
+    }
+}
+
+/// Release builds have no crash points.
+#[cfg(not(debug_assertions))]
+#[inline(always)]
+pub(crate) fn crash_point(_point: &str) {}
+
+/// Columns of a record in the order [`read_record`] expects.
+const RECORD_COLUMNS: &str = "id, time_utc, serial, plan_id, plan_revision, plan_sha256, \
+    software_version, station, operator, rig, verdict, result_json, capture_sha256, \
+    prev_hash, record_hash";
+
+/// An open store: the station's database and its capture directory.
+///
+/// Several `Store`s, in one process or many, may be open on the same directory; appends
+/// serialize on SQLite's write lock.
+#[derive(Debug)]
+pub struct Store {
+    dir: PathBuf,
+    db_path: PathBuf,
+    capture_dir: PathBuf,
+    conn: Connection,
+}
+
+impl Store {
+    /// Open the store in `dir`, creating the directory, the database and `captures/` if
+    /// missing, and migrating an older schema.
+    ///
+    /// Fails with [`StoreError::NotAStore`] if `dir/tragus.db` is not a tragus store,
+    /// [`StoreError::NewerSchema`] if a newer tragus wrote it, [`StoreError::Locked`] if
+    /// another process holds it for longer than the busy timeout.
+    pub fn open(dir: &Path) -> Result<Store, StoreError> {
+        let capture_dir = dir.join(CAPTURE_DIR);
+        std::fs::create_dir_all(&capture_dir).map_err(|source| StoreError::Io {
+            path: capture_dir.clone(),
+            action: "create the store directory",
+            source,
+        })?;
+        let db_path = dir.join(DB_FILE);
+        let conn = open_database(&db_path)?;
+        Ok(Store {
+            dir: dir.to_owned(),
+            db_path,
+            capture_dir,
+            conn,
+        })
+    }
+
+    /// The store directory.
+    pub fn dir(&self) -> &Path {
+        &self.dir
+    }
+
+    /// The database file, `dir/tragus.db`.
+    pub fn db_path(&self) -> &Path {
+        &self.db_path
+    }
+
+    /// How long an append waits for another process's write lock before failing with
+    /// [`StoreError::Locked`]; 10 s after [`open`](Self::open). Zero fails at once.
+    pub fn set_busy_timeout(&mut self, timeout: std::time::Duration) -> Result<(), StoreError> {
+        self.conn.busy_timeout(timeout).map_err(|e| self.err(e))
+    }
+
+    /// Append one record with its raw capture (a complete WAV file's bytes) and return it as
+    /// stored, with its id, capture hash and place in the chain.
+    ///
+    /// The capture is made durable first and the record committed after, so a crash leaves
+    /// no record without its capture (module doc, "Crash safety"). An existing capture with
+    /// the same hash is reused after checking its bytes. Nothing is written when a field is
+    /// invalid ([`StoreError::InvalidRecord`]).
+    pub fn append(
+        &mut self,
+        rec: &NewRecord,
+        capture_wav: &[u8],
+    ) -> Result<StoredRecord, StoreError> {
+        let time_unix_ns = rec.validate()?;
+        if !looks_like_wav(capture_wav) {
+            let head: String = capture_wav
+                .iter()
+                .take(12)
+                .map(|&b| char::from(b).escape_default().to_string())
+                .collect();
+            return Err(StoreError::InvalidRecord {
+                field: "capture_wav",
+                expected: "a WAV file (RIFF....WAVE)",
+                found: format!("{} bytes starting \"{head}\"", capture_wav.len()),
+            });
+        }
+        let capture_sha256 = sha256_hex(capture_wav);
+        ensure_capture(&self.capture_dir, &capture_sha256, capture_wav)?;
+        crash_point("after_capture");
+
+        let db_path = &self.db_path;
+        let err = |e| sqlite_err(db_path, e);
+        let tx = self
+            .conn
+            .transaction_with_behavior(TransactionBehavior::Immediate)
+            .map_err(err)?;
+        let last: Option<(i64, String)> = tx
+            .query_row(
+                "SELECT id, record_hash FROM records ORDER BY id DESC LIMIT 1",
+                [],
+                |r| Ok((r.get(0)?, r.get(1)?)),
+            )
+            .optional()
+            .map_err(err)?;
+        let (id, prev_hash) = match last {
+            None => (1, GENESIS_PREV_HASH.to_owned()),
+            Some((last_id, last_hash)) => {
+                let id = last_id.checked_add(1).ok_or(StoreError::Corrupt {
+                    id: last_id,
+                    column: "id",
+                    detail: "no id can follow it".into(),
+                })?;
+                (id, last_hash)
+            }
+        };
+        let mut stored = StoredRecord {
+            id,
+            time_utc: rec.time_utc.clone(),
+            serial: rec.serial.clone(),
+            plan_id: rec.plan_id.clone(),
+            plan_revision: rec.plan_revision,
+            plan_sha256: rec.plan_sha256.clone(),
+            software_version: rec.software_version.clone(),
+            station: rec.station.clone(),
+            operator: rec.operator.clone(),
+            rig: rec.rig.clone(),
+            verdict: rec.verdict,
+            result_json: rec.result_json.clone(),
+            capture_sha256,
+            prev_hash,
+            record_hash: String::new(),
+        };
+        stored.record_hash = stored.computed_hash();
+        tx.execute(
+            "INSERT INTO records (id, time_utc, time_unix_ns, serial, plan_id, plan_revision, \
+             plan_sha256, software_version, station, operator, rig, verdict, result_json, \
+             capture_sha256, prev_hash, record_hash, signature) \
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, NULL)",
+            params![
+                stored.id,
+                stored.time_utc,
+                time_unix_ns,
+                stored.serial,
+                stored.plan_id,
+                stored.plan_revision,
+                stored.plan_sha256,
+                stored.software_version,
+                stored.station,
+                stored.operator,
+                stored.rig,
+                verdict_word(stored.verdict),
+                stored.result_json,
+                stored.capture_sha256,
+                stored.prev_hash,
+                stored.record_hash,
+            ],
+        )
+        .map_err(err)?;
+        crash_point("before_commit");
+        tx.commit().map_err(err)?;
+        Ok(stored)
+    }
+
+    /// The record with this id, or `None` if there is none.
+    ///
+    /// Does not check hashes (that is [`verify`](Self::verify)); fails with
+    /// [`StoreError::Corrupt`] if a column holds a value no record can have.
+    pub fn get(&self, id: i64) -> Result<Option<StoredRecord>, StoreError> {
+        let sql = format!("SELECT {RECORD_COLUMNS} FROM records WHERE id = ?1");
+        let mut stmt = self.conn.prepare(&sql).map_err(|e| self.err(e))?;
+        let mut rows = stmt.query([id]).map_err(|e| self.err(e))?;
+        match rows.next().map_err(|e| self.err(e))? {
+            Some(row) => Ok(Some(read_record(row, &self.db_path)?)),
+            None => Ok(None),
+        }
+    }
+
+    /// The records matching `filter`, by id, oldest first unless `filter.newest_first`.
+    pub fn list(&self, filter: &RecordFilter) -> Result<Vec<StoredRecord>, StoreError> {
+        let mut conditions: Vec<&str> = Vec::new();
+        let mut values: Vec<Value> = Vec::new();
+        if let Some(serial) = &filter.serial {
+            conditions.push("serial = ?");
+            values.push(Value::Text(serial.clone()));
+        }
+        if let Some(plan_id) = &filter.plan_id {
+            conditions.push("plan_id = ?");
+            values.push(Value::Text(plan_id.clone()));
+        }
+        if let Some(verdict) = filter.verdict {
+            conditions.push("verdict = ?");
+            values.push(Value::Text(verdict_word(verdict).to_owned()));
+        }
+        // Instants beyond what i64 nanoseconds hold (years before 1678 or after 2262)
+        // saturate, which keeps the comparison right for every storable record time.
+        let ns = |t: time::OffsetDateTime| {
+            unix_ns(t).unwrap_or(if t.unix_timestamp() < 0 {
+                i64::MIN
+            } else {
+                i64::MAX
+            })
+        };
+        if let Some(since) = filter.since {
+            conditions.push("time_unix_ns >= ?");
+            values.push(Value::Integer(ns(since)));
+        }
+        if let Some(until) = filter.until {
+            conditions.push("time_unix_ns < ?");
+            values.push(Value::Integer(ns(until)));
+        }
+        let mut sql = format!("SELECT {RECORD_COLUMNS} FROM records");
+        if !conditions.is_empty() {
+            sql.push_str(" WHERE ");
+            sql.push_str(&conditions.join(" AND "));
+        }
+        sql.push_str(if filter.newest_first {
+            " ORDER BY id DESC"
+        } else {
+            " ORDER BY id"
+        });
+        if let Some(limit) = filter.limit {
+            sql.push_str(" LIMIT ?");
+            values.push(Value::Integer(i64::try_from(limit).unwrap_or(i64::MAX)));
+        }
+        let mut stmt = self.conn.prepare(&sql).map_err(|e| self.err(e))?;
+        let mut rows = stmt
+            .query(rusqlite::params_from_iter(values))
+            .map_err(|e| self.err(e))?;
+        let mut out = Vec::new();
+        while let Some(row) = rows.next().map_err(|e| self.err(e))? {
+            out.push(read_record(row, &self.db_path)?);
+        }
+        Ok(out)
+    }
+
+    /// Where the capture with this SHA-256 (64 lowercase hex digits) lives:
+    /// `dir/captures/<sha256>.wav`. The file may not exist.
+    pub fn capture_path(&self, sha256: &str) -> PathBuf {
+        capture_file(&self.capture_dir, sha256)
+    }
+
+    /// The bytes of the capture with this SHA-256, checked against it.
+    ///
+    /// Fails with [`StoreError::CaptureMissing`] or [`StoreError::CaptureAltered`] (also when
+    /// `sha256` is not 64 lowercase hex digits, which no capture is named by).
+    pub fn read_capture(&self, sha256: &str) -> Result<Vec<u8>, StoreError> {
+        if !is_sha256_hex(sha256) {
+            return Err(StoreError::InvalidRecord {
+                field: "capture_sha256",
+                expected: "64 lowercase hex digits",
+                found: error::shorten(sha256),
+            });
+        }
+        let path = self.capture_path(sha256);
+        // Read, then hash what was read, so the bytes returned are the bytes checked.
+        let bytes = match std::fs::read(&path) {
+            Ok(b) => b,
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
+                return Err(StoreError::CaptureMissing { path })
+            }
+            Err(source) => {
+                return Err(StoreError::Io {
+                    path,
+                    action: "read the capture file",
+                    source,
+                })
+            }
+        };
+        if sha256_hex(&bytes) != sha256 {
+            return Err(StoreError::CaptureAltered { path });
+        }
+        Ok(bytes)
+    }
+
+    /// Recompute every record's hash, walk the chain, rehash every capture file and scan
+    /// for orphans; return every problem found, each with the record it concerns.
+    ///
+    /// Tampering is reported in the [`VerifyReport`], not as an error; an error means the
+    /// verification itself could not run (unreadable database or directory).
+    pub fn verify(&self) -> Result<VerifyReport, StoreError> {
+        verify::verify(&self.conn, &self.db_path, &self.capture_dir)
+    }
+
+    fn err(&self, e: rusqlite::Error) -> StoreError {
+        sqlite_err(&self.db_path, e)
+    }
+}
+
+/// Read one row selected with [`RECORD_COLUMNS`].
+fn read_record(row: &Row<'_>, db_path: &Path) -> Result<StoredRecord, StoreError> {
+    let id: i64 = row.get(0).map_err(|e| sqlite_err(db_path, e))?;
+    let corrupt = |column: &'static str, e: rusqlite::Error| StoreError::Corrupt {
+        id,
+        column,
+        detail: e.to_string(),
+    };
+    let text = |i: usize, column: &'static str| -> Result<String, StoreError> {
+        row.get::<_, String>(i).map_err(|e| corrupt(column, e))
+    };
+    let revision: i64 = row.get(4).map_err(|e| corrupt("plan_revision", e))?;
+    let plan_revision = u32::try_from(revision).map_err(|_| StoreError::Corrupt {
+        id,
+        column: "plan_revision",
+        detail: format!("{revision} is not a revision number"),
+    })?;
+    let verdict_text = text(10, "verdict")?;
+    let verdict = verdict_from_word(&verdict_text).ok_or_else(|| StoreError::Corrupt {
+        id,
+        column: "verdict",
+        detail: format!("{verdict_text:?} is not pass, fail or retest"),
+    })?;
+    Ok(StoredRecord {
+        id,
+        time_utc: text(1, "time_utc")?,
+        serial: text(2, "serial")?,
+        plan_id: text(3, "plan_id")?,
+        plan_revision,
+        plan_sha256: text(5, "plan_sha256")?,
+        software_version: text(6, "software_version")?,
+        station: text(7, "station")?,
+        operator: text(8, "operator")?,
+        rig: text(9, "rig")?,
+        verdict,
+        result_json: text(11, "result_json")?,
+        capture_sha256: text(12, "capture_sha256")?,
+        prev_hash: text(13, "prev_hash")?,
+        record_hash: text(14, "record_hash")?,
+    })
+}

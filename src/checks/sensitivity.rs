@@ -1,0 +1,53 @@
+//! The `sensitivity` check: a channel's mean level over a band within `[min_db, max_db]`.
+//!
+//! Called from [`super::judge`]. The level is the plain mean of the unsmoothed
+//! `response_db` over the grid points inside the band (band edges included). Because the
+//! grid is logarithmic, every fractional octave weighs the same, the way a limit drawn on
+//! a log-frequency plot reads.
+//!
+//! The alternative, a power average `10·lg(mean 10^(r/10))`, was considered and not taken:
+//! it is dominated by the loudest points, so one resonance (the ear-canal peak near 3 kHz
+//! of an in-ear response, a sharp fixture mode) would set the sensitivity of the whole
+//! band and a unit with a taller peak but a weaker band would read as more sensitive.
+//! The dB mean tracks the broadband level that a sensitivity limit means; a power average
+//! belongs to a check of radiated power, which this is not. On a flat response the two
+//! agree; the power average is never below the dB mean (Jensen's inequality).
+//!
+//! Margin: `min(mean − min_db, max_db − mean)`; it has no frequency (`at_hz` is `null`).
+
+use super::{band_mean_db, format_band, grid_mismatch, Finding};
+use crate::analysis::ChannelMeasurement;
+use crate::plan::Band;
+
+/// Judge the mean level of `m` over `band` against `[min_db, max_db]`.
+pub fn judge(m: &ChannelMeasurement, band: Band, min_db: f64, max_db: f64) -> Finding {
+    if let Some(f) = grid_mismatch(m, "response_db", m.response_db.len()) {
+        return f;
+    }
+    judge_curve(&m.frequencies_hz, &m.response_db, band, min_db, max_db)
+}
+
+/// Judge the mean of a grid curve over `band`; a band without a grid point is a retest.
+pub fn judge_curve(
+    freqs_hz: &[f64],
+    curve_db: &[f64],
+    band: Band,
+    min_db: f64,
+    max_db: f64,
+) -> Finding {
+    let Some((mean_db, n)) = band_mean_db(freqs_hz, curve_db, band) else {
+        return Finding::retest(format!(
+            "not judged: no grid point with a level in the band {}",
+            format_band(band)
+        ));
+    };
+    let margin_db = (mean_db - min_db).min(max_db - mean_db);
+    Finding::judged(
+        margin_db,
+        None,
+        format!(
+            "mean level {mean_db:.2} dB over {} ({n} points), limits {min_db:.2} to {max_db:.2} dB",
+            format_band(band)
+        ),
+    )
+}

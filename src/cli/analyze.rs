@@ -1,0 +1,46 @@
+//! `tragus analyze PLAN --capture FILE.wav [--json OUT]`: judge a recorded capture.
+
+use super::{pipeline, Exit, JsonOut, Output};
+use crate::rig::recording::RecordingRig;
+use crate::rig::{Rig, RigError};
+use std::path::PathBuf;
+
+/// Arguments of `analyze`.
+#[derive(Debug, clap::Args)]
+pub struct Args {
+    /// The test plan whose stimulus was recorded.
+    #[arg(value_name = "PLAN")]
+    pub plan: PathBuf,
+    /// The capture: a WAV with the plan's input channels, at the plan's rate, sample 0
+    /// aligned with stimulus sample 0.
+    #[arg(long, value_name = "FILE.wav")]
+    pub capture: PathBuf,
+    /// Serial number to put in the result.
+    #[arg(long, default_value = "")]
+    pub serial: String,
+    /// Write the result JSON here (`-` for stdout: human output then goes nowhere).
+    #[arg(long, value_name = "OUT")]
+    pub json: Option<JsonOut>,
+}
+
+pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
+    let mut prep = pipeline::prepare(&args.plan)?;
+    let mut rig = RecordingRig::open(&args.capture).map_err(|e| match e {
+        RigError::BadInput { .. } => Exit::bad_input(e),
+        RigError::Fault(_) => Exit::retest(e),
+    })?;
+    let capture = rig
+        .play_and_capture(&prep.stimulus, prep.plan.n_inputs())
+        .map_err(|e| match e {
+            RigError::BadInput { .. } => Exit::bad_input(e),
+            RigError::Fault(_) => Exit::retest(e),
+        })?;
+    let result = pipeline::judge_capture(&mut prep, &capture, &args.serial, rig.name(), None)?;
+    if let Some(j) = &args.json {
+        j.write(&result).map_err(Exit::bad_input)?;
+    }
+    if !args.json.as_ref().is_some_and(JsonOut::is_stdout) {
+        print!("{}", crate::report::render_human(&result, out.color));
+    }
+    Ok(result.verdict.exit_code())
+}

@@ -1,0 +1,180 @@
+//! `tragus run PLAN --serial SN [--rig simulated|soundcard] [--store DIR] [--json OUT]`.
+
+use super::{pipeline, Exit, JsonOut, Output};
+use crate::plan::RigSpec;
+use crate::rig::simulated::{Defect, SimUnit, SimulatedRig, UnitKind};
+use crate::rig::{Rig, RigError};
+use crate::store::{NewRecord, Store};
+use anyhow::Context;
+use std::path::PathBuf;
+
+/// Which rig plays the plan.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum RigChoice {
+    /// The simulated earphone and fixture (no hardware).
+    Simulated,
+    /// A sound card (needs a station configuration; not in this build yet).
+    Soundcard,
+}
+
+/// Arguments of `run`.
+#[derive(Debug, clap::Args)]
+pub struct Args {
+    /// The test plan.
+    #[arg(value_name = "PLAN")]
+    pub plan: PathBuf,
+    /// Serial number of the unit (as scanned).
+    #[arg(long, value_name = "SN")]
+    pub serial: String,
+    /// Rig to use; defaults to the plan's `rig`.
+    #[arg(long, value_enum)]
+    pub rig: Option<RigChoice>,
+    /// Store directory (created if missing).
+    #[arg(long, value_name = "DIR", default_value = "tragus-data")]
+    pub store: PathBuf,
+    /// Station name recorded with the unit.
+    #[arg(long, default_value = "bench-1")]
+    pub station: String,
+    /// Operator recorded with the unit (defaults to $USER).
+    #[arg(long)]
+    pub operator: Option<String>,
+    /// Simulated rig: which unit to simulate: `nominal` or a defect
+    /// (reversed-polarity, dead-channel, low-sensitivity, resonance-shift, clipping,
+    /// heavy-distortion).
+    #[arg(long, default_value = "nominal", value_name = "UNIT")]
+    pub sim_unit: String,
+    /// Simulated rig: the plan channel that carries the defect (default: the first).
+    #[arg(long, value_name = "CHANNEL")]
+    pub sim_channel: Option<String>,
+    /// Write the result JSON here (`-` for stdout: human output then goes nowhere).
+    #[arg(long, value_name = "OUT")]
+    pub json: Option<JsonOut>,
+}
+
+fn parse_sim_unit(s: &str) -> Result<UnitKind, Exit> {
+    if s == "nominal" {
+        return Ok(UnitKind::Nominal);
+    }
+    s.parse::<Defect>().map(UnitKind::Defect).map_err(|_| {
+        let names: Vec<String> = Defect::ALL.iter().map(|d| d.to_string()).collect();
+        Exit::bad_input(anyhow::anyhow!(
+            "--sim-unit: expected `nominal` or one of {}, found `{s}`",
+            names.join(", ")
+        ))
+    })
+}
+
+pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
+    let mut prep = pipeline::prepare(&args.plan)?;
+    let choice = args.rig.unwrap_or(match prep.plan.rig {
+        RigSpec::Simulated { .. } => RigChoice::Simulated,
+        RigSpec::Soundcard => RigChoice::Soundcard,
+    });
+    if args.serial.trim().is_empty() {
+        return Err(Exit::bad_input(anyhow::anyhow!(
+            "--serial: expected a serial number, found an empty string"
+        )));
+    }
+    let (mut rig, sim_label): (Box<dyn Rig>, Option<String>) = match choice {
+        RigChoice::Simulated => {
+            let kind = parse_sim_unit(&args.sim_unit)?;
+            let defect_channel = match &args.sim_channel {
+                None => 0,
+                Some(name) => prep.plan.channel_index(name).ok_or_else(|| {
+                    Exit::bad_input(anyhow::anyhow!(
+                        "--sim-channel: expected one of the plan's channels ({}), found `{name}`",
+                        prep.plan
+                            .channels
+                            .iter()
+                            .map(|c| c.name.as_str())
+                            .collect::<Vec<_>>()
+                            .join(", ")
+                    ))
+                })?,
+            };
+            let seed = match prep.plan.rig {
+                RigSpec::Simulated { seed } => seed,
+                RigSpec::Soundcard => 1,
+            };
+            let routes = prep
+                .plan
+                .channels
+                .iter()
+                .map(|c| (c.output, c.input))
+                .collect();
+            let unit = SimUnit {
+                serial: args.serial.clone(),
+                kind,
+                defect_channel,
+            };
+            (
+                Box::new(SimulatedRig::new(routes, seed, unit)),
+                Some(args.sim_unit.clone()),
+            )
+        }
+        RigChoice::Soundcard => {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "--rig soundcard: the sound-card rig is not in this build yet; use \
+                 `--rig simulated`, or record the stimulus yourself and use `tragus analyze`"
+            )))
+        }
+    };
+    tracing::info!(serial = %args.serial, rig = rig.name(), "playing the stimulus");
+    let capture = rig
+        .play_and_capture(&prep.stimulus, prep.plan.n_inputs())
+        .map_err(|e| match e {
+            RigError::BadInput { .. } => Exit::bad_input(e),
+            RigError::Fault(_) => Exit::retest(e),
+        })?;
+    let result = pipeline::judge_capture(&mut prep, &capture, &args.serial, rig.name(), sim_label)?;
+
+    // Record before reporting: a verdict the store does not hold was never given.
+    let result_json = serde_json::to_string(&result)
+        .context("cannot serialise the result")
+        .map_err(Exit::retest)?;
+    let wav = crate::wav::encode_wav_f32(capture.sample_rate_hz, &capture.channels)
+        .context("cannot encode the raw capture")
+        .map_err(Exit::retest)?;
+    let operator = args
+        .operator
+        .clone()
+        .or_else(|| std::env::var("USER").ok())
+        .unwrap_or_else(|| "unknown".into());
+    let record = NewRecord {
+        time_utc: result.time_utc.clone(),
+        serial: result.serial.clone(),
+        plan_id: result.plan.id.clone(),
+        plan_revision: result.plan.revision,
+        plan_sha256: result.plan.sha256.clone(),
+        software_version: result.tool.version.clone(),
+        station: args.station.clone(),
+        operator,
+        rig: result.rig.clone(),
+        verdict: result.verdict,
+        result_json,
+    };
+    let stored = Store::open(&args.store)
+        .and_then(|mut s| s.append(&record, &wav))
+        .with_context(|| {
+            format!(
+                "{}: the unit was NOT recorded; test it again",
+                args.store.display()
+            )
+        })
+        .map_err(Exit::retest)?;
+    tracing::info!(record = stored.id, hash = %stored.record_hash, "recorded");
+
+    if let Some(j) = &args.json {
+        j.write(&result).map_err(Exit::bad_input)?;
+    }
+    if !args.json.as_ref().is_some_and(JsonOut::is_stdout) {
+        print!("{}", crate::report::render_human(&result, out.color));
+        println!(
+            "recorded as #{} in {} (capture {})",
+            stored.id,
+            args.store.display(),
+            &stored.capture_sha256[..16.min(stored.capture_sha256.len())]
+        );
+    }
+    Ok(result.verdict.exit_code())
+}

@@ -1,1 +1,0 @@
-//! The simulated rig: a behavioural earphone model and a seeded population.

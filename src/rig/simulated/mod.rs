@@ -1,0 +1,404 @@
+//! The simulated rig: a behavioural earphone model and a seeded population.
+//!
+//! Stands in for a sound card and a fixture: [`SimulatedRig::play_and_capture`] drives each
+//! routed output through a device under test ([`Dut`]), then adds what the station's input
+//! converter adds — a latency, converter noise and clipping at ±1.0 full scale. The device
+//! is behind the [`Dut`] trait so that a physical earphone model can replace the
+//! behavioural one ([`BehaviouralEarphone`]) without touching the rig.
+//!
+//! Population: every serial number is one unit. Its manufacturing spread is drawn from a
+//! ChaCha20 generator seeded by (population seed, serial, channel), so the same serial is
+//! always the same unit; a named [`Defect`] can be put on one channel. The converter noise
+//! is seeded as well, from (seed, serial, run number): a fresh rig's first capture of a unit
+//! is always the same, and repeated runs on one rig differ as real repeats would.
+//!
+//! Every number in this module and its children is an invented demo value for the
+//! invented "Ember E2" earbud; none is measured or taken from any product.
+
+pub mod biquad;
+pub mod earphone;
+pub mod oversample;
+
+pub use biquad::Biquad;
+pub use earphone::{BehaviouralEarphone, EarphoneParams, PolynomialDut};
+pub use oversample::{Oversampler4, Polynomial};
+
+use super::{Capture, Rig, RigError};
+use crate::dsp::sweep::Stimulus;
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha20Rng;
+use rand_distr::StandardNormal;
+use sha2::{Digest, Sha256};
+use std::fmt;
+use std::str::FromStr;
+
+/// A device under test as the simulated rig sees it.
+///
+/// # For implementations
+/// `respond` maps the drive (full scale, as the output converter sends it) at
+/// `sample_rate_hz` to the acoustic output as the input converter sees it (full scale),
+/// before noise, latency and clipping, which the rig adds. Return exactly `drive.len()`
+/// samples, take the signal as zero before sample 0 (start from rest), be deterministic,
+/// and never panic on any drive signal.
+pub trait Dut: Send + Sync {
+    /// Drive (full scale) at `sample_rate_hz` → output as the input converter sees it
+    /// (full scale), before noise and latency.
+    fn respond(&self, drive: &[f64], sample_rate_hz: u32) -> Vec<f64>;
+}
+
+/// Default latency of the simulated converters, samples (an invented, typical-looking
+/// round trip).
+pub const DEFAULT_LATENCY_SAMPLES: usize = 96;
+/// Default converter noise, dBFS rms (Gaussian, white).
+pub const DEFAULT_NOISE_RMS_DBFS: f64 = -96.0;
+/// Half-width of the uniform gain spread of nominal units, dB.
+pub const GAIN_SPREAD_DB: f64 = 0.4;
+/// Half-width of the uniform spread of the main resonance frequency, fraction (±2 %).
+pub const RESONANCE_SPREAD: f64 = 0.02;
+/// Half-width of the uniform spread of a2 and a3, fraction (±10 %).
+pub const NONLINEARITY_SPREAD: f64 = 0.10;
+
+/// A named manufacturing defect of the simulated population (invented demo magnitudes; see
+/// [`EarphoneParams::with_defect`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Defect {
+    /// Drive inverted: the response has the opposite sign.
+    ReversedPolarity,
+    /// The earpiece makes no sound; only converter noise is captured.
+    DeadChannel,
+    /// Sensitivity 6 dB low.
+    LowSensitivity,
+    /// Main resonance moved down 25 %.
+    ResonanceShift,
+    /// 30 dB too loud, so the input converter clips.
+    Clipping,
+    /// Distortion about 10 % THD at the sweep level.
+    HeavyDistortion,
+}
+
+impl Defect {
+    /// Every defect, in a fixed order.
+    pub const ALL: [Defect; 6] = [
+        Defect::ReversedPolarity,
+        Defect::DeadChannel,
+        Defect::LowSensitivity,
+        Defect::ResonanceShift,
+        Defect::Clipping,
+        Defect::HeavyDistortion,
+    ];
+
+    /// The kebab-case name used on the command line and in records.
+    pub fn name(self) -> &'static str {
+        match self {
+            Defect::ReversedPolarity => "reversed-polarity",
+            Defect::DeadChannel => "dead-channel",
+            Defect::LowSensitivity => "low-sensitivity",
+            Defect::ResonanceShift => "resonance-shift",
+            Defect::Clipping => "clipping",
+            Defect::HeavyDistortion => "heavy-distortion",
+        }
+    }
+}
+
+impl fmt::Display for Defect {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+/// A unit kind or defect name that is not known.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("expected {expected}, found \"{found}\"{hint}")]
+pub struct UnknownUnitKind {
+    /// The list of accepted names.
+    pub expected: String,
+    /// The name given.
+    pub found: String,
+    /// ` (did you mean "…"?)` or empty.
+    pub hint: String,
+}
+
+fn unknown(found: &str, accepted: &[&str]) -> UnknownUnitKind {
+    let best = accepted
+        .iter()
+        .map(|a| (strsim::levenshtein(found, a), *a))
+        .min();
+    let hint = match best {
+        Some((d, a)) if d <= 3 => format!(" (did you mean \"{a}\"?)"),
+        _ => String::new(),
+    };
+    UnknownUnitKind {
+        expected: format!("one of {}", accepted.join(", ")),
+        found: found.to_string(),
+        hint,
+    }
+}
+
+impl FromStr for Defect {
+    type Err = UnknownUnitKind;
+
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        Defect::ALL
+            .into_iter()
+            .find(|d| d.name() == s)
+            .ok_or_else(|| {
+                let names: Vec<&str> = Defect::ALL.iter().map(|d| d.name()).collect();
+                unknown(s, &names)
+            })
+    }
+}
+
+/// What kind of unit the rig simulates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum UnitKind {
+    /// A good unit (with manufacturing spread).
+    Nominal,
+    /// A unit with one defect on [`SimUnit::defect_channel`].
+    Defect(Defect),
+}
+
+impl fmt::Display for UnitKind {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            UnitKind::Nominal => f.write_str("nominal"),
+            UnitKind::Defect(d) => d.fmt(f),
+        }
+    }
+}
+
+impl FromStr for UnitKind {
+    type Err = UnknownUnitKind;
+
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        if s == "nominal" {
+            return Ok(UnitKind::Nominal);
+        }
+        Defect::from_str(s).map(UnitKind::Defect).map_err(|_| {
+            let mut names = vec!["nominal"];
+            names.extend(Defect::ALL.iter().map(|d| d.name()));
+            unknown(s, &names)
+        })
+    }
+}
+
+/// One member of the simulated population.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct SimUnit {
+    /// Serial number (`E2-000123` in the demo); picks the unit's spread.
+    pub serial: String,
+    /// Nominal, or which defect.
+    pub kind: UnitKind,
+    /// Plan channel index (index into the rig's routes) that carries the defect.
+    pub defect_channel: usize,
+}
+
+/// A ChaCha20 generator seeded by SHA-256 over a purpose tag and the given parts, so that
+/// seeds are stable across platforms and releases (unlike `std`'s hashers).
+fn seeded_rng(purpose: &str, seed: u64, serial: &str, index: u64) -> ChaCha20Rng {
+    let mut h = Sha256::new();
+    h.update(b"tragus-simulated-rig/");
+    h.update(purpose.as_bytes());
+    h.update(seed.to_le_bytes());
+    h.update((serial.len() as u64).to_le_bytes());
+    h.update(serial.as_bytes());
+    h.update(index.to_le_bytes());
+    ChaCha20Rng::from_seed(h.finalize().into())
+}
+
+/// Parameters of channel `channel` of unit `serial` in population `seed`, before defects:
+/// nominal values with uniform spread (gain ±0.4 dB, main resonance ±2 %, a2 and a3 ±10 %).
+pub fn unit_params(seed: u64, serial: &str, channel: usize) -> EarphoneParams {
+    let mut rng = seeded_rng("unit", seed, serial, channel as u64);
+    let mut p = EarphoneParams::NOMINAL;
+    p.gain_db += rng.random_range(-GAIN_SPREAD_DB..=GAIN_SPREAD_DB);
+    p.resonance_hz *= 1.0 + rng.random_range(-RESONANCE_SPREAD..=RESONANCE_SPREAD);
+    p.nonlinearity.a2 *= 1.0 + rng.random_range(-NONLINEARITY_SPREAD..=NONLINEARITY_SPREAD);
+    p.nonlinearity.a3 *= 1.0 + rng.random_range(-NONLINEARITY_SPREAD..=NONLINEARITY_SPREAD);
+    p
+}
+
+/// The simulated rig: devices under test on routes, plus latency, noise and clipping.
+pub struct SimulatedRig {
+    /// (output channel, input channel) per plan channel.
+    routes: Vec<(usize, usize)>,
+    /// One device per route.
+    duts: Vec<Box<dyn Dut>>,
+    /// Behavioural parameters per route (empty when built from custom devices).
+    params: Vec<EarphoneParams>,
+    /// The simulated unit (None for custom devices).
+    unit: Option<SimUnit>,
+    seed: u64,
+    /// What seeds the noise besides `seed`: the serial, or a fixed tag.
+    noise_tag: String,
+    latency_samples: usize,
+    noise_rms_dbfs: Option<f64>,
+    n_runs: u64,
+}
+
+impl SimulatedRig {
+    /// A rig measuring `unit` of population `seed`: one [`BehaviouralEarphone`] per route
+    /// (output, input), each with its own spread; the defect, if any, on
+    /// `unit.defect_channel`. Latency 96 samples, noise −96 dBFS rms.
+    pub fn new(routes: Vec<(usize, usize)>, seed: u64, unit: SimUnit) -> Self {
+        let params: Vec<EarphoneParams> = (0..routes.len())
+            .map(|c| {
+                let p = unit_params(seed, &unit.serial, c);
+                match unit.kind {
+                    UnitKind::Defect(d) if c == unit.defect_channel => p.with_defect(d),
+                    _ => p,
+                }
+            })
+            .collect();
+        let duts = params
+            .iter()
+            .map(|p| Box::new(BehaviouralEarphone::new(*p)) as Box<dyn Dut>)
+            .collect();
+        SimulatedRig {
+            routes,
+            duts,
+            params,
+            noise_tag: unit.serial.clone(),
+            unit: Some(unit),
+            seed,
+            latency_samples: DEFAULT_LATENCY_SAMPLES,
+            noise_rms_dbfs: Some(DEFAULT_NOISE_RMS_DBFS),
+            n_runs: 0,
+        }
+    }
+
+    /// A rig around given devices, one per route (for tests of the analysis with a known
+    /// system). Same defaults: latency 96 samples, noise −96 dBFS rms seeded by `seed`.
+    ///
+    /// # Panics
+    /// When `duts` and `routes` differ in length (a programming error).
+    pub fn with_duts(routes: Vec<(usize, usize)>, duts: Vec<Box<dyn Dut>>, seed: u64) -> Self {
+        assert_eq!(routes.len(), duts.len(), "one device per route");
+        SimulatedRig {
+            routes,
+            duts,
+            params: Vec::new(),
+            unit: None,
+            seed,
+            noise_tag: "custom-devices".into(),
+            latency_samples: DEFAULT_LATENCY_SAMPLES,
+            noise_rms_dbfs: Some(DEFAULT_NOISE_RMS_DBFS),
+            n_runs: 0,
+        }
+    }
+
+    /// Set the latency, samples.
+    pub fn with_latency_samples(mut self, latency_samples: usize) -> Self {
+        self.latency_samples = latency_samples;
+        self
+    }
+
+    /// Set the converter noise, dBFS rms; `None` for none at all.
+    pub fn with_noise_rms_dbfs(mut self, noise_rms_dbfs: Option<f64>) -> Self {
+        self.noise_rms_dbfs = noise_rms_dbfs;
+        self
+    }
+
+    /// The latency, samples.
+    pub fn latency_samples(&self) -> usize {
+        self.latency_samples
+    }
+
+    /// The converter noise, dBFS rms (`None`: noiseless).
+    pub fn noise_rms_dbfs(&self) -> Option<f64> {
+        self.noise_rms_dbfs
+    }
+
+    /// The simulated unit, when the rig was built with [`SimulatedRig::new`].
+    pub fn unit(&self) -> Option<&SimUnit> {
+        self.unit.as_ref()
+    }
+
+    /// The behavioural parameters per route (spread and defect applied); empty for a rig
+    /// built with [`SimulatedRig::with_duts`].
+    pub fn earphone_params(&self) -> &[EarphoneParams] {
+        &self.params
+    }
+
+    fn bad(message: String) -> RigError {
+        RigError::BadInput {
+            path: "simulated rig".into(),
+            message,
+        }
+    }
+}
+
+impl Rig for SimulatedRig {
+    fn name(&self) -> &str {
+        "simulated"
+    }
+
+    fn play_and_capture(
+        &mut self,
+        stimulus: &Stimulus,
+        n_inputs: usize,
+    ) -> Result<Capture, RigError> {
+        if let Some(unit) = &self.unit {
+            if matches!(unit.kind, UnitKind::Defect(_)) && unit.defect_channel >= self.routes.len()
+            {
+                return Err(Self::bad(format!(
+                    "expected a defect channel below {} (the plan's channel count), found {}",
+                    self.routes.len(),
+                    unit.defect_channel
+                )));
+            }
+        }
+        let n_outputs = stimulus.channels.len();
+        if let Some(&(o, _)) = self.routes.iter().find(|(o, _)| *o >= n_outputs) {
+            return Err(Self::bad(format!(
+                "expected output channels below {n_outputs} (the stimulus has {n_outputs}), \
+                 found a route from output {o}"
+            )));
+        }
+        let fs = stimulus.sample_rate_hz;
+        let n = stimulus.n_samples();
+        let n_channels = self
+            .routes
+            .iter()
+            .map(|&(_, i)| i + 1)
+            .max()
+            .unwrap_or(0)
+            .max(n_inputs);
+        let mut acoustic = vec![vec![0.0f64; n]; n_channels];
+        for (&(o, i), dut) in self.routes.iter().zip(&self.duts) {
+            let drive: Vec<f64> = stimulus.channels[o].iter().map(|&v| f64::from(v)).collect();
+            let out = dut.respond(&drive, fs);
+            // Latency: capture sample k holds the device's output at k − latency.
+            for (k, v) in out
+                .iter()
+                .take(n.saturating_sub(self.latency_samples))
+                .enumerate()
+            {
+                acoustic[i][k + self.latency_samples] += v;
+            }
+        }
+        let mut noise_rng = seeded_rng("noise", self.seed, &self.noise_tag, self.n_runs);
+        self.n_runs += 1;
+        let sigma = self.noise_rms_dbfs.map(|db| 10f64.powf(db / 20.0));
+        let channels = acoustic
+            .into_iter()
+            .map(|ch| {
+                ch.into_iter()
+                    .map(|v| {
+                        let noise = match sigma {
+                            Some(s) => s * noise_rng.sample::<f64, _>(StandardNormal),
+                            None => 0.0,
+                        };
+                        // The input converter clips at full scale.
+                        (v + noise).clamp(-1.0, 1.0) as f32
+                    })
+                    .collect()
+            })
+            .collect();
+        Ok(Capture {
+            sample_rate_hz: fs,
+            channels,
+            xruns: 0,
+            faults: Vec::new(),
+        })
+    }
+}

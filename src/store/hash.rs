@@ -1,0 +1,90 @@
+//! The hash chain: the canonical byte form of a record and its SHA-256.
+//!
+//! The form is specified in the [store module documentation](super#canonical-byte-form);
+//! this file is its only implementation, and `tests/reference/store_record_hash.py`
+//! recomputes it independently with Python's `hashlib`.
+
+use sha2::{Digest, Sha256};
+
+/// `prev_hash` of the first record of a store: 64 ASCII zeros.
+pub const GENESIS_PREV_HASH: &str =
+    "0000000000000000000000000000000000000000000000000000000000000000";
+
+/// First line of every record's canonical form; the `v1` changes only with the form itself.
+pub const CANONICAL_HEADER: &[u8] = b"tragus-record-v1\n";
+
+/// SHA-256 (FIPS 180-4) of `bytes` as 64 lowercase hex digits.
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    hex::encode(Sha256::digest(bytes))
+}
+
+/// True when `s` is 64 lowercase hex digits, the only spelling of a SHA-256 the store uses.
+pub fn is_sha256_hex(s: &str) -> bool {
+    s.len() == 64
+        && s.bytes()
+            .all(|b| b.is_ascii_digit() || (b'a'..=b'f').contains(&b))
+}
+
+/// Every hashed field of one record, borrowed, as text and integers exactly as stored.
+///
+/// Verification builds this from raw database values (which an attacker may have set to
+/// anything), so the verdict is plain text here, not a [`crate::Verdict`].
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct CanonicalFields<'a> {
+    pub id: i64,
+    pub time_utc: &'a str,
+    pub serial: &'a str,
+    pub plan_id: &'a str,
+    pub plan_revision: i64,
+    pub plan_sha256: &'a str,
+    pub software_version: &'a str,
+    pub station: &'a str,
+    pub operator: &'a str,
+    pub rig: &'a str,
+    pub verdict: &'a str,
+    pub result_json: &'a str,
+    pub capture_sha256: &'a str,
+    pub prev_hash: &'a str,
+}
+
+impl CanonicalFields<'_> {
+    /// The canonical bytes: header, then `NAME ":" LEN ":" VALUE "\n"` per field in order.
+    pub fn bytes(&self) -> Vec<u8> {
+        let id = self.id.to_string();
+        let plan_revision = self.plan_revision.to_string();
+        // The order is part of the format (module doc); never reorder.
+        let fields: [(&str, &str); 14] = [
+            ("id", &id),
+            ("time_utc", self.time_utc),
+            ("serial", self.serial),
+            ("plan_id", self.plan_id),
+            ("plan_revision", &plan_revision),
+            ("plan_sha256", self.plan_sha256),
+            ("software_version", self.software_version),
+            ("station", self.station),
+            ("operator", self.operator),
+            ("rig", self.rig),
+            ("verdict", self.verdict),
+            ("result_json", self.result_json),
+            ("capture_sha256", self.capture_sha256),
+            ("prev_hash", self.prev_hash),
+        ];
+        let len: usize = fields.iter().map(|(n, v)| n.len() + v.len() + 24).sum();
+        let mut out = Vec::with_capacity(CANONICAL_HEADER.len() + len);
+        out.extend_from_slice(CANONICAL_HEADER);
+        for (name, value) in fields {
+            out.extend_from_slice(name.as_bytes());
+            out.push(b':');
+            out.extend_from_slice(value.len().to_string().as_bytes());
+            out.push(b':');
+            out.extend_from_slice(value.as_bytes());
+            out.push(b'\n');
+        }
+        out
+    }
+
+    /// `record_hash`: SHA-256 of the canonical bytes, lowercase hex.
+    pub fn hash(&self) -> String {
+        sha256_hex(&self.bytes())
+    }
+}

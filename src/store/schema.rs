@@ -1,0 +1,242 @@
+//! The database schema, how a file is recognised as a tragus store, and the migration path
+//! from one schema version to the next.
+//!
+//! The schema version lives in `PRAGMA user_version`; `PRAGMA application_id` marks the file
+//! as a tragus store so another program's database is never migrated by mistake.
+
+use std::path::Path;
+use std::time::Duration;
+
+use rusqlite::{Connection, ErrorCode, TransactionBehavior};
+
+use super::error::StoreError;
+
+/// `PRAGMA application_id` of a tragus store: the ASCII bytes "TRGS" as a big-endian i32.
+pub(crate) const APPLICATION_ID: i64 = 0x5452_4753;
+
+/// Schema version this build writes and reads.
+pub const SCHEMA_VERSION: i64 = 1;
+
+/// How long an append waits for another process's write to finish before giving up with
+/// [`StoreError::Locked`]. An append holds the lock for one fsync'd transaction
+/// (milliseconds), so 10 s is only exceeded when something is really stuck.
+pub(crate) const BUSY_TIMEOUT: Duration = Duration::from_secs(10);
+
+/// The triggers that make records append-only and the chain linear, as `(name, SQL)`.
+///
+/// Verification checks that each exists with exactly this text. They belong to schema
+/// version 1; a later version that changes one must write its new text into its own
+/// migration and update this list to the newest text.
+pub(crate) const TRIGGERS: [(&str, &str); 3] = [
+    (
+        "records_no_update",
+        "CREATE TRIGGER records_no_update BEFORE UPDATE ON records
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store is append-only: records cannot be updated');
+END",
+    ),
+    (
+        "records_no_delete",
+        "CREATE TRIGGER records_no_delete BEFORE DELETE ON records
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store is append-only: records cannot be deleted');
+END",
+    ),
+    // Also stops INSERT OR REPLACE over an existing id, which deletes a row without firing
+    // the delete trigger.
+    (
+        "records_chain_linear",
+        "CREATE TRIGGER records_chain_linear BEFORE INSERT ON records
+WHEN NEW.id IS NOT (SELECT COALESCE(MAX(id), 0) + 1 FROM records)
+  OR NEW.prev_hash IS NOT COALESCE(
+        (SELECT record_hash FROM records ORDER BY id DESC LIMIT 1),
+        '0000000000000000000000000000000000000000000000000000000000000000')
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store chain: a record must follow the last record');
+END",
+    ),
+];
+
+/// Migrations, index `i` takes the schema from version `i` to `i + 1`. Add a new entry for a
+/// new version; never edit an old one, stores in the field have already run it.
+const MIGRATIONS: [&str; SCHEMA_VERSION as usize] = [
+    // 0 → 1: the first schema.
+    r#"
+CREATE TABLE records (
+    -- Assigned by the store as the previous id + 1; hashed into the record.
+    id               INTEGER PRIMARY KEY,
+    time_utc         TEXT    NOT NULL,
+    -- Derived from time_utc for the time filter; not hashed, verification recomputes it.
+    time_unix_ns     INTEGER NOT NULL,
+    serial           TEXT    NOT NULL,
+    plan_id          TEXT    NOT NULL,
+    plan_revision    INTEGER NOT NULL,
+    plan_sha256      TEXT    NOT NULL,
+    software_version TEXT    NOT NULL,
+    station          TEXT    NOT NULL,
+    operator         TEXT    NOT NULL,
+    rig              TEXT    NOT NULL,
+    verdict          TEXT    NOT NULL CHECK (verdict IN ('pass', 'fail', 'retest')),
+    result_json      TEXT    NOT NULL,
+    capture_sha256   TEXT    NOT NULL,
+    prev_hash        TEXT    NOT NULL,
+    record_hash      TEXT    NOT NULL,
+    -- Reserved for the station key's signature over record_hash; NULL until keys exist.
+    signature        BLOB
+) STRICT;
+
+CREATE INDEX records_by_serial ON records (serial);
+CREATE INDEX records_by_plan   ON records (plan_id);
+CREATE INDEX records_by_time   ON records (time_unix_ns);
+"#,
+];
+
+/// Map a SQLite error on `path` to the store error that says what to do.
+pub(crate) fn sqlite_err(path: &Path, e: rusqlite::Error) -> StoreError {
+    match e.sqlite_error_code() {
+        Some(ErrorCode::DatabaseBusy) | Some(ErrorCode::DatabaseLocked) => StoreError::Locked {
+            path: path.to_owned(),
+        },
+        Some(ErrorCode::NotADatabase) => StoreError::NotAStore {
+            path: path.to_owned(),
+            detail: "the file is not a SQLite database".into(),
+        },
+        Some(ErrorCode::ReadOnly) => StoreError::Io {
+            path: path.to_owned(),
+            action: "write the database",
+            source: std::io::Error::new(
+                std::io::ErrorKind::PermissionDenied,
+                "the database file or its directory is read-only",
+            ),
+        },
+        Some(ErrorCode::DiskFull) => StoreError::Io {
+            path: path.to_owned(),
+            action: "write the database",
+            source: std::io::Error::other("the disk is full"),
+        },
+        _ => StoreError::Sqlite {
+            path: path.to_owned(),
+            source: e,
+        },
+    }
+}
+
+/// Open (or create) the database at `path`, set the connection up and bring the schema to
+/// [`SCHEMA_VERSION`].
+pub(crate) fn open_database(path: &Path) -> Result<Connection, StoreError> {
+    let err = |e| sqlite_err(path, e);
+    let mut conn = Connection::open(path).map_err(|e| match e.sqlite_error_code() {
+        Some(ErrorCode::CannotOpen) => StoreError::Io {
+            path: path.to_owned(),
+            action: "open the database",
+            source: std::io::Error::other(e),
+        },
+        _ => sqlite_err(path, e),
+    })?;
+    conn.busy_timeout(BUSY_TIMEOUT).map_err(err)?;
+    // A database from elsewhere must not run our connection's functions from its schema.
+    conn.pragma_update(None, "trusted_schema", false)
+        .map_err(err)?;
+
+    // The first read of the header is where a non-SQLite file shows itself.
+    let app_id: i64 = conn
+        .pragma_query_value(None, "application_id", |r| r.get(0))
+        .map_err(err)?;
+    let version: i64 = conn
+        .pragma_query_value(None, "user_version", |r| r.get(0))
+        .map_err(err)?;
+    check_identity(path, &conn, app_id, version)?;
+
+    let mode: String = conn
+        .pragma_update_and_check(None, "journal_mode", "WAL", |r| r.get(0))
+        .map_err(err)?;
+    if !mode.eq_ignore_ascii_case("wal") {
+        return Err(StoreError::Io {
+            path: path.to_owned(),
+            action: "switch the database to write-ahead logging",
+            source: std::io::Error::other(format!(
+                "journal mode stayed {mode:?}; put the store on a local disk"
+            )),
+        });
+    }
+    // FULL: a commit is on the disk when append returns, not only in the OS cache.
+    conn.pragma_update(None, "synchronous", "FULL")
+        .map_err(err)?;
+
+    if version < SCHEMA_VERSION {
+        migrate(path, &mut conn)?;
+    }
+    Ok(conn)
+}
+
+/// Refuse files that are some other program's database or a newer tragus's store.
+fn check_identity(
+    path: &Path,
+    conn: &Connection,
+    app_id: i64,
+    version: i64,
+) -> Result<(), StoreError> {
+    if app_id == APPLICATION_ID {
+        if version > SCHEMA_VERSION {
+            return Err(StoreError::NewerSchema {
+                path: path.to_owned(),
+                found: version,
+                supported: SCHEMA_VERSION,
+            });
+        }
+        return Ok(());
+    }
+    if app_id != 0 {
+        return Err(StoreError::NotAStore {
+            path: path.to_owned(),
+            detail: format!(
+                "its application id is {app_id:#010x}, a tragus store's is {APPLICATION_ID:#010x}"
+            ),
+        });
+    }
+    let n_objects: i64 = conn
+        .query_row("SELECT COUNT(*) FROM sqlite_schema", [], |r| r.get(0))
+        .map_err(|e| sqlite_err(path, e))?;
+    if n_objects > 0 || version != 0 {
+        return Err(StoreError::NotAStore {
+            path: path.to_owned(),
+            detail: format!(
+                "it is a SQLite database with {n_objects} schema objects but no tragus mark"
+            ),
+        });
+    }
+    Ok(())
+}
+
+/// Run the migrations from the file's version up to [`SCHEMA_VERSION`], each in its own
+/// immediate transaction so two processes opening a new store at once do not both run it.
+fn migrate(path: &Path, conn: &mut Connection) -> Result<(), StoreError> {
+    let err = |e| sqlite_err(path, e);
+    loop {
+        let tx = conn
+            .transaction_with_behavior(TransactionBehavior::Immediate)
+            .map_err(err)?;
+        // Re-read under the write lock: another process may have migrated meanwhile.
+        let version: i64 = tx
+            .pragma_query_value(None, "user_version", |r| r.get(0))
+            .map_err(err)?;
+        if version >= SCHEMA_VERSION {
+            return Ok(());
+        }
+        let step = usize::try_from(version).map_err(|_| StoreError::NotAStore {
+            path: path.to_owned(),
+            detail: format!("its schema version is {version}"),
+        })?;
+        tx.execute_batch(MIGRATIONS[step]).map_err(err)?;
+        if step == 0 {
+            for (_, sql) in TRIGGERS {
+                tx.execute_batch(sql).map_err(err)?;
+            }
+        }
+        tx.pragma_update(None, "application_id", APPLICATION_ID)
+            .map_err(err)?;
+        tx.pragma_update(None, "user_version", version + 1)
+            .map_err(err)?;
+        tx.commit().map_err(err)?;
+    }
+}

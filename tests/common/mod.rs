@@ -1,0 +1,114 @@
+//! Helpers shared by the end-to-end tests: run the real binary, read and write WAVs.
+#![allow(dead_code)]
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+/// Path of the built `tragus` binary.
+pub fn tragus() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_tragus"))
+}
+
+/// Repository root.
+pub fn root() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+/// Read a float WAV into channels (hound, independent of tragus' own reader).
+pub fn read_f32_wav(path: &Path) -> (u32, Vec<Vec<f32>>) {
+    let mut r = hound::WavReader::open(path).expect("wav");
+    let spec = r.spec();
+    let n = spec.channels as usize;
+    let samples: Vec<f32> = r.samples::<f32>().map(|s| s.expect("sample")).collect();
+    let mut ch = vec![Vec::with_capacity(samples.len() / n); n];
+    for (i, s) in samples.into_iter().enumerate() {
+        ch[i % n].push(s);
+    }
+    (spec.sample_rate, ch)
+}
+
+/// Write channels as a 32-bit float WAV (hound).
+pub fn write_f32_wav(path: &Path, rate: u32, ch: &[Vec<f32>]) {
+    let spec = hound::WavSpec {
+        channels: ch.len() as u16,
+        sample_rate: rate,
+        bits_per_sample: 32,
+        sample_format: hound::SampleFormat::Float,
+    };
+    let mut w = hound::WavWriter::create(path, spec).expect("create");
+    for i in 0..ch[0].len() {
+        for c in ch {
+            w.write_sample(c[i]).expect("write");
+        }
+    }
+    w.finalize().expect("finalize");
+}
+
+/// Write the stimulus of `plan` with the real binary and read it back.
+pub fn stimulus_of(plan: &Path, dir: &Path) -> (u32, Vec<Vec<f32>>) {
+    let out = dir.join("stimulus.wav");
+    let st = tragus()
+        .arg("stimulus")
+        .arg(plan)
+        .arg("--out")
+        .arg(&out)
+        .status()
+        .expect("run tragus");
+    assert!(st.success(), "tragus stimulus failed");
+    read_f32_wav(&out)
+}
+
+/// Analyse a capture with the real binary; returns (exit code, result JSON).
+pub fn analyze(plan: &Path, capture: &Path) -> (i32, serde_json::Value) {
+    let out = tragus()
+        .arg("analyze")
+        .arg(plan)
+        .arg("--capture")
+        .arg(capture)
+        .arg("--json")
+        .arg("-")
+        .output()
+        .expect("run tragus");
+    let code = out.status.code().unwrap_or(-1);
+    let json = serde_json::from_slice(&out.stdout).unwrap_or_else(|e| {
+        panic!(
+            "analyze printed no JSON ({e}); stderr: {}",
+            String::from_utf8_lossy(&out.stderr)
+        )
+    });
+    (code, json)
+}
+
+/// Direct-form-I biquad in f64 (b0,b1,b2,a1,a2 with a0 = 1).
+pub fn biquad(c: [f64; 5], x: &[f32]) -> Vec<f32> {
+    let (mut x1, mut x2, mut y1, mut y2) = (0.0, 0.0, 0.0, 0.0);
+    x.iter()
+        .map(|&v| {
+            let v = f64::from(v);
+            let y = c[0] * v + c[1] * x1 + c[2] * x2 - c[3] * y1 - c[4] * y2;
+            x2 = x1;
+            x1 = v;
+            y2 = y1;
+            y1 = y;
+            y as f32
+        })
+        .collect()
+}
+
+/// Seeded Gaussian noise (Box–Muller over ChaCha8) with the given rms.
+pub fn gaussian_noise(n: usize, rms: f64, seed: u64) -> Vec<f64> {
+    use rand::{Rng, SeedableRng};
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    (0..n)
+        .map(|_| {
+            let u1: f64 = rng.random::<f64>().max(1e-300);
+            let u2: f64 = rng.random::<f64>();
+            rms * (-2.0 * u1.ln()).sqrt() * (2.0 * std::f64::consts::PI * u2).cos()
+        })
+        .collect()
+}
+
+/// RMS of a slice.
+pub fn rms(x: &[f32]) -> f64 {
+    (x.iter().map(|&v| f64::from(v).powi(2)).sum::<f64>() / x.len().max(1) as f64).sqrt()
+}

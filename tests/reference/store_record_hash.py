@@ -1,0 +1,78 @@
+#!/usr/bin/env python3
+"""Independent recomputation of the tragus store's record hash chain.
+
+Implements the canonical byte form exactly as the `tragus::store` module documentation
+states it ("Canonical byte form"), with nothing but Python's standard library
+(hashlib.sha256, FIPS 180-4), and writes store_record_hash.json beside this script.
+tests/store_reference.rs appends the same records to a fresh store and checks that the
+store computes the same capture hashes, prev_hash values and record hashes.
+
+Run: python3 tests/reference/store_record_hash.py   (deterministic; no arguments)
+"""
+import hashlib
+import json
+import os
+import struct
+
+GENESIS = "0" * 64
+ORDER = ["id", "time_utc", "serial", "plan_id", "plan_revision", "plan_sha256",
+         "software_version", "station", "operator", "rig", "verdict", "result_json",
+         "capture_sha256", "prev_hash"]
+
+
+def wav(n_channels, rate_hz, samples):
+    """A 16-bit PCM WAV file (RIFF header, fmt chunk, data chunk)."""
+    data = b"".join(struct.pack("<h", s) for s in samples)
+    block = 2 * n_channels
+    fmt = struct.pack("<HHIIHH", 1, n_channels, rate_hz, rate_hz * block, block, 16)
+    body = b"WAVE" + b"fmt " + struct.pack("<I", len(fmt)) + fmt \
+        + b"data" + struct.pack("<I", len(data)) + data
+    return b"RIFF" + struct.pack("<I", len(body)) + body
+
+
+def canonical(rec):
+    out = b"tragus-record-v1\n"
+    for name in ORDER:
+        value = str(rec[name]).encode("utf-8")
+        out += name.encode("ascii") + b":" + str(len(value)).encode("ascii") + b":" + value + b"\n"
+    return out
+
+
+records = [
+    dict(time_utc="2025-03-14T09:26:53.589Z", serial="E2-000123", plan_id="demo-earbud",
+         plan_revision=3, plan_sha256="a" * 64, software_version="0.1.0",
+         station="larkspur-line3-st1", operator="j.okafor", rig="simulated",
+         verdict="pass", result_json='{"verdict":"pass"}',
+         capture=wav(1, 48000, [])),
+    # Multi-byte UTF-8, colons and line feeds inside values: LEN counts bytes.
+    dict(time_utc="2025-03-14T09:27:41Z", serial="E2-000124", plan_id="demo-earbud",
+         plan_revision=3, plan_sha256="a" * 64, software_version="0.1.0",
+         station="larkspur-line3-st1", operator="Zoë Ndlovu", rig="simulated",
+         verdict="fail",
+         result_json='{\n  "verdict": "fail",\n  "note": "Größe: 5"\n}',
+         capture=wav(2, 48000, [0, 1000, -1000, 32767])),
+]
+
+out = []
+prev = GENESIS
+for i, rec in enumerate(records, start=1):
+    rec = dict(rec)
+    capture = rec.pop("capture")
+    rec["id"] = i
+    rec["capture_sha256"] = hashlib.sha256(capture).hexdigest()
+    rec["prev_hash"] = prev
+    canon = canonical(rec)
+    rec["record_hash"] = hashlib.sha256(canon).hexdigest()
+    rec["capture_hex"] = capture.hex()
+    rec["canonical"] = canon.decode("utf-8")
+    prev = rec["record_hash"]
+    out.append(rec)
+
+path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "store_record_hash.json")
+with open(path, "w", encoding="utf-8") as f:
+    json.dump({"made_by": "tests/reference/store_record_hash.py", "records": out}, f,
+              indent=1, ensure_ascii=False)
+    f.write("\n")
+print(out[0]["canonical"])
+for r in out:
+    print(r["id"], r["capture_sha256"], r["record_hash"])
