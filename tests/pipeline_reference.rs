@@ -85,3 +85,28 @@ fn butterworth_highpass_response_within_two_hundredths_db() {
     let (worst, at) = worst_error_db("butter2_hp_100hz", 12);
     assert!(worst < 0.02, "worst error {worst:.4} dB at {at:.0} Hz");
 }
+
+// IEC 61260-1:2014 midbands computed by tests/reference/make_filters.py from the standard's
+// formula (odd b: f_r·G^(x/b); even b: f_r·G^((2x+1)/(2b))), against ours.
+#[test]
+fn band_midbands_match_the_standard_formula_from_the_reference_script() {
+    let text = std::fs::read_to_string(root().join("tests/reference/bands.csv")).unwrap();
+    let mut n = 0;
+    for line in text.lines().skip(1).filter(|l| !l.trim().is_empty()) {
+        let f: Vec<&str> = line.split(',').collect();
+        let b: u32 = f[0].parse().unwrap();
+        let x: i32 = f[1].parse().unwrap();
+        let (fm, lo, hi): (f64, f64, f64) = (
+            f[2].parse().unwrap(),
+            f[3].parse().unwrap(),
+            f[4].parse().unwrap(),
+        );
+        let got = tragus::dsp::bands::midband_hz(x, b);
+        let (glo, ghi) = tragus::dsp::bands::band_edges_hz(got, b);
+        // Both sides evaluate the same closed form in f64: agreement to rounding (1e-12).
+        assert!((got / fm - 1.0).abs() < 1e-12, "b={b} x={x}: {got} vs {fm}");
+        assert!((glo / lo - 1.0).abs() < 1e-12 && (ghi / hi - 1.0).abs() < 1e-12);
+        n += 1;
+    }
+    assert_eq!(n, 272, "31 third-octave and 241 1/24-octave bands");
+}

@@ -48,6 +48,10 @@ pub const CLIP_THRESHOLD: f32 = 32_767.0 / 32_768.0;
 /// earphone's response at test levels, well above 24-bit converter noise).
 pub const NO_SIGNAL_DBFS: f64 = -90.0;
 
+/// Below this SNR the sweep interval holds nothing but the noise of the silence: no signal
+/// (a dead channel reads ≈ 0 dB), dB.
+pub const NO_SIGNAL_SNR_DB: f64 = 6.0;
+
 /// SNR is capped here (digitally silent captures have no measurable noise), dB.
 pub const SNR_CAP_DB: f64 = 150.0;
 
@@ -701,7 +705,7 @@ impl Analyzer {
         } else {
             0.0
         };
-        if peak_dbfs < NO_SIGNAL_DBFS {
+        if peak_dbfs < NO_SIGNAL_DBFS || snr_db < NO_SIGNAL_SNR_DB {
             reasons.push(RetestReason::NoSignal { peak_dbfs });
         } else if snr_db < self.min_snr_db {
             reasons.push(RetestReason::LowSnr {

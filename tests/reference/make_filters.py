@@ -94,7 +94,8 @@ def tables():
     for name, b, a in filt:
         t_filters.append([name, b[0], b[1], b[2], a[1], a[2]])
 
-    freqs = np.array([fm for _, fm, _, _ in bands(24)])
+    # The analysis grid: 1/24-octave midbands that lie inside the sweep band itself.
+    freqs = np.array([fm for _, fm, _, _ in bands(24) if BAND_LOW_HZ <= fm <= BAND_HIGH_HZ])
     t_resp = [["name", "freq_hz", "mag_db", "phase_deg"]]
     for name, b, a in filt:
         w, h = scipy.signal.freqz(b, a, worN=freqs, fs=FS_HZ)
