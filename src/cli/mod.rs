@@ -31,7 +31,13 @@ pub const EXIT_RETEST: i32 = 3;
 ///
 /// Exit codes: 0 pass, 1 fail, 2 bad input, 3 retest.
 #[derive(Debug, Parser)]
-#[command(name = "tragus", version, about, long_about = None)]
+#[command(
+    name = "tragus",
+    version,
+    about,
+    long_about = None,
+    after_help = "Exit codes: 0 pass, 1 fail, 2 bad input, 3 retest (test the unit again)."
+)]
 pub struct Cli {
     /// More log output on stderr (-v info, -vv debug, -vvv trace).
     #[arg(short, long, action = clap::ArgAction::Count, global = true)]
