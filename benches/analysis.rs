@@ -40,6 +40,15 @@ fn bench_analysis(c: &mut Criterion) {
             black_box(tragus::checks::judge(&plan, &m))
         })
     });
+    let measured = analyzer
+        .analyze(&capture, &plan.channels)
+        .expect("analysis");
+    c.bench_function("analyze only (2 ch)", |b| {
+        b.iter(|| black_box(analyzer.analyze(black_box(&capture), &plan.channels)))
+    });
+    c.bench_function("judge only (demo check set)", |b| {
+        b.iter(|| black_box(tragus::checks::judge(&plan, black_box(&measured))))
+    });
     c.bench_function("analyzer set-up (once per plan)", |b| {
         b.iter(|| black_box(Analyzer::new(&plan, &stimulus).expect("analyzer")))
     });

@@ -111,6 +111,27 @@ struct HarmonicWindow {
     lead: usize,
     /// Samples from the integer centre onwards.
     tail: usize,
+    /// Window weights, `lead + tail` of them (half-Hann fades, flat between).
+    weights: Vec<f64>,
+}
+
+/// Window of `lead + tail` samples: half-Hann fade-in over the first half of the lead-in,
+/// fade-out over the last third of the tail, flat around the centre.
+fn window_weights(lead: usize, tail: usize) -> Vec<f64> {
+    let len = lead + tail;
+    let fade_in = (lead / 2).max(1);
+    let fade_out = (tail / 3).max(1);
+    (0..len)
+        .map(|i| {
+            if i < fade_in {
+                ramp(i as f64 / fade_in as f64)
+            } else if i + fade_out >= len {
+                ramp((len - 1 - i) as f64 / fade_out as f64)
+            } else {
+                1.0
+            }
+        })
+        .collect()
 }
 
 /// Deconvolver and analyser built once per stimulus and reused for every unit.
@@ -143,6 +164,8 @@ pub struct Analyzer {
     lin_window: Vec<f64>,
     n_fine: usize,
     fwd_fine: Arc<dyn RealToComplex<f64>>,
+    /// 1/|B_hp|² per fine bin (0 where the high-pass is exactly 0), to divide it out.
+    fine_inv_hp_power: Vec<f64>,
 
     harmonics: Vec<HarmonicWindow>,
     n_harm: usize,
@@ -276,6 +299,7 @@ impl Analyzer {
                 centre,
                 lead,
                 tail,
+                weights: window_weights(lead, tail),
             });
         }
         let max_harm_len = harmonics.iter().map(|h| h.lead + h.tail).max().unwrap_or(0);
@@ -283,7 +307,7 @@ impl Analyzer {
         // The circular deconvolution buffer must hold the capture and keep the harmonics
         // (at negative times, wrapped to the end) clear of the linear tail.
         let harm_span = lead_h(max_harmonic + 1).ceil() as usize;
-        let n_fft = good_fft_len(n_stimulus.max(harm_span + lin_tail + lin_lead) + lin_tail);
+        let n_fft = good_fft_len(n_stimulus.max(harm_span + lin_tail + lin_lead));
         let mut planner = RealFftPlanner::<f64>::new();
         let fwd = planner.plan_fft_forward(n_fft);
         let inv = planner.plan_fft_inverse(n_fft);
@@ -300,6 +324,7 @@ impl Analyzer {
             .expect("buffer lengths come from the same plan");
 
         let peak_power = x_spec.iter().map(|c| c.norm_sqr()).fold(0.0, f64::max);
+        let inv_n = 1.0 / n_fft as f64;
         let x_inv: Vec<C64> = (0..n_bins)
             .map(|k| {
                 let f = k as f64 * df;
@@ -316,7 +341,7 @@ impl Analyzer {
                     // the regularisation also rises between f1/2 and f1/4.
                     let low = 1.0 - ramp((f - 0.03125 * sweep.f1_hz) / (0.03125 * sweep.f1_hz));
                     let eps = (1.0 - top + low) * peak_power + 1e-20 * peak_power;
-                    x_spec[k].conj() * low_highpass(f, sweep.f1_hz) * top
+                    x_spec[k].conj() * low_highpass(f, sweep.f1_hz) * (top * inv_n)
                         / (x_spec[k].norm_sqr() + eps)
                 }
             })
@@ -353,28 +378,25 @@ impl Analyzer {
             let delay = C64::from_polar(1.0, -2.0 * PI * f * s0 / fs);
             let x = analytic_sweep_spectrum(f, &sweep) * delay * scale;
             x_fwd_analytic[k] = x;
-            x_inv_analytic[k] = w / x;
-            harm_band[k] = w;
+            x_inv_analytic[k] = (w * inv_n) / x;
+            harm_band[k] = w * inv_n;
         }
 
         let lin_len = lin_lead + lin_tail;
-        let lin_window: Vec<f64> = (0..lin_len)
-            .map(|i| {
-                // Half-Hann fade over the first half of the lead-in and the last third of
-                // the tail; flat around the peak.
-                let fade_in = (lin_lead / 2).max(1);
-                let fade_out = (lin_tail / 3).max(1);
-                if i < fade_in {
-                    ramp(i as f64 / fade_in as f64)
-                } else if i >= lin_len - fade_out {
-                    ramp((lin_len - 1 - i) as f64 / fade_out as f64)
+        let lin_window = window_weights(lin_lead, lin_tail);
+        let n_fine = good_fft_len(((fs / FINE_RESOLUTION_HZ).ceil() as usize).max(lin_len));
+        let fwd_fine = planner.plan_fft_forward(n_fine);
+        let df_fine = fs / n_fine as f64;
+        let fine_inv_hp_power = (0..n_fine / 2 + 1)
+            .map(|k| {
+                let b = low_highpass(k as f64 * df_fine, sweep.f1_hz).norm_sqr();
+                if b > 0.0 {
+                    1.0 / b
                 } else {
-                    1.0
+                    0.0
                 }
             })
             .collect();
-        let n_fine = good_fft_len(((fs / FINE_RESOLUTION_HZ).ceil() as usize).max(lin_len));
-        let fwd_fine = planner.plan_fft_forward(n_fine);
         let n_harm = good_fft_len((2 * max_harm_len).max(16));
         let fwd_harm = planner.plan_fft_forward(n_harm);
 
@@ -413,6 +435,7 @@ impl Analyzer {
             fine_time: vec![0.0; n_fine],
             fine_spec: vec![C64::new(0.0, 0.0); n_fine / 2 + 1],
             fwd_fine,
+            fine_inv_hp_power,
             harmonics,
             n_harm,
             harm_time: vec![0.0; n_harm],
@@ -621,20 +644,20 @@ impl Analyzer {
             let c_frac = centre_abs - c_int;
             self.harm_time.fill(0.0);
             let len = hw.lead + hw.tail;
-            let fade_in = (hw.lead / 2).max(1);
-            let fade_out = (hw.tail / 3).max(1);
-            for i in 0..len {
-                let offset = i as isize - hw.lead as isize;
-                let w = if i < fade_in {
-                    ramp(i as f64 / fade_in as f64)
-                } else if i >= len - fade_out {
-                    ramp((len - 1 - i) as f64 / fade_out as f64)
-                } else {
-                    1.0
-                };
-                let src = (c_int as isize + offset).rem_euclid(n_fft as isize) as usize;
+            // Split the circular copy into runs so the hot loop has no modulo.
+            let start = (c_int as isize - hw.lead as isize).rem_euclid(n_fft as isize) as usize;
+            let dst0 = self.n_harm - hw.lead;
+            for (i, &w) in hw.weights.iter().enumerate().take(len) {
+                let mut src = start + i;
+                if src >= n_fft {
+                    src -= n_fft;
+                }
+                let mut dst = dst0 + i;
+                if dst >= self.n_harm {
+                    dst -= self.n_harm;
+                }
                 let v = self.h_res[src] * w;
-                self.harm_time[offset.rem_euclid(self.n_harm as isize) as usize] = v;
+                self.harm_time[dst] = v;
                 self.union_ir[src] += v;
             }
             self.fwd_harm
@@ -719,23 +742,13 @@ impl Analyzer {
             .map(|c| 20.0 * c.norm().max(1e-15).log10())
             .collect();
         let phase_deg = h1_grid.iter().map(|c| c.arg().to_degrees()).collect();
-        let fine = FineSpectrum {
-            df_hz: df_fine,
-            power: self
-                .fine_spec
-                .iter()
-                .enumerate()
-                .map(|(k, c)| {
-                    let b = low_highpass(k as f64 * df_fine, f1_hz).norm_sqr();
-                    if b > 0.0 {
-                        c.norm_sqr() / b
-                    } else {
-                        0.0
-                    }
-                })
-                .collect(),
-            band_hz: (self.sweep.f1_hz, self.sweep.f2_hz),
-        };
+        let power = self
+            .fine_spec
+            .iter()
+            .zip(&self.fine_inv_hp_power)
+            .map(|(c, g)| c.norm_sqr() * g)
+            .collect();
+        let fine = FineSpectrum::new(df_fine, power, (self.sweep.f1_hz, self.sweep.f2_hz));
 
         ChannelMeasurement {
             name: name.to_string(),
@@ -757,7 +770,9 @@ impl Analyzer {
         }
     }
 
-    /// Inverse-transform `spec_buf` into `h_res` (divided by N).
+    /// Inverse-transform `spec_buf` into `h_res`. The 1/N of the inverse transform is folded
+    /// into the spectra that multiply `spec_buf` (`x_inv`, `x_inv_analytic`, `harm_band`),
+    /// which saves a pass over the buffer per transform.
     fn inverse_into_h_res(&mut self) {
         // The DC and Nyquist bins of a real signal's spectrum must be real; the products
         // above keep them so up to rounding, which the inverse transform rejects.
@@ -767,10 +782,6 @@ impl Analyzer {
         self.inv
             .process_with_scratch(&mut self.spec_buf, &mut self.h_res, &mut self.scratch_inv)
             .expect("buffer lengths come from the same plan");
-        let scale = 1.0 / self.n_fft as f64;
-        for v in &mut self.h_res {
-            *v *= scale;
-        }
     }
 
     /// Rub-and-buzz indicator on the grid: peak residual (after removing the linear part

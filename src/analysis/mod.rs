@@ -116,6 +116,29 @@ pub struct FineSpectrum {
     pub power: Vec<f64>,
     /// Lowest and highest excited frequency, Hz (smoothing bands are clipped to it).
     pub band_hz: (f64, f64),
+    /// Running integral of `power` over frequency (trapezoids), `cumulative[k]` = ∫₀^{k·df}
+    /// |H|² df, so that a band average costs two look-ups; see [`FineSpectrum::new`].
+    pub cumulative: Vec<f64>,
+}
+
+impl FineSpectrum {
+    /// Build from per-bin power, computing the running integral.
+    pub fn new(df_hz: f64, power: Vec<f64>, band_hz: (f64, f64)) -> Self {
+        let mut cumulative = Vec::with_capacity(power.len());
+        let mut acc = 0.0;
+        for (k, p) in power.iter().enumerate() {
+            if k > 0 {
+                acc += 0.5 * (power[k - 1] + p) * df_hz;
+            }
+            cumulative.push(acc);
+        }
+        FineSpectrum {
+            df_hz,
+            power,
+            band_hz,
+            cumulative,
+        }
+    }
 }
 
 impl ChannelMeasurement {
