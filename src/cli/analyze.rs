@@ -2,7 +2,7 @@
 
 use super::{pipeline, Exit, JsonOut, Output};
 use crate::rig::recording::RecordingRig;
-use crate::rig::{Rig, RigError};
+use crate::rig::Rig;
 use std::path::PathBuf;
 
 /// Arguments of `analyze`.
@@ -25,16 +25,10 @@ pub struct Args {
 
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
     let mut prep = pipeline::prepare(&args.plan)?;
-    let mut rig = RecordingRig::open(&args.capture).map_err(|e| match e {
-        RigError::BadInput { .. } => Exit::bad_input(e),
-        RigError::Fault(_) => Exit::retest(e),
-    })?;
+    let mut rig = RecordingRig::open(&args.capture).map_err(Exit::from_rig)?;
     let capture = rig
         .play_and_capture(&prep.stimulus, prep.plan.n_inputs())
-        .map_err(|e| match e {
-            RigError::BadInput { .. } => Exit::bad_input(e),
-            RigError::Fault(_) => Exit::retest(e),
-        })?;
+        .map_err(Exit::from_rig)?;
     let result = pipeline::judge_capture(&mut prep, &capture, &args.serial, rig.name(), None)?;
     if let Some(j) = &args.json {
         j.write(&result).map_err(Exit::bad_input)?;

@@ -158,6 +158,13 @@ impl Exit {
             error: error.into(),
         }
     }
+    /// A file or device the user named is wrong → bad input; the rig failed → retest.
+    pub fn from_rig(e: crate::rig::RigError) -> Self {
+        match e {
+            crate::rig::RigError::BadInput { .. } => Exit::bad_input(e),
+            crate::rig::RigError::Fault(_) => Exit::retest(e),
+        }
+    }
 }
 
 /// Output settings shared by the commands.

@@ -3,7 +3,7 @@
 use super::{pipeline, Exit, JsonOut, Output};
 use crate::plan::RigSpec;
 use crate::rig::simulated::{Defect, SimUnit, SimulatedRig, UnitKind};
-use crate::rig::{Rig, RigError};
+use crate::rig::Rig;
 use crate::store::{NewRecord, Store};
 use anyhow::Context;
 use std::path::PathBuf;
@@ -122,10 +122,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
     tracing::info!(serial = %args.serial, rig = rig.name(), "playing the stimulus");
     let capture = rig
         .play_and_capture(&prep.stimulus, prep.plan.n_inputs())
-        .map_err(|e| match e {
-            RigError::BadInput { .. } => Exit::bad_input(e),
-            RigError::Fault(_) => Exit::retest(e),
-        })?;
+        .map_err(Exit::from_rig)?;
     let result = pipeline::judge_capture(&mut prep, &capture, &args.serial, rig.name(), sim_label)?;
 
     // Record before reporting: a verdict the store does not hold was never given.
