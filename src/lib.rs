@@ -6,6 +6,7 @@
 //! Nothing below [`cli`] prints or exits; errors are values.
 #![forbid(unsafe_code)]
 
+pub mod acoustics;
 pub mod analysis;
 pub mod checks;
 pub mod cli;

@@ -1,0 +1,24 @@
+//! Acoustic models: air, two-port elements, couplers, sources, fixture→reference correction.
+//!
+//! Sits beside the analysis: a measurement made in the station's fixture is corrected to the
+//! reference coupler the limits are written for (DESIGN.md, "Acoustic models"). Convention
+//! throughout: e^{jωt} time dependence, acoustic impedance in Pa·s/m³, volume velocity in
+//! m³/s, pressure in Pa, SI units in every name. Two-ports are ABCD (transfer) matrices from
+//! the reference plane inward: `[p1; U1] = [A B; C D]·[p2; U2]`.
+//!
+//! Layout: [`air`] (properties from temperature and pressure), [`twoport`] (matrices and
+//! their algebra), [`elements`] (tube, slit, cavity, lumped, leak, side branch),
+//! [`termination`] (rigid, radiating, tabulated, eardrum), [`eardrum`] (Kringlebotn 1988),
+//! [`network`] (a coupler: chain + taps → input impedance and transfer functions),
+//! [`model`] (coupler YAML files), [`source`] (volume-velocity, Thévenin, virtual earphone),
+//! [`correction`] (fixture → reference).
+
+pub mod air;
+pub mod eardrum;
+pub mod elements;
+pub mod network;
+pub mod termination;
+pub mod twoport;
+
+/// Complex number type of all acoustic quantities.
+pub type C64 = realfft::num_complex::Complex<f64>;
