@@ -230,6 +230,29 @@ impl Validator {
         value.as_ref()
     }
 
+    /// A required limit that must be a finite number above 0 (`unit` for the message).
+    fn required_positive<S>(
+        &mut self,
+        sec: &Section<S>,
+        value: &Option<Spanned<f64>>,
+        ctx: &str,
+        key: &str,
+        unit: &str,
+    ) -> Option<f64> {
+        let what = label(ctx, key);
+        let v = self.required(sec, value, ctx, key)?;
+        let x = self.finite(v, &what)?;
+        if x > 0.0 {
+            Some(x)
+        } else {
+            self.report(
+                Pos::of_value(v),
+                format!("{what}: expected a limit above 0 {unit}, found {x}"),
+            );
+            None
+        }
+    }
+
     /// A finite number, or a problem.
     fn finite(&mut self, v: &Spanned<f64>, what: &str) -> Option<f64> {
         if v.is_finite() {
@@ -1000,23 +1023,8 @@ impl Validator {
             }
             "thd" => {
                 let b = band_of(self);
-                let max_percent = self
-                    .required(sec, &c.max_percent, &ctx, "max_percent")
-                    .and_then(|v| {
-                        let x = self.finite(v, &l("max_percent"))?;
-                        if x > 0.0 {
-                            Some(x)
-                        } else {
-                            self.report(
-                                Pos::of_value(v),
-                                format!(
-                                    "{}: expected a limit above 0 %, found {x}",
-                                    l("max_percent")
-                                ),
-                            );
-                            None
-                        }
-                    });
+                let max_percent =
+                    self.required_positive(sec, &c.max_percent, &ctx, "max_percent", "%");
                 (|| {
                     Some(CheckKind::Thd {
                         band: b?,
@@ -1093,23 +1101,8 @@ impl Validator {
                 }),
             "balance" => {
                 let b = band_of(self);
-                let max_diff_db = self
-                    .required(sec, &c.max_diff_db, &ctx, "max_diff_db")
-                    .and_then(|v| {
-                        let x = self.finite(v, &l("max_diff_db"))?;
-                        if x > 0.0 {
-                            Some(x)
-                        } else {
-                            self.report(
-                                Pos::of_value(v),
-                                format!(
-                                    "{}: expected a limit above 0 dB, found {x}",
-                                    l("max_diff_db")
-                                ),
-                            );
-                            None
-                        }
-                    });
+                let max_diff_db =
+                    self.required_positive(sec, &c.max_diff_db, &ctx, "max_diff_db", "dB");
                 let smoothing = self.smoothing(c.smoothing.as_ref(), &l("smoothing"));
                 let n = match (&c.channels, &check_channels) {
                     (Some(_), Some(list)) => Some(list.len()),
