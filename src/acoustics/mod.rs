@@ -14,9 +14,11 @@
 //! [`correction`] (fixture → reference).
 
 pub mod air;
+pub mod correction;
 pub mod eardrum;
 pub mod elements;
 pub mod network;
+pub mod source;
 pub mod termination;
 pub mod twoport;
 
