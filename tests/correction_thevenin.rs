@@ -33,9 +33,7 @@ fn fixture_chain(f: f64) -> Vec<TwoPort> {
 
 /// (Z_in, p_end/p_in) of a rigid-ended chain by the two-port product.
 fn z_and_t(chain: &[TwoPort]) -> (C64, C64) {
-    let m = chain
-        .iter()
-        .fold(TwoPort::identity(), |acc, t| acc.then(t));
+    let m = chain.iter().fold(TwoPort::identity(), |acc, t| acc.then(t));
     // U2 = 0 at the rigid end: p1 = a·p2, U1 = c·p2.
     (m.a / m.c, C64::new(1.0, 0.0) / m.a)
 }
@@ -116,7 +114,9 @@ fn corrected_fixture_response_matches_the_reference_circuit() {
         phase_fix.push(pf.arg().to_degrees());
         p_ref.push(pr);
     }
-    let (level, phase) = corr.apply_to_response(&freqs, &level_fix, &phase_fix).unwrap();
+    let (level, phase) = corr
+        .apply_to_response(&freqs, &level_fix, &phase_fix)
+        .unwrap();
     let mut worst_db = 0.0f64;
     for i in 0..freqs.len() {
         let want_db = 20.0 * p_ref[i].norm().log10();
@@ -197,15 +197,19 @@ fn ideal_limit_is_the_ratio_of_transfer_impedances() {
 fn identity_changes_with_each_part_and_only_then() {
     let src = table_source();
     let (fixture, reference) = couplers();
-    let id = |s: &Source, ft: &str| Correction::new(&fixture, &reference, ft, "drp", s)
-        .unwrap()
-        .identity();
+    let id = |s: &Source, ft: &str| {
+        Correction::new(&fixture, &reference, ft, "drp", s)
+            .unwrap()
+            .identity()
+    };
     let base = id(&src, "mic");
     assert_eq!(base.len(), 64);
     assert!(base.chars().all(|c| c.is_ascii_hexdigit()));
     assert_eq!(base, id(&table_source(), "mic"), "not stable");
     assert_ne!(base, id(&Source::VolumeVelocity, "mic"));
-    let Source::Thevenin { mut table } = table_source() else { unreachable!() };
+    let Source::Thevenin { mut table } = table_source() else {
+        unreachable!()
+    };
     table[7].2.re *= 1.0 + 1e-15;
     assert_ne!(base, id(&Source::Thevenin { table }, "mic"));
     let swapped = Correction::new(&reference, &fixture, "drp", "mic", &src).unwrap();
@@ -227,11 +231,19 @@ fn errors_are_typed_and_worded() {
     let e = corr
         .apply_to_response(&[100.0, 200.0], &[0.0], &[0.0, 0.0])
         .unwrap_err();
-    assert_eq!(e.to_string(), "expected 2 values to match the frequencies, found 1");
+    assert_eq!(
+        e.to_string(),
+        "expected 2 values to match the frequencies, found 1"
+    );
     let e = corr.apply_to_harmonic(1, &[100.0], &[0.0]).unwrap_err();
-    assert_eq!(e.to_string(), "expected a harmonic order of at least 2, found 1");
+    assert_eq!(
+        e.to_string(),
+        "expected a harmonic order of at least 2, found 1"
+    );
     // HD3 at 8 kHz needs the source at 24 kHz, beyond its 20 kHz table.
     let e = corr.apply_to_harmonic(3, &[8000.0], &[-40.0]).unwrap_err();
     assert!(matches!(e, CorrectionError::Source(_)));
-    assert!(e.to_string().starts_with("frequency 24000 hz is outside the source table"));
+    assert!(e
+        .to_string()
+        .starts_with("frequency 24000 hz is outside the source table"));
 }

@@ -16,7 +16,9 @@ fn err_text(body: &str) -> String {
 fn reads_a_table_and_interpolates_linearly_in_log_frequency() {
     let text = format!("# invented demo table\n{HEADER}100,1,0,2e7,0\n\n400,3,-2,4e7,1e7\n");
     let src = parse_thevenin_csv(&text, "t.csv").unwrap();
-    let Source::Thevenin { table } = &src else { panic!("not a thevenin source") };
+    let Source::Thevenin { table } = &src else {
+        panic!("not a thevenin source")
+    };
     assert_eq!(table.len(), 2);
     // 200 Hz is halfway between 100 and 400 Hz in log-frequency (log2: 6.64, 7.64, 8.64),
     // so the interpolated value is the arithmetic mean of the end points (definition of
@@ -25,7 +27,10 @@ fn reads_a_table_and_interpolates_linearly_in_log_frequency() {
     assert!((t.p_oc_pa_per_v - C64::new(2.0, -1.0)).norm() < 1e-12);
     assert!((t.z_s_pa_s_m3 - C64::new(3e7, 0.5e7)).norm() < 1e-12 * 3e7);
     // At a table point the value is the point itself (exact).
-    assert_eq!(src.thevenin(400.0).unwrap().unwrap().p_oc_pa_per_v, C64::new(3.0, -2.0));
+    assert_eq!(
+        src.thevenin(400.0).unwrap().unwrap().p_oc_pa_per_v,
+        C64::new(3.0, -2.0)
+    );
     // Loaded by Z_L = Zs the outlet pressure is half the open-circuit pressure (Thévenin:
     // p_oc·Z_L/(Zs+Z_L) with Z_L = Zs); exact in f64 up to one rounding.
     let z = t.z_s_pa_s_m3;
@@ -33,7 +38,10 @@ fn reads_a_table_and_interpolates_linearly_in_log_frequency() {
     assert!((p - t.p_oc_pa_per_v * 0.5).norm() < 1e-14);
     // No extrapolation: outside the table is an error naming the range.
     let e = src.thevenin(50.0).unwrap_err();
-    assert_eq!(e.to_string(), "frequency 50 hz is outside the source table (100..400 hz)");
+    assert_eq!(
+        e.to_string(),
+        "frequency 50 hz is outside the source table (100..400 hz)"
+    );
 }
 
 #[test]
@@ -95,7 +103,8 @@ fn reads_from_a_file_and_reports_a_missing_one() {
     let missing = f.path().with_extension("absent");
     let e = Source::thevenin_from_csv(&missing).unwrap_err();
     assert!(matches!(e, SourceError::Io { .. }));
-    assert!(e
-        .to_string()
-        .starts_with(&format!("{}: cannot read the source table: ", missing.display())));
+    assert!(e.to_string().starts_with(&format!(
+        "{}: cannot read the source table: ",
+        missing.display()
+    )));
 }
