@@ -78,6 +78,7 @@ fn table_source() -> Source {
     Source::Thevenin { table }
 }
 
+#[allow(clippy::type_complexity)] // two opaque closure types; a type alias cannot name them
 fn couplers() -> (
     FnCoupler<impl Fn(f64) -> (C64, C64)>,
     FnCoupler<impl Fn(f64) -> (C64, C64)>,

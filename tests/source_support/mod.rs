@@ -89,9 +89,9 @@ pub fn solve(mut a: Vec<Vec<C64>>, mut b: Vec<C64>) -> Vec<C64> {
             if f.norm() == 0.0 {
                 continue;
             }
-            for k in col..n {
-                let v = a[col][k];
-                a[row][k] -= f * v;
+            let pivot_row = a[col].clone();
+            for (x, v) in a[row].iter_mut().zip(pivot_row).skip(col) {
+                *x -= f * v;
             }
             let v = b[col];
             b[row] -= f * v;
