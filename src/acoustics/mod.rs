@@ -16,6 +16,7 @@
 pub mod air;
 pub mod eardrum;
 pub mod elements;
+pub mod model;
 pub mod network;
 pub mod termination;
 pub mod twoport;
