@@ -237,6 +237,17 @@ struct Validator {
     problems: Vec<Problem>,
 }
 
+/// What [`Validator::chain`] read.
+#[derive(Default)]
+struct ChainRead {
+    /// The items that could be read, each with its position.
+    items: Vec<(ChainItem, Pos)>,
+    /// Whether every item could be read (and the chain is not empty).
+    ok: bool,
+    /// Radius of the last tube, m.
+    last_radius_m: Option<f64>,
+}
+
 /// Where a chain is, for messages and for the open-end radius.
 struct ChainCtx<'a> {
     /// Path prefix of its items (`elements`, `elements[3].branch.elements`).
@@ -297,22 +308,24 @@ impl Validator {
             Some(n) => self.number_in(n, "static_pressure_pa", STATIC_PRESSURE_RANGE_PA, " Pa"),
         };
 
-        let (chain, last_radius) = match top.get_node("elements") {
+        let read = match top.get_node("elements") {
             None => {
                 self.report(top_pos, "missing required key `elements`".into());
-                (None, None)
+                None
             }
-            Some(n) => self.chain(
-                n,
-                &ChainCtx {
-                    prefix: "elements",
-                    taps_allowed: true,
-                },
-            ),
+            Some(n) => {
+                let read = self.chain(
+                    n,
+                    &ChainCtx {
+                        prefix: "elements",
+                        taps_allowed: true,
+                    },
+                );
+                self.check_taps(&read.items, n);
+                Some(read)
+            }
         };
-        if let Some(chain) = &chain {
-            self.check_taps(chain, top.get_node("elements"));
-        }
+        let last_radius = read.as_ref().and_then(|r| r.last_radius_m);
         let termination = match top.get_node("termination") {
             None => {
                 self.report(top_pos, "missing required key `termination`".into());
@@ -321,7 +334,8 @@ impl Validator {
             Some(n) => self.termination(n, "termination", last_radius),
         };
 
-        let chain: Vec<ChainItem> = chain?.into_iter().map(|(item, _)| item).collect();
+        let read = read.filter(|r| r.ok)?;
+        let chain: Vec<ChainItem> = read.items.into_iter().map(|(item, _)| item).collect();
         let mut model = CouplerModel {
             id: id?,
             description: description?,
@@ -457,12 +471,9 @@ impl Validator {
 
     /// A chain of elements (with taps when allowed). Each item comes with its position;
     /// also returns the radius of the last tube, m (for a bare open end).
-    #[allow(clippy::type_complexity)]
-    fn chain(
-        &mut self,
-        node: &Node,
-        ctx: &ChainCtx,
-    ) -> (Option<Vec<(ChainItem, Pos)>>, Option<f64>) {
+    /// The items that could be read are returned even when others could not (so that tap
+    /// names are still checked); `ok` says whether all could.
+    fn chain(&mut self, node: &Node, ctx: &ChainCtx) -> ChainRead {
         let Node::Sequence(seq) = node else {
             self.report(
                 Pos::of(node.span()),
@@ -472,7 +483,7 @@ impl Validator {
                     raw::found(node)
                 ),
             );
-            return (None, None);
+            return ChainRead::default();
         };
         let mut items = Vec::new();
         let mut ok = true;
@@ -480,7 +491,14 @@ impl Validator {
         let mut n_elements = 0usize;
         for (i, item) in seq.iter().enumerate() {
             let what = format!("{}[{}]", ctx.prefix, i + 1);
-            let pos = Pos::of(item.span());
+            // A block mapping's own mark points past its first key; use the key.
+            let pos = match item {
+                Node::Mapping(m) => m
+                    .keys()
+                    .next()
+                    .map_or(Pos::of(item.span()), |k| Pos::of(k.span())),
+                _ => Pos::of(item.span()),
+            };
             match self.item(item, &what, ctx) {
                 Some(ci) => {
                     if let ChainItem::Element(e) = &ci {
@@ -513,7 +531,11 @@ impl Validator {
             );
             ok = false;
         }
-        (ok.then_some(items), last_radius)
+        ChainRead {
+            items,
+            ok,
+            last_radius_m: last_radius,
+        }
     }
 
     /// One list item: a mapping with exactly one element kind.
@@ -680,7 +702,7 @@ impl Validator {
                 );
                 let f = f?;
                 let prefix = format!("{w}.elements");
-                let (items, radius) = match f[0] {
+                let read = match f[0] {
                     Some(n) => self.chain(
                         n,
                         &ChainCtx {
@@ -688,11 +710,14 @@ impl Validator {
                             taps_allowed: false,
                         },
                     ),
-                    None => (None, None),
+                    None => ChainRead::default(),
                 };
-                let term =
-                    f[1].and_then(|n| self.termination(n, &format!("{w}.termination"), radius));
-                let elements = items?
+                let term = f[1].and_then(|n| {
+                    self.termination(n, &format!("{w}.termination"), read.last_radius_m)
+                });
+                let elements = read
+                    .ok
+                    .then_some(read.items)?
                     .into_iter()
                     .filter_map(|(i, _)| match i {
                         ChainItem::Element(e) => Some(e),
@@ -746,7 +771,7 @@ impl Validator {
     }
 
     /// Tap names unique, and at least one tap.
-    fn check_taps(&mut self, chain: &[(ChainItem, Pos)], elements: Option<&Node>) {
+    fn check_taps(&mut self, chain: &[(ChainItem, Pos)], elements: &Node) {
         let mut seen: Vec<(&str, Pos)> = Vec::new();
         for (item, pos) in chain {
             if let ChainItem::Tap(name) = item {
@@ -765,9 +790,8 @@ impl Validator {
             }
         }
         if seen.is_empty() {
-            let pos = elements.map_or(Pos::default(), |n| Pos::of(n.span()));
             self.report(
-                pos,
+                Pos::of(elements.span()),
                 "elements: expected at least one `tap: NAME` (a microphone), found none".into(),
             );
         }
