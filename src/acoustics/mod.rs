@@ -6,7 +6,8 @@
 //! m³/s, pressure in Pa, SI units in every name. Two-ports are ABCD (transfer) matrices from
 //! the reference plane inward: `[p1; U1] = [A B; C D]·[p2; U2]`.
 //!
-//! Layout: [`air`] (properties from temperature and pressure), [`twoport`] (matrices and
+//! Layout: [`air`] (properties from temperature and pressure), [`bessel`] (Bessel ratio and
+//! Struve functions), [`twoport`] (matrices and
 //! their algebra), [`elements`] (tube, slit, cavity, lumped, leak, side branch),
 //! [`termination`] (rigid, radiating, tabulated, eardrum), [`eardrum`] (Kringlebotn 1988),
 //! [`network`] (a coupler: chain + taps → input impedance and transfer functions),
@@ -14,6 +15,7 @@
 //! [`correction`] (fixture → reference).
 
 pub mod air;
+pub mod bessel;
 pub mod eardrum;
 pub mod elements;
 pub mod model;
