@@ -19,6 +19,7 @@ pub mod bessel;
 pub mod correction;
 pub mod eardrum;
 pub mod elements;
+pub mod model;
 pub mod network;
 pub mod source;
 pub mod termination;

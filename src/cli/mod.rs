@@ -6,6 +6,7 @@
 //! written": a unit without a record must be tested again, never shipped).
 
 mod analyze;
+mod coupler;
 mod pipeline;
 mod records;
 mod run;
@@ -67,6 +68,8 @@ pub enum Command {
     Records(records::ListArgs),
     /// Recompute every record hash, the chain and every raw capture's SHA-256.
     Verify(records::VerifyArgs),
+    /// Input impedance and transfer functions of a coupler model on the log grid.
+    Coupler(coupler::Args),
 }
 
 /// Where a `--json` document goes.
@@ -217,6 +220,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Run(a) => run::run(a, out),
         Command::Records(a) => records::list(a),
         Command::Verify(a) => records::verify(a),
+        Command::Coupler(a) => coupler::run(a),
     };
     match result {
         Ok(code) => code,

@@ -335,14 +335,32 @@ impl<'de> Deserialize<'de> for RawLimit {
 pub fn parse(text: &str, path: &str) -> (Option<RawPlan>, Vec<Problem>) {
     let mut d = Decoder {
         path,
+        what: "plan",
         problems: Vec::new(),
     };
     let plan = d.parse(text);
     (plan, d.problems)
 }
 
+/// Parse YAML text into a marked node tree whose top level is a mapping, with the same
+/// guards as plans (nesting depth, no anchors, aliases or tags, one document, no duplicate
+/// keys) but no decoding: for other YAML files of the project (coupler models).
+///
+/// `path` labels the problems; `what` names the file kind in messages (`coupler model`).
+pub fn parse_tree(text: &str, path: &str, what: &'static str) -> (Option<Node>, Vec<Problem>) {
+    let mut d = Decoder {
+        path,
+        what,
+        problems: Vec::new(),
+    };
+    let root = d.tree(text);
+    (root, d.problems)
+}
+
 struct Decoder<'a> {
     path: &'a str,
+    /// The file kind named in messages (`plan`).
+    what: &'static str,
     problems: Vec<Problem>,
 }
 
@@ -354,7 +372,8 @@ impl Decoder<'_> {
         });
     }
 
-    fn parse(&mut self, text: &str) -> Option<RawPlan> {
+    /// The node tree, top level a mapping, or `None` with the problems reported.
+    fn tree(&mut self, text: &str) -> Option<Node> {
         if !self.prescan(text) {
             return None;
         }
@@ -367,11 +386,19 @@ impl Decoder<'_> {
             }
         };
         fix_empty_value_spans(&mut root);
-        let Node::Mapping(top_map) = &root else {
+        if !matches!(root, Node::Mapping(_)) {
             self.report(
                 Pos::of(root.span()),
-                "expected a mapping of plan keys at the top level".into(),
+                format!("expected a mapping of {} keys at the top level", self.what),
             );
+            return None;
+        }
+        Some(root)
+    }
+
+    fn parse(&mut self, text: &str) -> Option<RawPlan> {
+        let root = self.tree(text)?;
+        let Node::Mapping(top_map) = &root else {
             return None;
         };
         let top_pos = mapping_pos(top_map, Pos { line: 1, col: 1 });
@@ -421,9 +448,11 @@ impl Decoder<'_> {
             if anchored || matches!(event, Event::Alias(_)) {
                 self.report(
                     pos,
-                    "expected plain YAML, found an anchor or alias (`&name`, `*name`), \
-                     which plans do not use"
-                        .into(),
+                    format!(
+                        "expected plain YAML, found an anchor or alias (`&name`, `*name`), \
+                         which {}s do not use",
+                        self.what
+                    ),
                 );
                 return false;
             }
@@ -440,7 +469,10 @@ impl Decoder<'_> {
                 if let Some(kind) = top_kind.filter(|k| !k.is_empty()) {
                     self.report(
                         pos,
-                        format!("expected a mapping of plan keys at the top level, found {kind}"),
+                        format!(
+                            "expected a mapping of {} keys at the top level, found {kind}",
+                            self.what
+                        ),
                     );
                     return false;
                 }
@@ -477,15 +509,20 @@ impl Decoder<'_> {
         let (marker, message) = match e {
             LoadError::TopLevelMustBeMapping(m) => (
                 Some(m),
-                "expected a mapping of plan keys at the top level, found a list or a single value"
-                    .to_string(),
+                format!(
+                    "expected a mapping of {} keys at the top level, found a list or a single value",
+                    self.what
+                ),
             ),
             LoadError::TopLevelMustBeSequence(m) => {
                 (Some(m), "expected a mapping at the top level".to_string())
             }
             LoadError::UnexpectedAnchor(m) => (
                 Some(m),
-                "expected plain YAML, found an anchor or alias, which plans do not use".to_string(),
+                format!(
+                    "expected plain YAML, found an anchor or alias, which {}s do not use",
+                    self.what
+                ),
             ),
             LoadError::MappingKeyMustBeScalar(m) => (
                 Some(m),
@@ -493,7 +530,10 @@ impl Decoder<'_> {
             ),
             LoadError::UnexpectedTag(m) => (
                 Some(m),
-                "expected plain YAML, found a tag (`!name`), which plans do not use".to_string(),
+                format!(
+                    "expected plain YAML, found a tag (`!name`), which {}s do not use",
+                    self.what
+                ),
             ),
             LoadError::ScanError(m, se) => (Some(m), format!("invalid YAML: {}", se.info())),
             LoadError::DuplicateKey(inner) => {
