@@ -33,7 +33,11 @@ fn bessel_ratio_matches_scipy() {
         worst = worst.max(e);
         // scipy.special.jve (AMOS) is good to ~1e-14 relative; 1e-10 is the accuracy asked
         // of the ratio (brief), leaving room for the conditioning near the zeros of J0.
-        assert!(e < 1e-10, "z = {z}: {} vs scipy {g} (rel {e:e})", j1_over_z_j0(z));
+        assert!(
+            e < 1e-10,
+            "z = {z}: {} vs scipy {g} (rel {e:e})",
+            j1_over_z_j0(z)
+        );
     }
     eprintln!("bessel ratio worst relative error {worst:e}");
 }
@@ -45,10 +49,18 @@ fn zwikker_kosten_matches_scipy() {
     assert_eq!(data.len(), 96);
     for r in &data {
         let (gamma, zc) = tube_propagation(r[1], r[0], TubeLoss::ZwikkerKosten, &air);
-        let (eg, ez) = (rel(gamma, C64::new(r[2], r[3])), rel(zc, C64::new(r[4], r[5])));
+        let (eg, ez) = (
+            rel(gamma, C64::new(r[2], r[3])),
+            rel(zc, C64::new(r[4], r[5])),
+        );
         // Same formulas and air in the script; the difference is only the Bessel evaluation
         // (scipy AMOS vs our continued fraction / Hankel), ~1e-14; 1e-9 is the brief's aim.
-        assert!(eg < 1e-9 && ez < 1e-9, "a = {} m, f = {} Hz: rel {eg:e} {ez:e}", r[0], r[1]);
+        assert!(
+            eg < 1e-9 && ez < 1e-9,
+            "a = {} m, f = {} Hz: rel {eg:e} {ez:e}",
+            r[0],
+            r[1]
+        );
     }
 }
 
@@ -63,7 +75,12 @@ fn stinson_slit_matches_scipy() {
         let er = rel(rho_eff / air.density_kg_m3, C64::new(r[2], r[3]));
         let ek = rel(k_eff / bulk, C64::new(r[4], r[5]));
         // numpy tanh vs num-complex tanh on the same formula: rounding only.
-        assert!(er < 1e-9 && ek < 1e-9, "gap {} m, {} Hz: {er:e} {ek:e}", r[0], r[1]);
+        assert!(
+            er < 1e-9 && ek < 1e-9,
+            "gap {} m, {} Hz: {er:e} {ek:e}",
+            r[0],
+            r[1]
+        );
     }
 }
 

@@ -27,7 +27,11 @@ pub fn kringlebotn_impedance(freq_hz: f64) -> C64 {
     let par = |a: C64, b: C64| a * b / (a + b);
 
     let z1a = par(res(60.0) + ind(1e-3) + cap(3.9e-6), cap(0.4e-6));
-    let z1b = ind(7.5e-3) + par(res(20.0) + ind(66e-3) + cap(0.3e-6), res(120.0) + cap(1.3e-6));
+    let z1b = ind(7.5e-3)
+        + par(
+            res(20.0) + ind(66e-3) + cap(0.3e-6),
+            res(120.0) + cap(1.3e-6),
+        );
     let z2 = res(120.0) + cap(0.38e-6);
     let z3 = res(20.0) + ind(22e-3);
     let z4 = res(6000.0) + cap(0.3e-6);

@@ -114,9 +114,9 @@ impl Element {
                 elements,
                 termination,
             } => {
-                let m = elements
-                    .iter()
-                    .fold(TwoPort::identity(), |acc, e| acc.then(&e.two_port(freq_hz, air)));
+                let m = elements.iter().fold(TwoPort::identity(), |acc, e| {
+                    acc.then(&e.two_port(freq_hz, air))
+                });
                 // Y = 1/Z_in written so that a rigid end with no elements gives Y = 0.
                 let y = match termination.impedance(freq_hz, air) {
                     None => m.c / m.a,
@@ -181,8 +181,7 @@ pub fn tube_propagation(freq_hz: f64, radius_m: f64, loss: TubeLoss, air: &Air) 
             let s2 = std::f64::consts::SQRT_2;
             (
                 z_series * (1.0 + C64::new(s2, -s2) / r_v - j * 3.0 / (r_v * r_v)),
-                y_shunt
-                    * (1.0 + (air.gamma - 1.0) * (C64::new(s2, -s2) / r_t + j / (r_t * r_t))),
+                y_shunt * (1.0 + (air.gamma - 1.0) * (C64::new(s2, -s2) / r_t + j / (r_t * r_t))),
             )
         }
     };

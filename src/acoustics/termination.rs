@@ -97,10 +97,7 @@ fn expm1_c(w: C64) -> C64 {
     // e^{x+jy} − 1 = (e^x − 1)cos y + (cos y − 1) + j e^x sin y; cos y − 1 = −2 sin²(y/2).
     let em1 = w.re.exp_m1();
     let s = (w.im / 2.0).sin();
-    C64::new(
-        em1 * w.im.cos() - 2.0 * s * s,
-        w.re.exp() * w.im.sin(),
-    )
+    C64::new(em1 * w.im.cos() - 2.0 * s * s, w.re.exp() * w.im.sin())
 }
 
 fn table_impedance(points: &[(f64, C64)], freq_hz: f64) -> Option<C64> {

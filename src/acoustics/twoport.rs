@@ -18,15 +18,26 @@ impl TwoPort {
     /// The identity (a zero-length connection).
     pub fn identity() -> Self {
         let (o, z) = (C64::new(1.0, 0.0), C64::new(0.0, 0.0));
-        TwoPort { a: o, b: z, c: z, d: o }
+        TwoPort {
+            a: o,
+            b: z,
+            c: z,
+            d: o,
+        }
     }
     /// A series impedance `z` (Pa·s/m³): [1 z; 0 1].
     pub fn series(z: C64) -> Self {
-        TwoPort { b: z, ..Self::identity() }
+        TwoPort {
+            b: z,
+            ..Self::identity()
+        }
     }
     /// A shunt admittance `y` (m³/(Pa·s)) to ground: [1 0; y 1].
     pub fn shunt(y: C64) -> Self {
-        TwoPort { c: y, ..Self::identity() }
+        TwoPort {
+            c: y,
+            ..Self::identity()
+        }
     }
     /// `self` followed by `next` (matrix product self·next).
     pub fn then(&self, next: &TwoPort) -> TwoPort {
