@@ -299,7 +299,7 @@ fn table_termination_interpolates_in_log_frequency() {
     // Linear in lg f: at the geometric mean of two points the mean of their values.
     let z = t.impedance(316.227_766_016_837_9, &air).unwrap();
     assert!((z - C64::new(2e6, 0.0)).norm() < 1e-3);
-    let z = t.impedance(3162.277_660_168_379, &air).unwrap();
+    let z = t.impedance(3_162.277_660_168_379, &air).unwrap();
     assert!((z - C64::new(4e6, 1e6)).norm() < 1e-3);
     // Held at the ends.
     assert_eq!(t.impedance(10.0, &air), Some(C64::new(1e6, -2e6)));
