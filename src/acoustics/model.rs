@@ -918,27 +918,10 @@ impl Validator {
     fn impedance_file(&mut self, rel: &str, what: &str, pos: Pos) -> Option<Termination> {
         let file = self.dir.join(rel);
         let file_label = file.display().to_string();
-        let text = match std::fs::read(&file) {
-            Ok(bytes) => match String::from_utf8(bytes) {
-                Ok(t) => t,
-                Err(_) => {
-                    self.report(
-                        pos,
-                        format!("{what}: impedance file {file_label} is not UTF-8 text"),
-                    );
-                    return None;
-                }
-            },
-            Err(e) => {
-                let why = if e.kind() == std::io::ErrorKind::NotFound {
-                    "file not found".to_string()
-                } else {
-                    e.to_string().to_lowercase()
-                };
-                self.report(
-                    pos,
-                    format!("{what}: cannot read impedance file {file_label}: {why}"),
-                );
+        let text = match crate::plan::validate::read_text_file(&file, "impedance") {
+            Ok(t) => t,
+            Err(why) => {
+                self.report(pos, format!("{what}: {why}"));
                 return None;
             }
         };

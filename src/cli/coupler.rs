@@ -156,15 +156,7 @@ pub(crate) fn parse_frequencies(text: &str) -> Result<Vec<f64>, String> {
 
 fn load(args: &Args) -> Result<CouplerModel, Exit> {
     load_model(&args.model).map_err(|e| match e {
-        ModelError::Invalid(problems) => Exit::bad_input(anyhow::anyhow!(
-            "invalid coupler model ({} problem(s)):\n{}",
-            problems.len(),
-            problems
-                .iter()
-                .map(|p| p.to_string())
-                .collect::<Vec<_>>()
-                .join("\n")
-        )),
+        ModelError::Invalid(problems) => Exit::problems("coupler model", &problems),
         other => Exit::bad_input(other),
     })
 }

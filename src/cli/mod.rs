@@ -161,6 +161,19 @@ impl Exit {
             error: error.into(),
         }
     }
+    /// Every problem of a plan or model file as one bad-input error: a heading, then one
+    /// `path:line:col: message` line per problem.
+    pub fn problems<P: std::fmt::Display>(what: &str, problems: &[P]) -> Self {
+        Exit::bad_input(anyhow::anyhow!(
+            "invalid {what} ({} problem(s)):\n{}",
+            problems.len(),
+            problems
+                .iter()
+                .map(|p| p.to_string())
+                .collect::<Vec<_>>()
+                .join("\n")
+        ))
+    }
     /// A file or device the user named is wrong → bad input; the rig failed → retest.
     pub fn from_rig(e: crate::rig::RigError) -> Self {
         match e {

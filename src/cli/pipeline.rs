@@ -13,15 +13,7 @@ use std::path::Path;
 /// Load a plan; problems become one bad-input error listing every `path:line:col` line.
 pub(crate) fn load(path: &Path) -> Result<Plan, Exit> {
     load_plan(path).map_err(|e| match e {
-        PlanError::Invalid(problems) => Exit::bad_input(anyhow::anyhow!(
-            "invalid plan ({} problem(s)):\n{}",
-            problems.len(),
-            problems
-                .iter()
-                .map(|p| p.to_string())
-                .collect::<Vec<_>>()
-                .join("\n")
-        )),
+        PlanError::Invalid(problems) => Exit::problems("plan", &problems),
         other => Exit::bad_input(other),
     })
 }

@@ -1348,27 +1348,10 @@ impl Validator {
                 }
                 let file = self.dir.join(rel);
                 let file_label = file.display().to_string();
-                let text = match std::fs::read(&file) {
-                    Ok(bytes) => match String::from_utf8(bytes) {
-                        Ok(t) => t,
-                        Err(_) => {
-                            self.report(
-                                value_pos,
-                                format!("{what}: limit file {file_label} is not UTF-8 text"),
-                            );
-                            return None;
-                        }
-                    },
-                    Err(e) => {
-                        let why = if e.kind() == std::io::ErrorKind::NotFound {
-                            "file not found".to_string()
-                        } else {
-                            lower_first(&e.to_string())
-                        };
-                        self.report(
-                            value_pos,
-                            format!("{what}: cannot read limit file {file_label}: {why}"),
-                        );
+                let text = match read_text_file(&file, "limit") {
+                    Ok(t) => t,
+                    Err(why) => {
+                        self.report(value_pos, format!("{what}: {why}"));
                         return None;
                     }
                 };
@@ -1443,6 +1426,26 @@ impl Validator {
             points: points.iter().map(|(hz, db, _)| (*hz, *db)).collect(),
             origin,
         })
+    }
+}
+
+/// Read a data file named by a plan or model (`kind`: "limit", "impedance") as UTF-8 text;
+/// the error is the message tail: `cannot read limit file PATH: file not found`, or
+/// `limit file PATH is not UTF-8 text`.
+pub(crate) fn read_text_file(file: &std::path::Path, kind: &str) -> Result<String, String> {
+    let label = file.display();
+    match std::fs::read(file) {
+        Ok(bytes) => {
+            String::from_utf8(bytes).map_err(|_| format!("{kind} file {label} is not UTF-8 text"))
+        }
+        Err(e) => {
+            let why = if e.kind() == std::io::ErrorKind::NotFound {
+                "file not found".to_string()
+            } else {
+                lower_first(&e.to_string())
+            };
+            Err(format!("cannot read {kind} file {label}: {why}"))
+        }
     }
 }
 
