@@ -62,19 +62,6 @@ fn reference_chain(f: f64) -> Vec<TwoPort> {
         &air(),
     )]
 }
-fn fixture_chain(f: f64) -> Vec<TwoPort> {
-    // 3 mm × r 1.5 mm tube, 0.5 cm³ cavity, leak 5e7 Pa·s/m³ + 2000 kg/m⁴ (invented)
-    let a = air();
-    let leak = C64::new(5e7, omega(f) * 2000.0);
-    vec![
-        lossless_tube(f, 3e-3, 1.5e-3, &a),
-        TwoPort::shunt(cavity_admittance(f, 0.5e-6, &a) + C64::new(1.0, 0.0) / leak),
-    ]
-}
-fn z_and_t(chain: &[TwoPort]) -> (C64, C64) {
-    let m = chain.iter().fold(TwoPort::identity(), |acc, t| acc.then(t));
-    (m.a / m.c, C64::new(1.0, 0.0) / m.a)
-}
 
 #[test]
 fn correction_round_trip_and_the_cost_of_the_ideal_source() {

@@ -214,18 +214,7 @@ pub fn load_model_str(text: &str, path: &Path) -> Result<CouplerModel, ModelErro
                     message: "the coupler model could not be read".into(),
                 });
             }
-            // Model file first, then CSV files; by line and column, stable for ties.
-            problems.sort_by(|a, b| {
-                let key = |p: &Problem| {
-                    (
-                        p.location.path != label,
-                        p.location.path.clone(),
-                        p.location.line,
-                        p.location.col,
-                    )
-                };
-                key(a).cmp(&key(b))
-            });
+            crate::plan::validate::sort_problems(&mut problems, &label);
             Err(ModelError::Invalid(problems))
         }
     }

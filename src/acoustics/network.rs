@@ -108,7 +108,18 @@ impl Coupler {
     /// Evaluate at one frequency (Hz, > 0).
     pub fn evaluate(&self, freq_hz: f64) -> CouplerPoint {
         let mut taps = vec![(C64::new(0.0, 0.0), C64::new(0.0, 0.0)); self.n_taps()];
-        let input_impedance = self.evaluate_into(freq_hz, &mut taps);
+        self.point(freq_hz, &mut taps)
+    }
+
+    /// Evaluate at each of `freqs_hz` (Hz, > 0), reusing one tap buffer.
+    pub fn evaluate_many(&self, freqs_hz: &[f64]) -> Vec<CouplerPoint> {
+        let mut taps = vec![(C64::new(0.0, 0.0), C64::new(0.0, 0.0)); self.n_taps()];
+        freqs_hz.iter().map(|&f| self.point(f, &mut taps)).collect()
+    }
+
+    /// [`Coupler::evaluate_into`] with the taps named.
+    fn point(&self, freq_hz: f64, taps: &mut [(C64, C64)]) -> CouplerPoint {
+        let input_impedance = self.evaluate_into(freq_hz, taps);
         CouplerPoint {
             input_impedance,
             taps: self
@@ -117,24 +128,5 @@ impl Coupler {
                 .zip(taps.iter().copied())
                 .collect(),
         }
-    }
-
-    /// Evaluate at each of `freqs_hz` (Hz, > 0), reusing one tap buffer.
-    pub fn evaluate_many(&self, freqs_hz: &[f64]) -> Vec<CouplerPoint> {
-        let mut taps = vec![(C64::new(0.0, 0.0), C64::new(0.0, 0.0)); self.n_taps()];
-        freqs_hz
-            .iter()
-            .map(|&f| {
-                let input_impedance = self.evaluate_into(f, &mut taps);
-                CouplerPoint {
-                    input_impedance,
-                    taps: self
-                        .tap_names()
-                        .map(str::to_owned)
-                        .zip(taps.iter().copied())
-                        .collect(),
-                }
-            })
-            .collect()
     }
 }

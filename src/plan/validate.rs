@@ -117,9 +117,10 @@ pub fn load_plan_str(text: &str, path: &Path) -> Result<Plan, PlanError> {
     Err(PlanError::Invalid(problems))
 }
 
-/// Problems of the plan file first, then those of other files (limit CSVs) by path; within a
+/// Problems of the main file (plan or coupler model) first, then those of other files
+/// (limit or impedance CSVs) by path; within a
 /// file by line and column, keeping the order found for the same position.
-fn sort_problems(problems: &mut [Problem], plan_path: &str) {
+pub(crate) fn sort_problems(problems: &mut [Problem], plan_path: &str) {
     problems.sort_by(|a, b| {
         let key = |p: &Problem| {
             (

@@ -210,3 +210,21 @@ pub fn log_freqs(f0: f64, f1: f64, n: usize) -> Vec<f64> {
         .map(|i| f0 * (f1 / f0).powf(i as f64 / (n - 1) as f64))
         .collect()
 }
+
+/// Fixture: 3 mm × 1.5 mm-radius tube, then a 0.5 cm³ cavity with a leak (R 5e7 Pa·s/m³,
+/// M 2000 kg/m⁴) to the outside, microphone in the cavity. Invented test geometry.
+pub fn fixture_chain(f: f64) -> Vec<TwoPort> {
+    let a = air();
+    let leak = C64::new(5e7, omega(f) * 2000.0);
+    vec![
+        lossless_tube(f, 3e-3, 1.5e-3, &a),
+        TwoPort::shunt(cavity_admittance(f, 0.5e-6, &a) + C64::new(1.0, 0.0) / leak),
+    ]
+}
+
+/// (Z_in, p_end/p_in) of a rigid-ended chain by the two-port product.
+pub fn z_and_t(chain: &[TwoPort]) -> (C64, C64) {
+    let m = chain.iter().fold(TwoPort::identity(), |acc, t| acc.then(t));
+    // U2 = 0 at the rigid end: p1 = a·p2, U1 = c·p2.
+    (m.a / m.c, C64::new(1.0, 0.0) / m.a)
+}
