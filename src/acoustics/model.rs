@@ -324,6 +324,25 @@ impl Validator {
         };
 
         let read = read.filter(|r| r.ok)?;
+        if let (Some(Termination::Rigid), Some(n)) = (&termination, top.get_node("termination")) {
+            // Only series elements in front of a rigid wall: no volume velocity can flow, so
+            // the input impedance is infinite at every frequency and no source can drive the
+            // coupler. Refused here rather than carried as a non-finite number.
+            let drivable = read.items.iter().any(|(item, _)| {
+                matches!(item, ChainItem::Element(e) if !matches!(e, Element::Series { .. }))
+            });
+            if !drivable {
+                self.report(
+                    Pos::of(n.span()),
+                    "termination: a rigid end behind series elements only has an infinite \
+                     input impedance; expected a tube, slit, cavity or branch in the chain, \
+                     or a termination that admits flow (open_baffled, open_unbaffled, \
+                     impedance_csv, eardrum)"
+                        .into(),
+                );
+                return None;
+            }
+        }
         let chain: Vec<ChainItem> = read.items.into_iter().map(|(item, _)| item).collect();
         let mut model = CouplerModel {
             id: id?,
