@@ -12,7 +12,6 @@ use tragus::acoustics::model::load_model;
 use tragus::acoustics::network::{ChainItem, Coupler};
 use tragus::acoustics::source::EarphoneModel;
 use tragus::acoustics::termination::Termination;
-use tragus::acoustics::twoport::TwoPort;
 use tragus::acoustics::C64;
 use tragus::analysis::Analyzer;
 use tragus::dsp::sweep::Stimulus;
