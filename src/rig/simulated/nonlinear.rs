@@ -16,8 +16,9 @@
 //!   Bl(x)·i + F_rub = Mms·dv/dt + Rms·v + K(x)·x + Sd·p_acoustic
 //! ```
 //! Rub (the voice coil touching the gap when |x| passes a clearance) is a friction force
-//! `F_rub = −F_r·sgn(v)` while |x| > x_clear, made continuous over a narrow band (see
-//! [`Rub`]) so that the fixed-point iteration below has a fixed point to find.
+//! `F_rub = −F_r·sgn(v)` while |x| > x_clear, applied on the switching pattern of the
+//! smooth solution (see [`Rub`]) so that the fixed-point iteration below has a fixed point
+//! to find.
 //!
 //! # Method
 //! Every nonlinear term is split into its small-signal part and a remainder,
@@ -249,7 +250,8 @@ pub fn solve(
     let mut report = iterate(
         e_spec, bins, nl, None, &mut st, &mut w, settings, &mut total,
     );
-    if let (Some(r), true) = (rub, report.converged || report.relative_change.is_finite()) {
+    if let (Some(r), true) = (rub, report.relative_change.is_finite()) {
+        let smooth_converged = report.converged;
         let pattern: Vec<f64> =
             st.x.iter()
                 .zip(&st.v)
@@ -265,6 +267,7 @@ pub fn solve(
             settings,
             &mut total,
         );
+        report.converged &= smooth_converged;
     }
     report.iterations = total;
     (mic(&st.pg), report)
