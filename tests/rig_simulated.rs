@@ -510,7 +510,11 @@ fn defect_names_are_kebab_case_and_round_trip() {
             "low-sensitivity",
             "resonance-shift",
             "clipping",
-            "heavy-distortion"
+            "heavy-distortion",
+            "seal-leak",
+            "blocked-damper",
+            "weak-motor",
+            "rub"
         ]
     );
     for d in Defect::ALL {
@@ -525,11 +529,13 @@ fn defect_names_are_kebab_case_and_round_trip() {
     assert_eq!(
         "dead-chanel".parse::<Defect>().unwrap_err().to_string(),
         "expected one of reversed-polarity, dead-channel, low-sensitivity, resonance-shift, \
-         clipping, heavy-distortion, found \"dead-chanel\" (did you mean \"dead-channel\"?)"
+         clipping, heavy-distortion, seal-leak, blocked-damper, weak-motor, rub, \
+         found \"dead-chanel\" (did you mean \"dead-channel\"?)"
     );
     assert_eq!(
         "golden".parse::<UnitKind>().unwrap_err().to_string(),
         "expected one of nominal, reversed-polarity, dead-channel, low-sensitivity, \
-         resonance-shift, clipping, heavy-distortion, found \"golden\""
+         resonance-shift, clipping, heavy-distortion, seal-leak, blocked-damper, weak-motor, \
+         rub, found \"golden\""
     );
 }

@@ -131,7 +131,8 @@ impl EarphoneParams {
     /// gain so the input converter clips; heavy distortion scales a2 and a3 by 40, which
     /// scales HD2 and HD3 alike (each is linear in its coefficient): 0.30 % × 40 = 12 % re
     /// the drive, ≈ 10 % re the fundamental, which the cubic term swells by ~20 % at
-    /// this level (¾·a3·A²).
+    /// this level (¾·a3·A²). The physical defects (seal leak, blocked damper, weak motor,
+    /// rub) get behavioural stand-ins, documented in the match below.
     pub fn with_defect(mut self, defect: Defect) -> Self {
         match defect {
             Defect::ReversedPolarity => self.inverted = !self.inverted,
@@ -143,6 +144,20 @@ impl EarphoneParams {
                 self.nonlinearity.a2 *= 40.0;
                 self.nonlinearity.a3 *= 40.0;
             }
+            // The physical defects have no physics here (the physical rig models them);
+            // these are behavioural stand-ins with the same direction of effect.
+            // Seal leak: low frequencies lost, as a high-pass moved from 40 Hz to 240 Hz.
+            Defect::SealLeak => self.highpass_hz *= 6.0,
+            // Blocked damper: the main resonance damped flat and the top end 3 dB down.
+            Defect::BlockedDamper => {
+                self.resonance_gain_db = 0.0;
+                self.lowpass_hz *= 0.5;
+            }
+            // Weak motor: Bl −30 % is 20·log10(0.7) = −3.1 dB of sensitivity.
+            Defect::WeakMotor => self.gain_db += 20.0 * 0.7f64.log10(),
+            // Rub: no impulses in a polynomial; a steep cubic (a3 ×15) gives high-order-ish
+            // distortion instead.
+            Defect::Rub => self.nonlinearity.a3 *= 15.0,
         }
         self
     }

@@ -17,11 +17,20 @@
 
 pub mod biquad;
 pub mod earphone;
+pub mod nonlinear;
 pub mod oversample;
+pub mod physical;
+pub mod population;
 
 pub use biquad::Biquad;
 pub use earphone::{BehaviouralEarphone, EarphoneParams, PolynomialDut};
+pub use nonlinear::{MotorNonlinearity, Rub, SolveReport, SolverSettings};
 pub use oversample::{Oversampler4, Polynomial};
+pub use physical::{
+    Fixture, PhysicalEarphone, PhysicalParams, PhysicalRigError, Simulation, DRIVE_V_PER_FS,
+    MIC_FS_PER_PA, NOMINAL_NONLINEARITY,
+};
+pub use population::{physical_unit_params, PhysicalPopulation, PhysicalSpread, PHYSICAL_SPREAD};
 
 use super::{Capture, Rig, RigError};
 use crate::dsp::sweep::Stimulus;
@@ -44,6 +53,13 @@ pub trait Dut: Send + Sync {
     /// Drive (full scale) at `sample_rate_hz` → output as the input converter sees it
     /// (full scale), before noise and latency.
     fn respond(&self, drive: &[f64], sample_rate_hz: u32) -> Vec<f64>;
+
+    /// [`Dut::respond`] plus problems that make the capture a retest (a model that could
+    /// not be solved, say); the rig copies them into [`Capture::faults`]. The default
+    /// reports none.
+    fn respond_with_faults(&self, drive: &[f64], sample_rate_hz: u32) -> (Vec<f64>, Vec<String>) {
+        (self.respond(drive, sample_rate_hz), Vec::new())
+    }
 }
 
 /// Default latency of the simulated converters, samples (an invented, typical-looking
@@ -59,7 +75,8 @@ pub const RESONANCE_SPREAD: f64 = 0.02;
 pub const NONLINEARITY_SPREAD: f64 = 0.10;
 
 /// A named manufacturing defect of the simulated population (invented demo magnitudes; see
-/// [`EarphoneParams::with_defect`]).
+/// [`EarphoneParams::with_defect`] for the behavioural rig and
+/// [`PhysicalParams::with_defect`] for the physical one).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum Defect {
     /// Drive inverted: the response has the opposite sign.
@@ -74,17 +91,29 @@ pub enum Defect {
     Clipping,
     /// Distortion about 10 % THD at the sweep level.
     HeavyDistortion,
+    /// The earpiece does not seal on the fixture: low frequencies drop.
+    SealLeak,
+    /// The outlet damper is clogged (resistance ×10).
+    BlockedDamper,
+    /// Force factor 30 % low.
+    WeakMotor,
+    /// The voice coil rubs in the gap at large excursion (impulsive distortion).
+    Rub,
 }
 
 impl Defect {
     /// Every defect, in a fixed order.
-    pub const ALL: [Defect; 6] = [
+    pub const ALL: [Defect; 10] = [
         Defect::ReversedPolarity,
         Defect::DeadChannel,
         Defect::LowSensitivity,
         Defect::ResonanceShift,
         Defect::Clipping,
         Defect::HeavyDistortion,
+        Defect::SealLeak,
+        Defect::BlockedDamper,
+        Defect::WeakMotor,
+        Defect::Rub,
     ];
 
     /// The kebab-case name used on the command line and in records.
@@ -96,6 +125,10 @@ impl Defect {
             Defect::ResonanceShift => "resonance-shift",
             Defect::Clipping => "clipping",
             Defect::HeavyDistortion => "heavy-distortion",
+            Defect::SealLeak => "seal-leak",
+            Defect::BlockedDamper => "blocked-damper",
+            Defect::WeakMotor => "weak-motor",
+            Defect::Rub => "rub",
         }
     }
 }
@@ -223,8 +256,10 @@ pub struct SimulatedRig {
     routes: Vec<(usize, usize)>,
     /// One device per route.
     duts: Vec<Box<dyn Dut>>,
-    /// Behavioural parameters per route (empty when built from custom devices).
+    /// Behavioural parameters per route (empty when built from custom devices or v2).
     params: Vec<EarphoneParams>,
+    /// Physical parameters per route (empty unless built by [`SimulatedRig::physical`]).
+    physical: Vec<PhysicalParams>,
     /// The simulated unit (None for custom devices).
     unit: Option<SimUnit>,
     seed: u64,
@@ -257,6 +292,7 @@ impl SimulatedRig {
             routes,
             duts,
             params,
+            physical: Vec::new(),
             noise_tag: unit.serial.clone(),
             unit: Some(unit),
             seed,
@@ -277,6 +313,7 @@ impl SimulatedRig {
             routes,
             duts,
             params: Vec::new(),
+            physical: Vec::new(),
             unit: None,
             seed,
             noise_tag: "custom-devices".into(),
@@ -314,9 +351,58 @@ impl SimulatedRig {
     }
 
     /// The behavioural parameters per route (spread and defect applied); empty for a rig
-    /// built with [`SimulatedRig::with_duts`].
+    /// built with [`SimulatedRig::with_duts`] or [`SimulatedRig::physical`].
     pub fn earphone_params(&self) -> &[EarphoneParams] {
         &self.params
+    }
+
+    /// A rig measuring `unit` of population `seed` with the physical earphone (v2): each
+    /// route's earpiece is the nominal demo driver with its own seeded spread
+    /// ([`physical_unit_params`]), seated in `fixture` and read at its microphone tap
+    /// `tap`; the defect, if any, on `unit.defect_channel`. Latency 96 samples, noise
+    /// −96 dBFS rms. To measure many units in one fixture, build a [`PhysicalPopulation`]
+    /// once and call [`PhysicalPopulation::rig`], which shares the per-frequency tables.
+    pub fn physical(
+        routes: Vec<(usize, usize)>,
+        seed: u64,
+        unit: SimUnit,
+        fixture: crate::acoustics::network::Coupler,
+        tap: &str,
+    ) -> Result<Self, PhysicalRigError> {
+        Ok(PhysicalPopulation::new(fixture, tap)?.rig(routes, seed, unit))
+    }
+
+    /// A v2 rig from per-route physical earpieces already built (see
+    /// [`PhysicalPopulation::rig`]).
+    pub(crate) fn from_physical(
+        routes: Vec<(usize, usize)>,
+        seed: u64,
+        unit: SimUnit,
+        earpieces: Vec<PhysicalEarphone>,
+    ) -> Self {
+        let physical = earpieces.iter().map(|e| e.params.clone()).collect();
+        let duts = earpieces
+            .into_iter()
+            .map(|e| Box::new(e) as Box<dyn Dut>)
+            .collect();
+        SimulatedRig {
+            routes,
+            duts,
+            params: Vec::new(),
+            physical,
+            noise_tag: unit.serial.clone(),
+            unit: Some(unit),
+            seed,
+            latency_samples: DEFAULT_LATENCY_SAMPLES,
+            noise_rms_dbfs: Some(DEFAULT_NOISE_RMS_DBFS),
+            n_runs: 0,
+        }
+    }
+
+    /// The physical parameters per route (spread and defect applied); empty unless built
+    /// with [`SimulatedRig::physical`] or [`PhysicalPopulation::rig`].
+    pub fn physical_params(&self) -> &[PhysicalParams] {
+        &self.physical
     }
 
     fn bad(message: String) -> RigError {
@@ -364,9 +450,15 @@ impl Rig for SimulatedRig {
             .unwrap_or(0)
             .max(n_inputs);
         let mut acoustic = vec![vec![0.0f64; n]; n_channels];
-        for (&(o, i), dut) in self.routes.iter().zip(&self.duts) {
+        let mut faults = Vec::new();
+        for (c, (&(o, i), dut)) in self.routes.iter().zip(&self.duts).enumerate() {
             let drive: Vec<f64> = stimulus.channels[o].iter().map(|&v| f64::from(v)).collect();
-            let out = dut.respond(&drive, fs);
+            let (out, dut_faults) = dut.respond_with_faults(&drive, fs);
+            faults.extend(
+                dut_faults
+                    .into_iter()
+                    .map(|f| format!("channel {c} (input {}): {f}", i + 1)),
+            );
             // Latency: capture sample k holds the device's output at k − latency.
             for (k, v) in out
                 .iter()
@@ -388,8 +480,13 @@ impl Rig for SimulatedRig {
                             Some(s) => s * noise_rng.sample::<f64, _>(StandardNormal),
                             None => 0.0,
                         };
-                        // The input converter clips at full scale.
-                        (v + noise).clamp(-1.0, 1.0) as f32
+                        // The input converter clips at full scale (and never passes NaN).
+                        let s = v + noise;
+                        if s.is_nan() {
+                            0.0
+                        } else {
+                            s.clamp(-1.0, 1.0) as f32
+                        }
                     })
                     .collect()
             })
@@ -398,7 +495,7 @@ impl Rig for SimulatedRig {
             sample_rate_hz: fs,
             channels,
             xruns: 0,
-            faults: Vec::new(),
+            faults,
         })
     }
 }
