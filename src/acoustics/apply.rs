@@ -40,7 +40,7 @@ use crate::result::{CorrectionInfo, CouplerRef};
 /// Points per octave of the log grid on which C is evaluated for the fine spectrum.
 /// 96 per octave keeps the interpolation error of the shipped models below 1e-4 dB; see
 /// the module doc.
-pub const DENSE_POINTS_PER_OCTAVE: f64 = 96.0;
+pub const DENSE_POINTS_PER_OCTAVE: f64 = 384.0;
 
 /// The band over which a plan's correction must be defined, Hz: from the sweep's start to
 /// its stop, or, when harmonics are analysed, to the highest n·f the analysis reports
@@ -102,7 +102,21 @@ fn catmull_rom(y: &[f64], x: f64) -> f64 {
     let x = x.clamp(0.0, (n - 1) as f64);
     let i = (x.floor() as usize).min(n - 2);
     let t = x - i as f64;
-    let at = |k: isize| y[k.clamp(0, n as isize - 1) as usize];
+    // Beyond an end, the neighbour is extrapolated by the quadratic through the three end
+    // samples (y₋₁ = 3y₀ − 3y₁ + y₂), so the end intervals keep the interior's order.
+    let at = |k: isize| -> f64 {
+        let last = n as isize - 1;
+        if (0..=last).contains(&k) {
+            y[k as usize]
+        } else if n < 3 {
+            y[k.clamp(0, last) as usize]
+        } else if k < 0 {
+            3.0 * y[0] - 3.0 * y[1] + y[2]
+        } else {
+            let l = last as usize;
+            3.0 * y[l] - 3.0 * y[l - 1] + y[l - 2]
+        }
+    };
     let (p0, p1, p2, p3) = (
         at(i as isize - 1),
         at(i as isize),
