@@ -5,7 +5,6 @@
 //! earphone parameter file and the fine-spectrum interpolation of the correction.
 
 mod common;
-#[allow(dead_code)]
 mod source_support;
 
 use common::*;

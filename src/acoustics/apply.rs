@@ -72,7 +72,7 @@ pub struct SetupError {
     pub reference: String,
     /// What went wrong (a non-finite factor names its frequency).
     #[source]
-    pub source: CorrectionError,
+    pub source: Box<CorrectionError>,
 }
 
 /// One channel's correction, tabulated where the measurement has values.
@@ -316,7 +316,7 @@ impl PlanCorrections {
                                 channel: ch.name.clone(),
                                 fixture: spec.fixture.id.clone(),
                                 reference: spec.reference.id.clone(),
-                                source: e,
+                                source: Box::new(e),
                             }
                         })?),
                     }

@@ -205,7 +205,7 @@ pub enum RawCorrectionEntry {
     /// `correction: none`, at this position.
     Off(Pos),
     /// A mapping of correction keys.
-    On(Section<RawCorrection>),
+    On(Box<Section<RawCorrection>>),
 }
 
 /// `correction:` keys (paths relative to the plan file).
@@ -705,11 +705,11 @@ impl Decoder<'_> {
         ctx: &str,
     ) -> Option<RawCorrectionEntry> {
         match node {
-            Node::Mapping(m) => Some(RawCorrectionEntry::On(self.section(
+            Node::Mapping(m) => Some(RawCorrectionEntry::On(Box::new(self.section(
                 m,
                 mapping_pos(m, key_pos),
                 ctx,
-            ))),
+            )))),
             Node::Scalar(s) if s.as_str() == "none" => {
                 Some(RawCorrectionEntry::Off(Pos::of(node.span())))
             }
