@@ -17,18 +17,16 @@ fn freqs() -> Vec<f64> {
 
 fn bench(c: &mut Criterion) {
     let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("reference/couplers");
-    let fixture = load_model(&root.join("fixture-line3-a.yaml"))
-        .expect("fixture")
-        .coupler();
-    let reference = load_model(&root.join("occluded-ear.yaml"))
-        .expect("reference")
-        .coupler();
+    let fixture = load_model(&root.join("fixture-line3-a.yaml")).expect("fixture");
+    let reference_model = load_model(&root.join("occluded-ear.yaml")).expect("reference");
+    let reference = reference_model.coupler();
     let f = freqs();
     c.bench_function("coupler evaluate, 1000 frequencies (occluded ear)", |b| {
         b.iter(|| black_box(reference.evaluate_many(black_box(&f))))
     });
     let source = Source::VirtualEarphone(EarphoneModel::demo(Air::standard()));
-    let corr = Correction::new(&fixture, &reference, "mic", "eardrum", &source).expect("taps");
+    let corr =
+        Correction::new(&fixture, &reference_model, "mic", "eardrum", &source).expect("taps");
     c.bench_function("correction factor, 1000 frequencies", |b| {
         b.iter(|| {
             for &x in &f {

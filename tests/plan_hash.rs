@@ -129,3 +129,29 @@ fn editing_a_limit_csv_changes_the_hash() {
     let commented = format!("# reviewed\n{csv}");
     assert_eq!(load_in_dir(&text, &commented).sha256, base);
 }
+
+#[test]
+fn hash_with_corrections_matches_the_independent_implementation() {
+    // expected-corrected.txt was written by tests/reference/plan_canonical.py, which
+    // recomputes the coupler models' hashes and the earphone's canonical form from their
+    // documented forms (and reads the Thévenin table itself).
+    let expected = fs::read_to_string("tests/data/plans/hash/expected-corrected.txt").unwrap();
+    let mut lines = expected.lines();
+    let (json, sha) = (lines.next().unwrap(), lines.next().unwrap());
+    let plan = load_plan(Path::new("tests/data/plans/hash/corrected.yaml")).unwrap();
+    let ours = canonical_json(&plan);
+    if ours != json {
+        let at = ours
+            .bytes()
+            .zip(json.bytes())
+            .position(|(a, b)| a != b)
+            .unwrap_or(ours.len().min(json.len()));
+        let from = at.saturating_sub(80);
+        panic!(
+            "differ at byte {at}:\n ours: {}\n want: {}",
+            &ours[from..(at + 80).min(ours.len())],
+            &json[from..(at + 80).min(json.len())]
+        );
+    }
+    assert_eq!(plan.sha256, sha);
+}

@@ -57,6 +57,7 @@ fn loopback_plan_is_the_station_self_test() {
             name: "loop".into(),
             output: 0,
             input: 0,
+            correction: None,
         }],
         rig: RigSpec::Simulated { seed: 1 },
         checks: vec![
@@ -117,11 +118,13 @@ fn reference_plan_loads_every_kind() {
                 name: "left".into(),
                 output: 0,
                 input: 1,
+                correction: None,
             },
             ChannelSpec {
                 name: "right".into(),
                 output: 1,
                 input: 0,
+                correction: None,
             },
         ],
         rig: RigSpec::Simulated { seed: u64::MAX },

@@ -12,12 +12,15 @@
 //! [`termination`] (rigid, radiating, tabulated, eardrum), [`eardrum`] (Kringlebotn 1988),
 //! [`network`] (a coupler: chain + taps → input impedance and transfer functions),
 //! [`model`] (coupler YAML files), [`source`] (volume-velocity, Thévenin, virtual earphone),
-//! [`correction`] (fixture → reference).
+//! [`earphone_file`] (virtual-earphone YAML files), [`correction`] (fixture → reference),
+//! [`apply`] (the correction of a plan, built once and applied to each measurement).
 
 pub mod air;
+pub mod apply;
 pub mod bessel;
 pub mod correction;
 pub mod eardrum;
+pub mod earphone_file;
 pub mod elements;
 pub mod model;
 pub mod network;

@@ -220,10 +220,13 @@ pub fn load_model_str(text: &str, path: &Path) -> Result<CouplerModel, ModelErro
     }
 }
 
-struct Validator {
-    path: String,
-    dir: PathBuf,
-    problems: Vec<Problem>,
+/// The node-level checks of project YAML files (coupler models, earphone files): each
+/// problem is recorded at the node that caused it, in the file labelled `path`. Shared so
+/// that another file kind reuses the element syntax and the messages of coupler models.
+pub(crate) struct Validator {
+    pub(crate) path: String,
+    pub(crate) dir: PathBuf,
+    pub(crate) problems: Vec<Problem>,
 }
 
 /// What [`Validator::chain`] read.
@@ -238,15 +241,24 @@ struct ChainRead {
 }
 
 /// Where a chain is, for messages and for the open-end radius.
-struct ChainCtx<'a> {
+pub(crate) struct ChainCtx<'a> {
     /// Path prefix of its items (`elements`, `elements[3].branch.elements`).
-    prefix: &'a str,
+    pub(crate) prefix: &'a str,
     /// Whether taps are allowed (main chain only).
-    taps_allowed: bool,
+    pub(crate) taps_allowed: bool,
 }
 
 impl Validator {
-    fn report(&mut self, pos: Pos, message: String) {
+    /// A validator for the file labelled `path`, whose relative paths resolve against `dir`.
+    pub(crate) fn new(path: String, dir: PathBuf) -> Self {
+        Validator {
+            path,
+            dir,
+            problems: Vec::new(),
+        }
+    }
+
+    pub(crate) fn report(&mut self, pos: Pos, message: String) {
         self.problems.push(Problem {
             location: pos.at(&self.path),
             message,
@@ -359,7 +371,7 @@ impl Validator {
     }
 
     /// Report keys of `map` not in `known`, with a suggestion.
-    fn unknown_keys(&mut self, map: &MarkedMappingNode, known: &[&str], ctx: &str) {
+    pub(crate) fn unknown_keys(&mut self, map: &MarkedMappingNode, known: &[&str], ctx: &str) {
         for k in map.keys() {
             if !known.contains(&k.as_str()) {
                 let hint = match suggest(k.as_str(), known.iter().copied()) {
@@ -380,7 +392,7 @@ impl Validator {
     }
 
     /// A scalar's text, or a problem.
-    fn scalar(&mut self, n: &Node, what: &str, expected: &str) -> Option<String> {
+    pub(crate) fn scalar(&mut self, n: &Node, what: &str, expected: &str) -> Option<String> {
         match n {
             Node::Scalar(s) if !s.is_empty() => Some(s.as_str().to_string()),
             other => {
@@ -394,7 +406,7 @@ impl Validator {
     }
 
     /// A finite number, or a problem.
-    fn number(&mut self, n: &Node, what: &str) -> Option<f64> {
+    pub(crate) fn number(&mut self, n: &Node, what: &str) -> Option<f64> {
         let text = self.scalar(n, what, "a number")?;
         match text.trim().replace('_', "").parse::<f64>() {
             Ok(x) if x.is_finite() => Some(x),
@@ -411,7 +423,13 @@ impl Validator {
         }
     }
 
-    fn number_in(&mut self, n: &Node, what: &str, range: (f64, f64), unit: &str) -> Option<f64> {
+    pub(crate) fn number_in(
+        &mut self,
+        n: &Node,
+        what: &str,
+        range: (f64, f64),
+        unit: &str,
+    ) -> Option<f64> {
         let x = self.number(n, what)?;
         if x >= range.0 && x <= range.1 {
             Some(x)
@@ -428,7 +446,7 @@ impl Validator {
     }
 
     /// A number above 0 (a size), in the unit written.
-    fn positive(&mut self, n: &Node, what: &str, unit: &str) -> Option<f64> {
+    pub(crate) fn positive(&mut self, n: &Node, what: &str, unit: &str) -> Option<f64> {
         let x = self.number(n, what)?;
         if x > 0.0 {
             Some(x)
@@ -443,7 +461,7 @@ impl Validator {
 
     /// The keys of an element's mapping: unknown ones reported, required ones checked.
     /// Returns the value nodes of `keys` (in order); `None` per missing key.
-    fn fields<'n>(
+    pub(crate) fn fields<'n>(
         &mut self,
         node: &'n Node,
         what: &str,
@@ -547,7 +565,7 @@ impl Validator {
     }
 
     /// One list item: a mapping with exactly one element kind.
-    fn item(&mut self, item: &Node, what: &str, ctx: &ChainCtx) -> Option<ChainItem> {
+    pub(crate) fn item(&mut self, item: &Node, what: &str, ctx: &ChainCtx) -> Option<ChainItem> {
         let map = match item {
             Node::Mapping(m) if m.len() == 1 => m,
             Node::Mapping(m) => {
@@ -754,7 +772,7 @@ impl Validator {
         }
     }
 
-    fn loss(&mut self, n: &Node, what: &str) -> Option<TubeLoss> {
+    pub(crate) fn loss(&mut self, n: &Node, what: &str) -> Option<TubeLoss> {
         let s = self.scalar(n, what, "a loss model")?;
         match s.as_str() {
             "zwikker_kosten" => Some(TubeLoss::ZwikkerKosten),
@@ -1048,7 +1066,7 @@ pub fn parse_impedance_csv(text: &str, path: &str) -> (Vec<(f64, C64)>, Vec<Prob
     (points, problems)
 }
 
-fn loss_name(loss: TubeLoss) -> &'static str {
+pub(crate) fn loss_name(loss: TubeLoss) -> &'static str {
     match loss {
         TubeLoss::ZwikkerKosten => "zwikker_kosten",
         TubeLoss::Keefe => "keefe",
@@ -1057,11 +1075,11 @@ fn loss_name(loss: TubeLoss) -> &'static str {
 }
 
 /// serde_json 1 writes `-0.0` as `-0.0`; the canonical form writes it as `0.0`.
-fn real(x: f64) -> Value {
+pub(crate) fn real(x: f64) -> Value {
     json!(if x == 0.0 { 0.0 } else { x })
 }
 
-fn element_value(e: &Element) -> Value {
+pub(crate) fn element_value(e: &Element) -> Value {
     // Keys written in sorted order, so the document is canonical whether or not
     // serde_json keeps insertion order.
     match e {

@@ -72,37 +72,7 @@ impl Coupler {
     /// # Panics
     /// If `taps_out.len() != self.n_taps()` (a programmer error).
     pub fn evaluate_into(&self, freq_hz: f64, taps_out: &mut [(C64, C64)]) -> C64 {
-        assert_eq!(taps_out.len(), self.n_taps(), "taps_out length");
-        let (mut p, mut u) = match self.termination.impedance(freq_hz, &self.air) {
-            None => (C64::new(1.0, 0.0), C64::new(0.0, 0.0)),
-            Some(z) => (z, C64::new(1.0, 0.0)),
-        };
-        let mut k = taps_out.len();
-        for item in self.chain.iter().rev() {
-            match item {
-                ChainItem::Element(e) => {
-                    let m = e.two_port(freq_hz, &self.air);
-                    let p1 = m.a * p + m.b * u;
-                    let u1 = m.c * p + m.d * u;
-                    // Keep the state near unit size; only ratios matter.
-                    let scale = 1.0 / p1.norm().max(u1.norm() * 1e7).max(1e-300);
-                    p = p1 * scale;
-                    u = u1 * scale;
-                    for t in taps_out[k..].iter_mut() {
-                        t.0 *= scale;
-                    }
-                }
-                ChainItem::Tap(_) => {
-                    k -= 1;
-                    taps_out[k] = (p, C64::new(0.0, 0.0));
-                }
-            }
-        }
-        for t in taps_out.iter_mut() {
-            let p_tap = t.0;
-            *t = (p_tap / u, p_tap / p);
-        }
-        p / u
+        evaluate_chain_into(&self.air, &self.chain, &self.termination, freq_hz, taps_out)
     }
 
     /// Evaluate at one frequency (Hz, > 0).
@@ -129,4 +99,54 @@ impl Coupler {
                 .collect(),
         }
     }
+}
+
+/// [`Coupler::evaluate_into`] over borrowed parts (a loaded model evaluates without
+/// building a [`Coupler`]): the input impedance, and per tap in chain order
+/// (p_tap/U_in, p_tap/p_in) in `taps_out`.
+///
+/// # Panics
+/// If `taps_out.len()` is not the number of taps in `chain` (a programmer error).
+pub fn evaluate_chain_into(
+    air: &Air,
+    chain: &[ChainItem],
+    termination: &Termination,
+    freq_hz: f64,
+    taps_out: &mut [(C64, C64)],
+) -> C64 {
+    let n_taps = chain
+        .iter()
+        .filter(|i| matches!(i, ChainItem::Tap(_)))
+        .count();
+    assert_eq!(taps_out.len(), n_taps, "taps_out length");
+    let (mut p, mut u) = match termination.impedance(freq_hz, air) {
+        None => (C64::new(1.0, 0.0), C64::new(0.0, 0.0)),
+        Some(z) => (z, C64::new(1.0, 0.0)),
+    };
+    let mut k = taps_out.len();
+    for item in chain.iter().rev() {
+        match item {
+            ChainItem::Element(e) => {
+                let m = e.two_port(freq_hz, air);
+                let p1 = m.a * p + m.b * u;
+                let u1 = m.c * p + m.d * u;
+                // Keep the state near unit size; only ratios matter.
+                let scale = 1.0 / p1.norm().max(u1.norm() * 1e7).max(1e-300);
+                p = p1 * scale;
+                u = u1 * scale;
+                for t in taps_out[k..].iter_mut() {
+                    t.0 *= scale;
+                }
+            }
+            ChainItem::Tap(_) => {
+                k -= 1;
+                taps_out[k] = (p, C64::new(0.0, 0.0));
+            }
+        }
+    }
+    for t in taps_out.iter_mut() {
+        let p_tap = t.0;
+        *t = (p_tap / u, p_tap / p);
+    }
+    p / u
 }

@@ -144,7 +144,19 @@ impl Source {
                 }
                 s
             }
-            Source::VirtualEarphone(m) => format!("virtual-earphone;{m:?}"),
+            Source::VirtualEarphone(m) => format!(
+                "virtual-earphone;{}",
+                super::earphone_file::canonical_json(m)
+            ),
+        }
+    }
+
+    /// The kind as written in a plan: `volume_velocity`, `thevenin_csv`, `virtual_earphone`.
+    pub fn kind_name(&self) -> &'static str {
+        match self {
+            Source::VolumeVelocity => "volume_velocity",
+            Source::Thevenin { .. } => "thevenin_csv",
+            Source::VirtualEarphone(_) => "virtual_earphone",
         }
     }
 

@@ -79,7 +79,7 @@ const HARMONIC_LEAD_FRACTION: f64 = 0.2;
 
 /// Harmonics are reported only where n·f is below this fraction of Nyquist, where the
 /// analytic inverse starts its taper.
-const HARMONIC_TOP_FRACTION_OF_NYQUIST: f64 = 0.9;
+pub const HARMONIC_TOP_FRACTION_OF_NYQUIST: f64 = 0.9;
 
 /// Why an analyzer cannot be built or a capture cannot be analysed at all.
 #[derive(Debug, thiserror::Error)]
@@ -476,6 +476,21 @@ impl Analyzer {
         self.max_harmonic
     }
 
+    /// Bin spacing of the fine spectrum ([`FineSpectrum::df_hz`]), Hz.
+    pub fn fine_df_hz(&self) -> f64 {
+        self.fs_hz / self.n_fine as f64
+    }
+
+    /// Number of bins of the fine spectrum (0 Hz to Nyquist).
+    pub fn fine_n_bins(&self) -> usize {
+        self.n_fine / 2 + 1
+    }
+
+    /// Highest n·f at which a harmonic is reported, Hz (above it `harmonics_db` is null).
+    pub fn harmonic_top_hz(&self) -> f64 {
+        HARMONIC_TOP_FRACTION_OF_NYQUIST * 0.5 * self.fs_hz
+    }
+
     /// Analyse every plan channel of a capture; rig-level problems (xruns, faults) make
     /// every channel a retest.
     pub fn analyze(
@@ -780,6 +795,8 @@ impl Analyzer {
             harmonics_db,
             rub_buzz_db,
             retest_reasons: reasons,
+            fixture_response_db: None,
+            correction: None,
             fine,
         }
     }

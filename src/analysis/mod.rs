@@ -5,7 +5,7 @@
 
 mod analyzer;
 
-pub use analyzer::{AnalysisError, Analyzer};
+pub use analyzer::{AnalysisError, Analyzer, HARMONIC_TOP_FRACTION_OF_NYQUIST};
 
 use crate::plan::Polarity;
 use std::collections::BTreeMap;
@@ -102,6 +102,14 @@ pub struct ChannelMeasurement {
     pub rub_buzz_db: Vec<Option<f64>>,
     /// Reasons this channel's measurement is not valid (empty when valid).
     pub retest_reasons: Vec<RetestReason>,
+    /// The response at the fixture's microphone before the fixture→reference correction,
+    /// dB, on `frequencies_hz`; present only when the channel was corrected (then
+    /// `response_db` is the corrected one), so that an auditor sees both.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub fixture_response_db: Option<Vec<f64>>,
+    /// Which fixture→reference correction was applied; absent when none was.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub correction: Option<crate::result::CorrectionInfo>,
     /// Fine linear spectrum for smoothing (not serialised).
     #[serde(skip)]
     pub fine: FineSpectrum,
@@ -124,19 +132,26 @@ pub struct FineSpectrum {
 impl FineSpectrum {
     /// Build from per-bin power, computing the running integral.
     pub fn new(df_hz: f64, power: Vec<f64>, band_hz: (f64, f64)) -> Self {
-        let mut cumulative = Vec::with_capacity(power.len());
-        let mut acc = 0.0;
-        for (k, p) in power.iter().enumerate() {
-            if k > 0 {
-                acc += 0.5 * (power[k - 1] + p) * df_hz;
-            }
-            cumulative.push(acc);
-        }
-        FineSpectrum {
+        let mut fine = FineSpectrum {
             df_hz,
             power,
             band_hz,
-            cumulative,
+            cumulative: Vec::new(),
+        };
+        fine.rebuild_cumulative();
+        fine
+    }
+
+    /// Recompute the running integral after `power` changed (in place, no allocation once
+    /// `cumulative` has its length).
+    pub fn rebuild_cumulative(&mut self) {
+        self.cumulative.resize(self.power.len(), 0.0);
+        let mut acc = 0.0;
+        for k in 0..self.power.len() {
+            if k > 0 {
+                acc += 0.5 * (self.power[k - 1] + self.power[k]) * self.df_hz;
+            }
+            self.cumulative[k] = acc;
         }
     }
 }

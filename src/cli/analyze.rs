@@ -18,13 +18,17 @@ pub struct Args {
     /// Serial number to put in the result.
     #[arg(long, default_value = "")]
     pub serial: String,
+    /// The station's own fixture model: replaces the plan's `correction.fixture` for every
+    /// corrected channel (the plan's `fixture_tap` must exist in it).
+    #[arg(long, value_name = "MODEL.yaml")]
+    pub fixture: Option<PathBuf>,
     /// Write the result JSON here (`-` for stdout: human output then goes nowhere).
     #[arg(long, value_name = "OUT")]
     pub json: Option<JsonOut>,
 }
 
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
-    let mut prep = pipeline::prepare(&args.plan)?;
+    let mut prep = pipeline::prepare(&args.plan, args.fixture.as_deref())?;
     let mut rig = RecordingRig::open(&args.capture).map_err(Exit::from_rig)?;
     let capture = rig
         .play_and_capture(&prep.stimulus, prep.plan.n_inputs())

@@ -1,6 +1,8 @@
 //! One unit through the stages: capture → measurement → verdicts → result.
 
 use super::Exit;
+use crate::acoustics::apply::PlanCorrections;
+use crate::acoustics::model::{load_model, ModelError};
 use crate::analysis::Analyzer;
 use crate::checks;
 use crate::dsp::sweep::Stimulus;
@@ -23,16 +25,64 @@ pub(crate) struct Prepared {
     pub plan: Plan,
     pub stimulus: Stimulus,
     pub analyzer: Analyzer,
+    /// The fixture→reference correction of each channel, tabulated for `analyzer`.
+    pub corrections: PlanCorrections,
 }
 
-pub(crate) fn prepare(path: &Path) -> Result<Prepared, Exit> {
-    let plan = load(path)?;
+/// Replace the fixture model of every corrected channel with the station's own
+/// (`--fixture`); its tap must be the one the plan names.
+fn use_station_fixture(plan: &mut Plan, fixture: &Path) -> Result<(), Exit> {
+    let model = load_model(fixture).map_err(|e| match e {
+        ModelError::Invalid(problems) => Exit::problems("coupler model", &problems),
+        other => Exit::bad_input(other),
+    })?;
+    let taps = model.tap_names();
+    if plan.channels.iter().all(|c| c.correction.is_none()) {
+        tracing::warn!(
+            fixture = %fixture.display(),
+            "--fixture given, but the plan corrects no channel; the model is not used"
+        );
+    }
+    for ch in &mut plan.channels {
+        if let Some(c) = &mut ch.correction {
+            if !taps.contains(&c.fixture_tap.as_str()) {
+                return Err(Exit::bad_input(anyhow::anyhow!(
+                    "--fixture {}: expected a tap `{}` (the plan's fixture_tap for channel {}), \
+                     found taps {}",
+                    fixture.display(),
+                    c.fixture_tap,
+                    ch.name,
+                    taps.join(", ")
+                )));
+            }
+            c.fixture = model.clone();
+        }
+    }
+    Ok(())
+}
+
+/// Load the plan (with the station's fixture model when given) and build everything a
+/// unit needs: stimulus, analyzer, corrections.
+pub(crate) fn prepare(path: &Path, fixture: Option<&Path>) -> Result<Prepared, Exit> {
+    let mut plan = load(path)?;
+    if let Some(f) = fixture {
+        use_station_fixture(&mut plan, f)?;
+    }
     let stimulus = Stimulus::from_plan(&plan).map_err(Exit::bad_input)?;
     let analyzer = Analyzer::new(&plan, &stimulus).map_err(Exit::bad_input)?;
+    let started = std::time::Instant::now();
+    let corrections = PlanCorrections::new(&plan, &analyzer).map_err(Exit::bad_input)?;
+    if corrections.any() {
+        tracing::info!(
+            setup_ms = started.elapsed().as_secs_f64() * 1e3,
+            "fixture→reference correction tabulated"
+        );
+    }
     Ok(Prepared {
         plan,
         stimulus,
         analyzer,
+        corrections,
     })
 }
 
@@ -44,10 +94,11 @@ pub(crate) fn judge_capture(
     rig: &str,
     simulated_unit: Option<String>,
 ) -> Result<UnitResult, Exit> {
-    let channels = prep
+    let mut channels = prep
         .analyzer
         .analyze(capture, &prep.plan.channels)
         .map_err(Exit::bad_input)?;
+    prep.corrections.apply(&mut channels);
     let (checks, mut verdict) = checks::judge(&prep.plan, &channels);
     let mut retest_reasons = Vec::new();
     for ch in &channels {

@@ -46,6 +46,10 @@ pub struct Args {
     /// Simulated rig: the plan channel that carries the defect (default: the first).
     #[arg(long, value_name = "CHANNEL")]
     pub sim_channel: Option<String>,
+    /// The station's own fixture model: replaces the plan's `correction.fixture` for every
+    /// corrected channel (the plan's `fixture_tap` must exist in it).
+    #[arg(long, value_name = "MODEL.yaml")]
+    pub fixture: Option<PathBuf>,
     /// Write the result JSON here (`-` for stdout: human output then goes nowhere).
     #[arg(long, value_name = "OUT")]
     pub json: Option<JsonOut>,
@@ -65,7 +69,7 @@ fn parse_sim_unit(s: &str) -> Result<UnitKind, Exit> {
 }
 
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
-    let mut prep = pipeline::prepare(&args.plan)?;
+    let mut prep = pipeline::prepare(&args.plan, args.fixture.as_deref())?;
     let choice = args.rig.unwrap_or(match prep.plan.rig {
         RigSpec::Simulated { .. } => RigChoice::Simulated,
         RigSpec::Soundcard => RigChoice::Soundcard,

@@ -27,7 +27,7 @@
 //! ```text
 //! {"analysis":{"max_harmonic":I,"min_snr_db":R,"points_per_octave":I},
 //!  "canonical":"tragus-plan/1",
-//!  "channels":[{"input":I,"name":S,"output":I},...],        (0-based channel indices)
+//!  "channels":[{"input":I,"name":S,"output":I[,"correction":CORR]},...],  (0-based indices)
 //!  "checks":[{"channels":[S,...],"id":S,"kind":S, ...kind fields...},...],
 //!  "description":S,"id":S,"revision":I,
 //!  "rig":{"kind":"simulated","seed":I} | {"kind":"soundcard"},
@@ -46,10 +46,32 @@
 //! - `polarity`: `"expected"`: `"positive"` or `"negative"`;
 //! - `balance`: `"band"`, `"max_diff_db"`, `"smoothing_fraction"` (I or `null`);
 //!
-//! where `"band"` is `{"high_hz":R,"low_hz":R}`. `"canonical"` names this version of the
+//! where `"band"` is `{"high_hz":R,"low_hz":R}`.
+//!
+//! A channel's `"correction"` key is present only when the channel is corrected (the
+//! plan-wide `correction:` applied, or its own; absent for `correction: none`), so that a
+//! plan without corrections has the form, and the hash, it had before corrections existed:
+//!
+//! ```text
+//! CORR = {"fixture":{"id":S,"sha256":S,"tap":S},"reference":{"id":S,"sha256":S,"tap":S},
+//!         "source":SRC}
+//! SRC  = {"kind":"volume_velocity"}
+//!      | {"kind":"thevenin_csv","points":[[HZ,P_RE,P_IM,Z_RE,Z_IM],...]}
+//!      | {"earphone":EARPHONE,"kind":"virtual_earphone"}
+//! ```
+//!
+//! `sha256` is the coupler model's canonical hash (`tragus-coupler/1`, documented in
+//! [`crate::acoustics::model`]; `tragus coupler MODEL --json` prints it as `model_sha256`),
+//! the Thévenin points are the table's values, and `EARPHONE` is the earphone file's
+//! canonical form (`tragus-earphone/1`, [`crate::acoustics::earphone_file`]). Files enter
+//! by their content, never by their path: copying a model elsewhere with the same content
+//! keeps the hash, changing any value, tap or source parameter changes it. `"canonical"` names this version of the
 //! form; a change to it gets a new name.
 
-use super::{Band, CheckKind, LimitLine, Normalize, Plan, Polarity, RigSpec};
+use super::{Band, CheckKind, CorrectionSpec, LimitLine, Normalize, Plan, Polarity, RigSpec};
+use crate::acoustics::earphone_file;
+use crate::acoustics::model::CouplerModel;
+use crate::acoustics::source::Source;
 use sha2::{Digest, Sha256};
 use std::collections::BTreeMap;
 
@@ -64,6 +86,73 @@ enum C {
     Str(String),
     List(Vec<C>),
     Obj(BTreeMap<&'static str, C>),
+    /// An object with keys from data (a model's canonical JSON).
+    Map(BTreeMap<String, C>),
+}
+
+/// A JSON value made by a model's canonical form, as a canonical value (reals stay reals,
+/// integers stay integers).
+fn from_json(v: &serde_json::Value) -> C {
+    use serde_json::Value as V;
+    match v {
+        V::Null => C::Null,
+        V::Bool(b) => C::Str(b.to_string()),
+        V::Number(n) => match (n.as_i64(), n.as_f64()) {
+            (Some(i), _) if !n.is_f64() => C::Int(i128::from(i)),
+            (_, Some(x)) => C::Real(x),
+            _ => C::Null,
+        },
+        V::String(t) => C::Str(t.clone()),
+        V::Array(items) => C::List(items.iter().map(from_json).collect()),
+        V::Object(m) => C::Map(m.iter().map(|(k, v)| (k.clone(), from_json(v))).collect()),
+    }
+}
+
+fn coupler_ref(model: &CouplerModel, tap: &str) -> C {
+    obj([
+        ("id", s(&model.id)),
+        ("sha256", s(&model.sha256)),
+        ("tap", s(tap)),
+    ])
+}
+
+fn source(src: &Source) -> C {
+    let kind = ("kind", s(src.kind_name()));
+    match src {
+        Source::VolumeVelocity => obj([kind]),
+        Source::Thevenin { table } => obj([
+            kind,
+            (
+                "points",
+                C::List(
+                    table
+                        .iter()
+                        .map(|(hz, p, z)| {
+                            C::List(vec![
+                                real(*hz),
+                                real(p.re),
+                                real(p.im),
+                                real(z.re),
+                                real(z.im),
+                            ])
+                        })
+                        .collect(),
+                ),
+            ),
+        ]),
+        Source::VirtualEarphone(m) => obj([
+            ("earphone", from_json(&earphone_file::canonical_value(m))),
+            kind,
+        ]),
+    }
+}
+
+fn correction(c: &CorrectionSpec) -> C {
+    obj([
+        ("fixture", coupler_ref(&c.fixture, &c.fixture_tap)),
+        ("reference", coupler_ref(&c.reference, &c.reference_tap)),
+        ("source", source(&c.source)),
+    ])
 }
 
 fn obj<const N: usize>(fields: [(&'static str, C); N]) -> C {
@@ -144,11 +233,16 @@ fn to_canonical(plan: &Plan) -> C {
         channels
             .iter()
             .map(|c| {
-                obj([
-                    ("input", int(c.input as u64)),
-                    ("name", s(&c.name)),
-                    ("output", int(c.output as u64)),
-                ])
+                let mut m = BTreeMap::new();
+                m.insert("input", int(c.input as u64));
+                m.insert("name", s(&c.name));
+                m.insert("output", int(c.output as u64));
+                // Only when corrected, so that the form of a plan without correction is
+                // what it was before corrections existed (its hash did not change).
+                if let Some(corr) = &c.correction {
+                    m.insert("correction", correction(corr));
+                }
+                C::Obj(m)
             })
             .collect(),
     );
@@ -271,18 +365,23 @@ fn write(c: &C, out: &mut String) {
         }
         C::Obj(fields) => {
             // BTreeMap<&str> iterates in byte order of the keys, as the form requires.
-            out.push('{');
-            for (i, (k, v)) in fields.iter().enumerate() {
-                if i > 0 {
-                    out.push(',');
-                }
-                out.push_str(&serde_json::Value::from(*k).to_string());
-                out.push(':');
-                write(v, out);
-            }
-            out.push('}');
+            write_object(fields.iter().map(|(k, v)| (*k, v)), out);
         }
+        C::Map(fields) => write_object(fields.iter().map(|(k, v)| (k.as_str(), v)), out),
     }
+}
+
+fn write_object<'a>(fields: impl Iterator<Item = (&'a str, &'a C)>, out: &mut String) {
+    out.push('{');
+    for (i, (k, v)) in fields.enumerate() {
+        if i > 0 {
+            out.push(',');
+        }
+        out.push_str(&serde_json::Value::from(k).to_string());
+        out.push(':');
+        write(v, out);
+    }
+    out.push('}');
 }
 
 /// The canonical JSON text of a plan (see the module doc).

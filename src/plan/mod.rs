@@ -5,12 +5,16 @@
 //! limit-line CSV files relative to the plan, and builds the typed [`Plan`] below. Every
 //! problem is reported at once as `PATH:LINE:COL: message` ([`PlanError`]). The plan's
 //! SHA-256 is taken over a canonical JSON form ([`hash`]), so formatting and comments do not
-//! change it. `tragus validate` stops after stage two.
+//! change it. `tragus validate` stops after stage two. A plan's `correction:` section names
+//! coupler model and earphone files; they are loaded and checked in stage two too, and their
+//! problems are reported at their own files' positions.
 
 pub mod hash;
 pub mod raw;
 pub mod validate;
 
+use crate::acoustics::model::CouplerModel;
+use crate::acoustics::source::Source;
 use std::fmt;
 use std::path::{Path, PathBuf};
 
@@ -117,6 +121,27 @@ pub struct ChannelSpec {
     pub output: usize,
     /// Input channel index (0-based).
     pub input: usize,
+    /// Fixture→reference correction of this channel: the plan-wide `correction:` section,
+    /// or the channel's own (`None` when neither, or the channel says `correction: none`).
+    pub correction: Option<CorrectionSpec>,
+}
+
+/// A fixture→reference correction as the plan gives it, with its files loaded: the
+/// station's fixture model, the reference coupler the limits are written for, a microphone
+/// tap in each, and the source whose impedance enters the correction (DESIGN.md,
+/// "Acoustic models").
+#[derive(Debug, Clone, PartialEq)]
+pub struct CorrectionSpec {
+    /// The station's fixture model.
+    pub fixture: CouplerModel,
+    /// Tap of the fixture model where the station's microphone is.
+    pub fixture_tap: String,
+    /// The reference coupler the limits are written for.
+    pub reference: CouplerModel,
+    /// Tap of the reference model the limits refer to.
+    pub reference_tap: String,
+    /// The earphone as a source (volume velocity, Thévenin table, virtual earphone).
+    pub source: Source,
 }
 
 /// Which rig runs the plan by default.

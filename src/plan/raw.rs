@@ -114,6 +114,11 @@ pub struct RawPlan {
     pub rig: Option<Section<RawRig>>,
     /// `checks:` list.
     pub checks: Option<RawList<RawCheck>>,
+    /// Top-level `correction:` (applies to every channel that does not say otherwise).
+    pub correction: Option<RawCorrectionEntry>,
+    /// Each channel's own `correction:`, in the order of [`RawPlan::channels`]' items
+    /// (`None` where the channel has none or it was rejected).
+    pub channel_corrections: Vec<Option<RawCorrectionEntry>>,
     /// How many problems stage one reported (stage two then does not call the plan
     /// incomplete for the parts stage one left out).
     pub n_problems: usize,
@@ -141,6 +146,8 @@ pub struct RawTop {
     pub rig: Option<IgnoredAny>,
     /// Decoded on its own into [`RawPlan::checks`].
     pub checks: Option<IgnoredAny>,
+    /// Decoded on its own into [`RawPlan::correction`].
+    pub correction: Option<IgnoredAny>,
 }
 
 /// `stimulus:` keys (frequencies Hz, durations s, level dBFS).
@@ -187,6 +194,79 @@ pub struct RawChannel {
     pub output: Option<Spanned<i128>>,
     /// Input channel number, 1-based.
     pub input: Option<Spanned<i128>>,
+    /// Decoded on its own into [`RawPlan::channel_corrections`].
+    pub correction: Option<IgnoredAny>,
+}
+
+/// A `correction:` entry as written: a mapping of correction keys, or `none` (a channel
+/// that is not corrected although the plan has a plan-wide correction).
+#[derive(Debug, Clone)]
+pub enum RawCorrectionEntry {
+    /// `correction: none`, at this position.
+    Off(Pos),
+    /// A mapping of correction keys.
+    On(Box<Section<RawCorrection>>),
+}
+
+/// `correction:` keys (paths relative to the plan file).
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields, expecting = "a mapping")]
+pub struct RawCorrection {
+    /// Coupler model file of the station's fixture.
+    pub fixture: Option<Spanned<String>>,
+    /// Microphone tap in the fixture model.
+    pub fixture_tap: Option<Spanned<String>>,
+    /// Coupler model file of the reference coupler.
+    pub reference: Option<Spanned<String>>,
+    /// Microphone tap in the reference model.
+    pub reference_tap: Option<Spanned<String>>,
+    /// The source: `volume_velocity`, `{virtual_earphone: FILE}` or `{thevenin_csv: FILE}`.
+    pub source: Option<Spanned<RawSource>>,
+}
+
+/// A correction's `source:` as written; stage two checks the name or the file.
+#[derive(Debug, Clone)]
+pub enum RawSource {
+    /// A bare name (`volume_velocity`).
+    Name(String),
+    /// A mapping naming a file.
+    Map(RawSourceMap),
+}
+
+/// The mapping form of `source:` (exactly one key; stage two checks the count).
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(
+    deny_unknown_fields,
+    expecting = "a mapping with virtual_earphone or thevenin_csv"
+)]
+pub struct RawSourceMap {
+    /// Virtual-earphone parameter file.
+    pub virtual_earphone: Option<Spanned<String>>,
+    /// Thévenin table CSV (`hz,p_re,p_im,z_re,z_im`).
+    pub thevenin_csv: Option<Spanned<String>>,
+}
+
+impl<'de> Deserialize<'de> for RawSource {
+    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        struct V;
+        impl<'de> Visitor<'de> for V {
+            type Value = RawSource;
+            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
+                f.write_str("volume_velocity, {virtual_earphone: FILE} or {thevenin_csv: FILE}")
+            }
+            fn visit_str<E: serde::de::Error>(self, s: &str) -> Result<RawSource, E> {
+                Ok(RawSource::Name(s.to_string()))
+            }
+            fn visit_map<A: serde::de::MapAccess<'de>>(
+                self,
+                map: A,
+            ) -> Result<RawSource, A::Error> {
+                RawSourceMap::deserialize(serde::de::value::MapAccessDeserializer::new(map))
+                    .map(RawSource::Map)
+            }
+        }
+        d.deserialize_any(V)
+    }
 }
 
 /// `rig:` keys.
@@ -409,6 +489,21 @@ impl Decoder<'_> {
         let rig = self.sub_section(top_map, "rig", &mut top);
         let channels = self.list(top_map, "channels", "channel", &mut top);
         let checks = self.list(top_map, "checks", "check", &mut top);
+        let correction = top_map
+            .get_key_value("correction")
+            .and_then(|(k, n)| self.correction_entry(Pos::of(k.span()), n, "correction"));
+        let channel_corrections = match top_map.get_node("channels") {
+            Some(Node::Sequence(seq)) => seq
+                .iter()
+                .enumerate()
+                .map(|(i, item)| {
+                    let (k, n) = item.as_mapping()?.get_key_value("correction")?;
+                    let ctx = format!("{}: correction", item_context(item, "channel", i + 1));
+                    self.correction_entry(Pos::of(k.span()), n, &ctx)
+                })
+                .collect(),
+            _ => Vec::new(),
+        };
         Some(RawPlan {
             top,
             stimulus,
@@ -416,6 +511,8 @@ impl Decoder<'_> {
             channels,
             rig,
             checks,
+            correction,
+            channel_corrections,
             n_problems: self.problems.len(),
         })
     }
@@ -596,6 +693,43 @@ impl Decoder<'_> {
             value,
             pos,
             rejected,
+        }
+    }
+
+    /// A `correction:` value: a mapping decoded key by key, or `none`. `ctx` prefixes
+    /// messages (`correction`, `channel left: correction`).
+    fn correction_entry(
+        &mut self,
+        key_pos: Pos,
+        node: &Node,
+        ctx: &str,
+    ) -> Option<RawCorrectionEntry> {
+        match node {
+            Node::Mapping(m) => Some(RawCorrectionEntry::On(Box::new(self.section(
+                m,
+                mapping_pos(m, key_pos),
+                ctx,
+            )))),
+            Node::Scalar(s) if s.as_str() == "none" => {
+                Some(RawCorrectionEntry::Off(Pos::of(node.span())))
+            }
+            other => {
+                let hint = match other {
+                    Node::Scalar(s) if suggest(s.as_str(), ["none"]).is_some() => {
+                        ", did you mean `none`?"
+                    }
+                    _ => "",
+                };
+                self.report(
+                    Pos::of(other.span()),
+                    format!(
+                        "{ctx}: expected a mapping with fixture, fixture_tap, reference, \
+                         reference_tap and source, or `none`, found {}{hint}",
+                        found(other)
+                    ),
+                );
+                None
+            }
         }
     }
 

@@ -24,13 +24,17 @@ pub mod limit_csv;
 pub use limit_csv::{parse_limit_csv, CsvPoint};
 
 use super::raw::{
-    self, is_channel_name, is_id, label, suggest, Pos, RawLimit, RawList, RawPair, RawPlan, Section,
+    self, is_channel_name, is_id, label, suggest, Pos, RawCorrection, RawCorrectionEntry, RawLimit,
+    RawList, RawPair, RawPlan, RawSource, Section,
 };
 use super::{
-    AnalysisSpec, Band, ChannelSpec, CheckKind, CheckSpec, LimitLine, Location, Normalize, Plan,
-    PlanError, Polarity, Problem, RigSpec, StimulusSpec, DEFAULT_MAX_HARMONIC, DEFAULT_MIN_SNR_DB,
-    DEFAULT_POINTS_PER_OCTAVE,
+    AnalysisSpec, Band, ChannelSpec, CheckKind, CheckSpec, CorrectionSpec, LimitLine, Location,
+    Normalize, Plan, PlanError, Polarity, Problem, RigSpec, StimulusSpec, DEFAULT_MAX_HARMONIC,
+    DEFAULT_MIN_SNR_DB, DEFAULT_POINTS_PER_OCTAVE,
 };
+use crate::acoustics::earphone_file::{load_earphone_str, EarphoneFileError};
+use crate::acoustics::model::{load_model_str, CouplerModel, ModelError};
+use crate::acoustics::source::{parse_thevenin_csv, Source, SourceError};
 use crate::dsp::sweep::SweepParams;
 use marked_yaml::Spanned;
 use std::path::{Path, PathBuf};
@@ -364,10 +368,25 @@ impl Validator {
         if raw.channels.is_none() && !top.was_rejected("channels") {
             self.report(top.pos, "missing required key `channels`".into());
         }
-        let (channels, channel_names) = match &raw.channels {
+        let (mut channels, channel_names) = match &raw.channels {
             Some(c) => self.channels(c),
             None => (None, None),
         };
+        let needed_hz = match (band, sample_rate_hz, analysis.as_ref()) {
+            (Some(b), Some(fs), Some(a)) => Some(crate::acoustics::apply::needed_band_hz(
+                b.start_hz,
+                b.stop_hz,
+                f64::from(fs),
+                a.max_harmonic,
+            )),
+            _ => None,
+        };
+        let corrections = self.corrections(raw, needed_hz);
+        if let (Some(chs), Some(corr)) = (channels.as_mut(), corrections.as_ref()) {
+            for (ch, c) in chs.iter_mut().zip(corr) {
+                ch.correction = c.clone();
+            }
+        }
 
         let rig = self.rig(raw.rig.as_ref());
 
@@ -383,6 +402,7 @@ impl Validator {
             )
         });
 
+        corrections?;
         let mut plan = Plan {
             id: id?,
             revision: revision?,
@@ -759,12 +779,274 @@ impl Validator {
                     name,
                     output,
                     input,
+                    correction: None,
                 }),
                 _ => ok = false,
             }
         }
         let names = names_ok.then(|| names.into_iter().map(|(n, _)| n).collect());
         (ok.then_some(out), names)
+    }
+
+    /// Each channel's correction (in the order of the plan's channel items): its own entry,
+    /// else the plan-wide one. `None` when any entry could not be read (reported).
+    fn corrections(
+        &mut self,
+        raw: &RawPlan,
+        needed_hz: Option<(f64, f64)>,
+    ) -> Option<Vec<Option<CorrectionSpec>>> {
+        let plan_wide = match &raw.correction {
+            None | Some(RawCorrectionEntry::Off(_)) => Some(None),
+            Some(RawCorrectionEntry::On(sec)) => {
+                self.correction(sec, "correction", needed_hz).map(Some)
+            }
+        };
+        let n_items = raw.channels.as_ref().map_or(0, |l| l.items.len());
+        let mut ok = plan_wide.is_some();
+        let mut out = Vec::with_capacity(n_items);
+        for i in 0..n_items {
+            let entry = raw.channel_corrections.get(i).and_then(Option::as_ref);
+            let c = match entry {
+                None => plan_wide.clone().flatten(),
+                Some(RawCorrectionEntry::Off(_)) => None,
+                Some(RawCorrectionEntry::On(sec)) => {
+                    let ctx = raw
+                        .channels
+                        .as_ref()
+                        .and_then(|l| l.items.get(i))
+                        .and_then(Option::as_ref)
+                        .and_then(|c| c.value.name.as_ref())
+                        .filter(|n| is_channel_name(n))
+                        .map_or_else(
+                            || format!("channel #{}: correction", i + 1),
+                            |n| format!("channel {}: correction", n.as_str()),
+                        );
+                    let c = self.correction(sec, &ctx, needed_hz);
+                    ok &= c.is_some();
+                    c
+                }
+            };
+            out.push(c);
+        }
+        ok.then_some(out)
+    }
+
+    /// One `correction:` mapping: its files loaded (problems in them at their own
+    /// positions), taps checked against the models, the source read.
+    fn correction(
+        &mut self,
+        sec: &Section<RawCorrection>,
+        ctx: &str,
+        needed_hz: Option<(f64, f64)>,
+    ) -> Option<CorrectionSpec> {
+        let c = &sec.value;
+        let fixture = self
+            .required(sec, &c.fixture, ctx, "fixture")
+            .and_then(|v| self.coupler_file(v, &label(ctx, "fixture")));
+        let reference = self
+            .required(sec, &c.reference, ctx, "reference")
+            .and_then(|v| self.coupler_file(v, &label(ctx, "reference")));
+        let fixture_tap = self
+            .required(sec, &c.fixture_tap, ctx, "fixture_tap")
+            .and_then(|v| self.tap(v, fixture.as_ref(), &label(ctx, "fixture_tap")));
+        let reference_tap = self
+            .required(sec, &c.reference_tap, ctx, "reference_tap")
+            .and_then(|v| self.tap(v, reference.as_ref(), &label(ctx, "reference_tap")));
+        let source = self
+            .required(sec, &c.source, ctx, "source")
+            .and_then(|v| self.source(v, &label(ctx, "source"), needed_hz));
+        Some(CorrectionSpec {
+            fixture: fixture?,
+            fixture_tap: fixture_tap?,
+            reference: reference?,
+            reference_tap: reference_tap?,
+            source: source?,
+        })
+    }
+
+    /// Problems of a file the plan names, each prefixed with the plan key that names it.
+    fn file_problems(&mut self, problems: Vec<Problem>, what: &str) {
+        for p in problems {
+            let message = format!("{what}: {}", p.message);
+            self.report_at(p.location, message);
+        }
+    }
+
+    /// Load a coupler model file named at `v` (relative to the plan).
+    fn coupler_file(&mut self, v: &Spanned<String>, what: &str) -> Option<CouplerModel> {
+        let file = self.dir.join(v.as_str());
+        let text = match read_text_file(&file, "coupler model") {
+            Ok(t) => t,
+            Err(why) => {
+                self.report(Pos::of_value(v), format!("{what}: {why}"));
+                return None;
+            }
+        };
+        match load_model_str(&text, &file) {
+            Ok(m) => Some(m),
+            Err(ModelError::Invalid(problems)) => {
+                self.file_problems(problems, what);
+                None
+            }
+            Err(e @ ModelError::Io { .. }) => {
+                self.report(Pos::of_value(v), format!("{what}: {e}"));
+                None
+            }
+        }
+    }
+
+    /// A tap name that `model` has (no further problem when the model could not be read).
+    fn tap(
+        &mut self,
+        v: &Spanned<String>,
+        model: Option<&CouplerModel>,
+        what: &str,
+    ) -> Option<String> {
+        let model = model?;
+        let taps = model.tap_names();
+        if taps.contains(&v.as_str()) {
+            return Some(v.to_string());
+        }
+        let hint = match suggest(v, taps.iter().copied()) {
+            Some(s) => format!(", did you mean `{s}`?"),
+            None => String::new(),
+        };
+        self.report(
+            Pos::of_value(v),
+            format!(
+                "{what}: expected a tap of coupler {} ({}), found {}{hint}",
+                model.id,
+                taps.join(", "),
+                raw::found_scalar(v)
+            ),
+        );
+        None
+    }
+
+    /// The correction's source: a name, or a mapping naming an earphone or Thévenin file.
+    fn source(
+        &mut self,
+        v: &Spanned<RawSource>,
+        what: &str,
+        needed_hz: Option<(f64, f64)>,
+    ) -> Option<Source> {
+        const KINDS: [&str; 3] = ["volume_velocity", "virtual_earphone", "thevenin_csv"];
+        let pos = Pos::of_value(v);
+        match &**v {
+            RawSource::Name(name) if name == "volume_velocity" => Some(Source::VolumeVelocity),
+            RawSource::Name(name) if KINDS.contains(&name.as_str()) => {
+                self.report(
+                    pos,
+                    format!("{what}: `{name}` names a file: write `{{{name}: FILE}}`"),
+                );
+                None
+            }
+            RawSource::Name(name) => {
+                let hint = match suggest(name, KINDS) {
+                    Some(s) => format!(", did you mean `{s}`?"),
+                    None => String::new(),
+                };
+                self.report(
+                    pos,
+                    format!(
+                        "{what}: expected volume_velocity, {{virtual_earphone: FILE}} or \
+                         {{thevenin_csv: FILE}}, found {}{hint}",
+                        raw::found_scalar(name)
+                    ),
+                );
+                None
+            }
+            RawSource::Map(m) => match (&m.virtual_earphone, &m.thevenin_csv) {
+                (Some(file), None) => self.earphone_file(file, &format!("{what}.virtual_earphone")),
+                (None, Some(file)) => {
+                    self.thevenin_file(file, &format!("{what}.thevenin_csv"), needed_hz)
+                }
+                (a, b) => {
+                    let found = if a.is_some() && b.is_some() {
+                        "both"
+                    } else {
+                        "neither"
+                    };
+                    self.report(
+                        pos,
+                        format!(
+                            "{what}: expected one of virtual_earphone, thevenin_csv, found {found}"
+                        ),
+                    );
+                    None
+                }
+            },
+        }
+    }
+
+    fn earphone_file(&mut self, v: &Spanned<String>, what: &str) -> Option<Source> {
+        let file = self.dir.join(v.as_str());
+        let text = match read_text_file(&file, "earphone") {
+            Ok(t) => t,
+            Err(why) => {
+                self.report(Pos::of_value(v), format!("{what}: {why}"));
+                return None;
+            }
+        };
+        match load_earphone_str(&text, &file) {
+            Ok(m) => Some(Source::VirtualEarphone(m)),
+            Err(EarphoneFileError::Invalid(problems)) => {
+                self.file_problems(problems, what);
+                None
+            }
+            Err(e @ EarphoneFileError::Io { .. }) => {
+                self.report(Pos::of_value(v), format!("{what}: {e}"));
+                None
+            }
+        }
+    }
+
+    fn thevenin_file(
+        &mut self,
+        v: &Spanned<String>,
+        what: &str,
+        needed_hz: Option<(f64, f64)>,
+    ) -> Option<Source> {
+        let file = self.dir.join(v.as_str());
+        let file_label = file.display().to_string();
+        let text = match read_text_file(&file, "thevenin") {
+            Ok(t) => t,
+            Err(why) => {
+                self.report(Pos::of_value(v), format!("{what}: {why}"));
+                return None;
+            }
+        };
+        let source = match parse_thevenin_csv(&text, &file_label) {
+            Ok(s) => s,
+            Err(SourceError::Csv {
+                path,
+                line,
+                col,
+                message,
+            }) => {
+                self.report_at(Location { path, line, col }, format!("{what}: {message}"));
+                return None;
+            }
+            Err(e) => {
+                self.report(Pos::of_value(v), format!("{what}: {e}"));
+                return None;
+            }
+        };
+        if let (Source::Thevenin { table }, Some((lo, hi))) = (&source, needed_hz) {
+            let (first, last) = (table.first()?.0, table.last()?.0);
+            if first > lo || last < hi {
+                self.report(
+                    Pos::of_value(v),
+                    format!(
+                        "{what}: expected a table covering {lo} to {hi} Hz (the sweep, and \
+                         the harmonics up to n·f that the analysis reports), found {first} to \
+                         {last} Hz"
+                    ),
+                );
+                return None;
+            }
+        }
+        Some(source)
     }
 
     fn rig(&mut self, sec: Option<&Section<raw::RawRig>>) -> Option<RigSpec> {

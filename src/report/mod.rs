@@ -142,6 +142,26 @@ pub fn render_human(result: &UnitResult, color: bool) -> String {
         }
         t.render(&mut out, color);
     }
+
+    // Corrections: one line per channel when any channel was corrected.
+    if result.channels.iter().any(|m| m.correction.is_some()) {
+        out.push_str("\ncorrection (fixture → reference the limits are written for)\n");
+        for m in &result.channels {
+            let line = match &m.correction {
+                Some(c) => format!(
+                    "{} ({}) → {} ({}), {} source, sha256 {}…",
+                    c.fixture.id,
+                    c.fixture.tap,
+                    c.reference.id,
+                    c.reference.tap,
+                    c.source,
+                    c.sha256.chars().take(12).collect::<String>()
+                ),
+                None => "none (as measured in the fixture)".to_string(),
+            };
+            out.push_str(&format!("  {:<8}{line}\n", m.name));
+        }
+    }
     out
 }
 

@@ -43,6 +43,7 @@ pub fn plan(channels: &[&str], checks: Vec<CheckSpec>) -> Plan {
                 name: n.to_string(),
                 output: i,
                 input: i,
+                correction: None,
             })
             .collect(),
         rig: RigSpec::Simulated { seed: 7 },
@@ -83,6 +84,8 @@ pub fn measurement(name: &str, response_db: &[f64]) -> ChannelMeasurement {
         harmonics_db,
         rub_buzz_db: vec![None; n],
         retest_reasons: Vec::new(),
+        fixture_response_db: None,
+        correction: None,
         fine: FineSpectrum::default(),
     }
 }

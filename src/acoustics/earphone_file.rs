@@ -1,0 +1,366 @@
+//! Virtual-earphone parameter files: the YAML form of an [`EarphoneModel`].
+//!
+//! Sits beside the coupler model files ([`super::model`]): a plan's `correction:` names one
+//! as its source (`source: {virtual_earphone: FILE}`), and the fixture→reference correction
+//! needs the source impedance it gives. Every problem is reported at once as
+//! `PATH:LINE:COL: message`, with the same YAML guards as plans
+//! ([`crate::plan::raw::parse_tree`]) and the element syntax and messages of coupler models
+//! (the rear vent is a `tube` or `slit` element written as in a coupler file).
+//!
+//! # Schema (human units; converted to the SI fields of [`EarphoneModel`])
+//!
+//! ```yaml
+//! earphone: ember-e2              # optional label: [a-z0-9][a-z0-9._-]*
+//! description: free text          # optional
+//! temperature_c: 23               # optional, default 20 °C
+//! static_pressure_pa: 101325      # optional, default 101 325 Pa
+//! re_ohm: 24                      # voice-coil resistance, Ω, > 0
+//! le_uh: 30                       # voice-coil inductance, µH, ≥ 0
+//! bl_t_m: 0.8                     # force factor, T·m, > 0
+//! mms_mg: 25                      # moving mass, mg, > 0
+//! cms_mm_per_n: 25                # suspension compliance, mm/N, > 0
+//! rms_n_s_per_m: 0.02             # mechanical resistance, N·s/m, ≥ 0
+//! sd_mm2: 60                      # diaphragm area, mm², > 0
+//! rear_volume_mm3: 150            # > 0
+//! rear_vent: {tube: {length_mm: 1.5, radius_mm: 0.25}}   # or {slit: {length_mm, width_mm, gap_mm}}
+//! front_volume_mm3: 80            # > 0
+//! outlet: {length_mm: 3, radius_mm: 1, loss: zwikker_kosten}   # loss optional, as for tubes
+//! damper: {resistance_pa_s_m3: 1.5e7, inertance_kg_m4: 200}    # both ≥ 0
+//! ```
+//!
+//! Conversions: µH, mg and mm² are divided by 1e6, mm/N and the outlet's mm by 1e3, mm³ by
+//! 1e9 (powers of ten are exact in `f64`, so `30 µH` becomes exactly the double nearest
+//! 30e-6). The rear vent goes through the coupler element parser (mm × 1e-3, as in coupler
+//! files). The label and the description are not part of the model: renaming a file's
+//! label does not change a correction.
+//!
+//! # Canonical form (part of the plan hash and of the correction identity)
+//!
+//! Compact JSON, keys sorted, numbers as serde_json 1 writes an `f64`, `-0.0` as `0.0` (the
+//! conventions of [`crate::plan::hash`] and [`super::model`]), over the SI fields:
+//!
+//! ```text
+//! {"bl_t_m":R,"canonical":"tragus-earphone/1","cms_m_per_n":R,"damper_inertance_kg_m4":R,
+//!  "damper_resistance_pa_s_m3":R,"front_volume_m3":R,"le_h":R,"mms_kg":R,
+//!  "outlet_length_m":R,"outlet_loss":S,"outlet_radius_m":R,"re_ohm":R,"rear_vent":ITEM,
+//!  "rear_volume_m3":R,"rms_n_s_per_m":R,"sd_m2":R,"static_pressure_pa":R,"temperature_c":R}
+//! ```
+//!
+//! with `ITEM` the coupler form of a tube or slit (`{"tube":{"length_m":R,"loss":S,
+//! "radius_m":R}}`, `{"slit":{"gap_m":R,"length_m":R,"width_m":R}}`).
+
+use super::air::Air;
+use super::elements::{Element, TubeLoss};
+use super::model::{
+    element_value, loss_name, real, ChainCtx, Validator, DEFAULT_STATIC_PRESSURE_PA,
+    DEFAULT_TEMPERATURE_C, STATIC_PRESSURE_RANGE_PA, TEMPERATURE_RANGE_C,
+};
+use super::network::ChainItem;
+use super::source::EarphoneModel;
+use crate::plan::raw::{self, is_id, Pos};
+use crate::plan::{Location, Problem};
+use marked_yaml::types::MarkedMappingNode;
+use marked_yaml::Node;
+use serde_json::{json, Value};
+use std::path::Path;
+
+/// Name of this version of the canonical form.
+pub const CANONICAL_FORM: &str = "tragus-earphone/1";
+
+const TOP_KEYS: [&str; 16] = [
+    "earphone",
+    "description",
+    "temperature_c",
+    "static_pressure_pa",
+    "re_ohm",
+    "le_uh",
+    "bl_t_m",
+    "mms_mg",
+    "cms_mm_per_n",
+    "rms_n_s_per_m",
+    "sd_mm2",
+    "rear_volume_mm3",
+    "rear_vent",
+    "front_volume_mm3",
+    "outlet",
+    "damper",
+];
+
+/// Why an earphone file could not be loaded.
+#[derive(Debug, thiserror::Error)]
+pub enum EarphoneFileError {
+    /// The file could not be read.
+    #[error("{path}: cannot read earphone file: {source}")]
+    Io {
+        /// The path.
+        path: String,
+        /// The I/O error.
+        source: std::io::Error,
+    },
+    /// The file was read but is not valid; one `path:line:col: message` line per problem.
+    #[error("{}", .0.iter().map(|p| p.to_string()).collect::<Vec<_>>().join("\n"))]
+    Invalid(Vec<Problem>),
+}
+
+/// Load and validate an earphone parameter file.
+pub fn load_earphone(path: &Path) -> Result<EarphoneModel, EarphoneFileError> {
+    let bytes = std::fs::read(path).map_err(|source| EarphoneFileError::Io {
+        path: path.display().to_string(),
+        source,
+    })?;
+    match String::from_utf8(bytes) {
+        Ok(text) => load_earphone_str(&text, path),
+        Err(_) => Err(EarphoneFileError::Invalid(vec![Problem {
+            location: Location {
+                path: path.display().to_string(),
+                line: 1,
+                col: 1,
+            },
+            message: "expected UTF-8 text, found invalid bytes".into(),
+        }])),
+    }
+}
+
+/// Load an earphone file from text; `path` labels the problems.
+pub fn load_earphone_str(text: &str, path: &Path) -> Result<EarphoneModel, EarphoneFileError> {
+    let label = path.display().to_string();
+    let (root, mut problems) = raw::parse_tree(text, &label, "earphone file");
+    let mut v = Validator::new(
+        label.clone(),
+        path.parent().unwrap_or(Path::new(".")).to_path_buf(),
+    );
+    let model = match &root {
+        Some(Node::Mapping(m)) => earphone(&mut v, m),
+        _ => None,
+    };
+    problems.append(&mut v.problems);
+    match model {
+        Some(m) if problems.is_empty() => Ok(m),
+        _ => {
+            if problems.is_empty() {
+                problems.push(Problem {
+                    location: Pos::default().at(&label),
+                    message: "the earphone file could not be read".into(),
+                });
+            }
+            crate::plan::validate::sort_problems(&mut problems, &label);
+            Err(EarphoneFileError::Invalid(problems))
+        }
+    }
+}
+
+/// Whether a value must be above 0 or may be 0.
+#[derive(Clone, Copy)]
+enum Sign {
+    Positive,
+    NonNegative,
+}
+
+fn value(v: &mut Validator, n: &Node, what: &str, unit: &str, sign: Sign) -> Option<f64> {
+    match sign {
+        Sign::Positive => v.positive(n, what, unit),
+        Sign::NonNegative => {
+            let x = v.number(n, what)?;
+            if x >= 0.0 {
+                Some(x)
+            } else {
+                v.report(
+                    Pos::of(n.span()),
+                    format!("{what}: expected a value of 0 {unit} or more, found {x}"),
+                );
+                None
+            }
+        }
+    }
+}
+
+fn earphone(v: &mut Validator, top: &MarkedMappingNode) -> Option<EarphoneModel> {
+    let top_pos = top
+        .keys()
+        .next()
+        .map_or(Pos { line: 1, col: 1 }, |k| Pos::of(k.span()));
+    v.unknown_keys(top, &TOP_KEYS, "");
+    // The label is checked when given, though it is not part of the model.
+    if let Some(n) = top.get_node("earphone") {
+        if let Some(s) = v.scalar(n, "earphone", "an id") {
+            if !is_id(&s) {
+                v.report(
+                    Pos::of(n.span()),
+                    format!(
+                        "earphone: expected an id of lowercase letters, digits, `.`, `_` and \
+                         `-`, starting with a letter or digit, found {}",
+                        raw::found_scalar(&s)
+                    ),
+                );
+            }
+        }
+    }
+    if let Some(n) = top.get_node("description") {
+        v.scalar(n, "description", "text");
+    }
+    let temperature_c = match top.get_node("temperature_c") {
+        None => Some(DEFAULT_TEMPERATURE_C),
+        Some(n) => v.number_in(n, "temperature_c", TEMPERATURE_RANGE_C, " °C"),
+    };
+    let static_pressure_pa = match top.get_node("static_pressure_pa") {
+        None => Some(DEFAULT_STATIC_PRESSURE_PA),
+        Some(n) => v.number_in(n, "static_pressure_pa", STATIC_PRESSURE_RANGE_PA, " Pa"),
+    };
+    let required = |v: &mut Validator, key: &str, unit: &str, sign: Sign, scale: f64| match top
+        .get_node(key)
+    {
+        None => {
+            v.report(top_pos, format!("missing required key `{key}`"));
+            None
+        }
+        Some(n) => value(v, n, key, unit, sign).map(|x| x / scale),
+    };
+    let re_ohm = required(v, "re_ohm", "Ω", Sign::Positive, 1.0);
+    let le_h = required(v, "le_uh", "µH", Sign::NonNegative, 1e6);
+    let bl_t_m = required(v, "bl_t_m", "T·m", Sign::Positive, 1.0);
+    let mms_kg = required(v, "mms_mg", "mg", Sign::Positive, 1e6);
+    let cms_m_per_n = required(v, "cms_mm_per_n", "mm/N", Sign::Positive, 1e3);
+    let rms_n_s_per_m = required(v, "rms_n_s_per_m", "N·s/m", Sign::NonNegative, 1.0);
+    let sd_m2 = required(v, "sd_mm2", "mm²", Sign::Positive, 1e6);
+    let rear_volume_m3 = required(v, "rear_volume_mm3", "mm³", Sign::Positive, 1e9);
+    let front_volume_m3 = required(v, "front_volume_mm3", "mm³", Sign::Positive, 1e9);
+
+    let rear_vent = match top.get_node("rear_vent") {
+        None => {
+            v.report(top_pos, "missing required key `rear_vent`".into());
+            None
+        }
+        Some(n) => vent(v, n),
+    };
+    let outlet = match top.get_node("outlet") {
+        None => {
+            v.report(top_pos, "missing required key `outlet`".into());
+            None
+        }
+        Some(n) => outlet(v, n),
+    };
+    let damper = match top.get_node("damper") {
+        None => {
+            v.report(top_pos, "missing required key `damper`".into());
+            None
+        }
+        Some(n) => damper(v, n),
+    };
+    let (outlet_length_m, outlet_radius_m, outlet_loss) = outlet?;
+    let (damper_resistance_pa_s_m3, damper_inertance_kg_m4) = damper?;
+    Some(EarphoneModel {
+        re_ohm: re_ohm?,
+        le_h: le_h?,
+        bl_t_m: bl_t_m?,
+        mms_kg: mms_kg?,
+        cms_m_per_n: cms_m_per_n?,
+        rms_n_s_per_m: rms_n_s_per_m?,
+        sd_m2: sd_m2?,
+        rear_volume_m3: rear_volume_m3?,
+        rear_vent: rear_vent?,
+        front_volume_m3: front_volume_m3?,
+        outlet_length_m,
+        outlet_radius_m,
+        outlet_loss,
+        damper_resistance_pa_s_m3,
+        damper_inertance_kg_m4,
+        air: Air::new(temperature_c?, static_pressure_pa?),
+    })
+}
+
+/// `rear_vent: {tube: {...}}` or `{slit: {...}}`, read by the coupler element parser.
+fn vent(v: &mut Validator, n: &Node) -> Option<Element> {
+    let kind = match n {
+        Node::Mapping(m) if m.len() == 1 => m.keys().next().map(|k| k.as_str().to_string()),
+        _ => None,
+    };
+    match kind.as_deref() {
+        Some("tube" | "slit") => {}
+        _ => {
+            let found = match (n, kind.as_deref()) {
+                (_, Some(k)) => format!("`{}`", raw::show_text(k)),
+                (Node::Mapping(m), None) => format!("a mapping with {} keys", m.len()),
+                (other, None) => raw::found(other),
+            };
+            v.report(
+                Pos::of(n.span()),
+                format!(
+                    "rear_vent: expected `{{tube: {{length_mm, radius_mm}}}}` or \
+                     `{{slit: {{length_mm, width_mm, gap_mm}}}}`, found {found}"
+                ),
+            );
+            return None;
+        }
+    }
+    let ctx = ChainCtx {
+        prefix: "rear_vent",
+        taps_allowed: false,
+    };
+    match v.item(n, "rear_vent", &ctx)? {
+        ChainItem::Element(e) => Some(e),
+        ChainItem::Tap(_) => None,
+    }
+}
+
+/// `outlet: {length_mm, radius_mm, loss}` → (length m, radius m, loss).
+fn outlet(v: &mut Validator, n: &Node) -> Option<(f64, f64, TubeLoss)> {
+    let f = v.fields(
+        n,
+        "outlet",
+        &["length_mm", "radius_mm", "loss"],
+        &["length_mm", "radius_mm"],
+    )?;
+    let length = f[0].and_then(|n| v.positive(n, "outlet.length_mm", "mm"));
+    let radius = f[1].and_then(|n| v.positive(n, "outlet.radius_mm", "mm"));
+    let loss = match f[2] {
+        None => Some(TubeLoss::ZwikkerKosten),
+        Some(n) => v.loss(n, "outlet.loss"),
+    };
+    Some((length? / 1e3, radius? / 1e3, loss?))
+}
+
+/// `damper: {resistance_pa_s_m3, inertance_kg_m4}`.
+fn damper(v: &mut Validator, n: &Node) -> Option<(f64, f64)> {
+    let keys = ["resistance_pa_s_m3", "inertance_kg_m4"];
+    let f = v.fields(n, "damper", &keys, &keys)?;
+    let r = f[0].and_then(|n| {
+        value(
+            v,
+            n,
+            "damper.resistance_pa_s_m3",
+            "Pa·s/m³",
+            Sign::NonNegative,
+        )
+    });
+    let m = f[1].and_then(|n| value(v, n, "damper.inertance_kg_m4", "kg/m⁴", Sign::NonNegative));
+    Some((r?, m?))
+}
+
+/// The canonical form of an earphone model (module doc) as a JSON value.
+pub fn canonical_value(m: &EarphoneModel) -> Value {
+    json!({
+        "bl_t_m": real(m.bl_t_m),
+        "canonical": CANONICAL_FORM,
+        "cms_m_per_n": real(m.cms_m_per_n),
+        "damper_inertance_kg_m4": real(m.damper_inertance_kg_m4),
+        "damper_resistance_pa_s_m3": real(m.damper_resistance_pa_s_m3),
+        "front_volume_m3": real(m.front_volume_m3),
+        "le_h": real(m.le_h),
+        "mms_kg": real(m.mms_kg),
+        "outlet_length_m": real(m.outlet_length_m),
+        "outlet_loss": loss_name(m.outlet_loss),
+        "outlet_radius_m": real(m.outlet_radius_m),
+        "re_ohm": real(m.re_ohm),
+        "rear_vent": element_value(&m.rear_vent),
+        "rear_volume_m3": real(m.rear_volume_m3),
+        "rms_n_s_per_m": real(m.rms_n_s_per_m),
+        "sd_m2": real(m.sd_m2),
+        "static_pressure_pa": real(m.air.static_pressure_pa),
+        "temperature_c": real(m.air.temperature_c),
+    })
+}
+
+/// The canonical JSON text of an earphone model.
+pub fn canonical_json(m: &EarphoneModel) -> String {
+    canonical_value(m).to_string()
+}
