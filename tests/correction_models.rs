@@ -65,11 +65,10 @@ fn round_trip(fixture: &str, reference: &str, f_hi_hz: f64) -> (f64, f64) {
     let e = EarphoneModel::demo(Air::new(23.0, 101_325.0));
     let fix = load(fixture);
     let refm = load(reference);
-    let (fc, rc) = (fix.coupler(), refm.coupler());
     let src = Source::VirtualEarphone(e.clone());
-    let corr = Correction::new(&fc, &rc, "mic", &tap_of(&refm), &src).unwrap();
+    let corr = Correction::new(&fix, &refm, "mic", &tap_of(&refm), &src).unwrap();
     let vv = Source::VolumeVelocity;
-    let ideal = Correction::new(&fc, &rc, "mic", &tap_of(&refm), &vv).unwrap();
+    let ideal = Correction::new(&fix, &refm, "mic", &tap_of(&refm), &vv).unwrap();
     let (mut worst, mut worst_ideal) = (0.0f64, 0.0f64);
     for f in log_freqs(20.0, f_hi_hz, 200) {
         let l_fix = direct_mic_pressure(&e, &fix, f);

@@ -190,7 +190,7 @@ fn bad_earphone_file_is_reported_in_the_earphone_file() {
     let text = fs::read_to_string(dir.path().join("ember-e2.yaml"))
         .unwrap()
         .replace("sd_mm2: 60 ", "sd_mm2: -60")
-        .replace("bl_t_m: 0.8", "bl_tm: 0.8");
+        .replace("bl_t_m: 0.5", "bl_tm: 0.5");
     fs::write(dir.path().join("ember-e2.yaml"), text).unwrap();
     let err = load_plan(&path).unwrap_err().to_string();
     let d = format!("{}/", dir.path().display());
@@ -276,7 +276,7 @@ fn hash_follows_model_tap_and_earphone_values_not_file_paths() {
     let ear = fs::read_to_string(d.join("ember-e2.yaml")).unwrap();
     fs::write(
         d.join("ember-e2.yaml"),
-        ear.replace("mms_mg: 25", "mms_mg: 26"),
+        ear.replace("mms_mg: 12", "mms_mg: 13"),
     )
     .unwrap();
     assert_ne!(sha(d, PLAN), base, "earphone parameter");

@@ -142,7 +142,7 @@ fn blocked_outlet_pressure_is_the_pressure_chamber_value_at_low_frequency() {
     // neglected terms at 1 Hz: ωLe/Re ≈ 8e-6, ω²Mms/k ≈ 2e-7, damping ω·R/k ≈ 1e-4 (enters
     // the magnitude squared); 1e-3 bounds them
     assert!((p1 - p_want).abs() / p_want < 1e-3, "{p1} vs {p_want}");
-    // flat through the free-air resonance (~201 Hz): the air spring dominates; blocked
+    // flat through the free-air resonance (~200 Hz): the air spring dominates; blocked
     // resonance ≈ 2.4 kHz so (100/2400)² ≈ 0.015 dB; 0.05 dB bounds it
     for f in log_freqs(1.0, 100.0, 20) {
         let d = 20.0 * (m.thevenin(f).p_oc_pa_per_v.norm() / p1).log10();

@@ -40,7 +40,7 @@ pub struct Args {
     pub operator: Option<String>,
     /// Simulated rig: which unit to simulate: `nominal` or a defect
     /// (reversed-polarity, dead-channel, low-sensitivity, resonance-shift, clipping,
-    /// heavy-distortion).
+    /// heavy-distortion, seal-leak, blocked-damper, weak-motor, rub).
     #[arg(long, default_value = "nominal", value_name = "UNIT")]
     pub sim_unit: String,
     /// Simulated rig: the plan channel that carries the defect (default: the first).
@@ -66,6 +66,33 @@ fn parse_sim_unit(s: &str) -> Result<UnitKind, Exit> {
             names.join(", ")
         ))
     })
+}
+
+/// The fixture the simulated rig puts the unit in: the one the plan's correction names
+/// (after `--fixture`), shared by every corrected channel since a station has one fixture.
+/// `None` when no channel is corrected.
+fn simulated_fixture(
+    plan: &crate::plan::Plan,
+) -> Result<Option<(crate::acoustics::network::Coupler, String)>, Exit> {
+    let mut found: Option<&crate::plan::CorrectionSpec> = None;
+    for c in plan.channels.iter().filter_map(|c| c.correction.as_ref()) {
+        match found {
+            None => found = Some(c),
+            Some(f) if f.fixture.sha256 == c.fixture.sha256 && f.fixture_tap == c.fixture_tap => {}
+            Some(f) => {
+                return Err(Exit::bad_input(anyhow::anyhow!(
+                    "--rig simulated: expected one fixture model and tap for every corrected \
+                     channel (the simulated station has one fixture), found `{}` tap `{}` and \
+                     `{}` tap `{}`; give --fixture to use one",
+                    f.fixture.id,
+                    f.fixture_tap,
+                    c.fixture.id,
+                    c.fixture_tap
+                )))
+            }
+        }
+    }
+    Ok(found.map(|c| (c.fixture.coupler(), c.fixture_tap.clone())))
 }
 
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
@@ -111,10 +138,18 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
                 kind,
                 defect_channel,
             };
-            (
-                Box::new(SimulatedRig::new(routes, seed, unit)),
-                Some(args.sim_unit.clone()),
-            )
+            let rig = match simulated_fixture(&prep.plan)? {
+                // The physical unit (rig v2) in the fixture the correction models, so the
+                // correction can be judged against the physics it assumes.
+                Some((coupler, tap)) => {
+                    tracing::info!(fixture = %coupler.id, "simulated rig: physical earphone");
+                    SimulatedRig::physical(routes, seed, unit, coupler, &tap)
+                        .map_err(Exit::bad_input)?
+                }
+                // No fixture model known: the behavioural unit (rig v1).
+                None => SimulatedRig::new(routes, seed, unit),
+            };
+            (Box::new(rig), Some(args.sim_unit.clone()))
         }
         RigChoice::Soundcard => {
             return Err(Exit::bad_input(anyhow::anyhow!(

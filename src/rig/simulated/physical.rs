@@ -80,19 +80,20 @@ pub struct PhysicalParams {
     pub seal_leak: bool,
 }
 
-/// The leak of an earpiece that does not seal on the fixture (invented): a gap of 0.12 mm
+/// The leak of an earpiece that does not seal on the fixture (invented): a gap of 0.2 mm
 /// between the nozzle and the seal, 5 mm wide and 2 mm long, to the room, as a shunt branch
 /// at the reference plane (slit after Stinson 1991, radiating as a baffled piston of about
-/// the slit's size). Its resistance, ~4·10⁷ Pa·s/m³, is of the order of the earpiece's
-/// source impedance below the resonance, so the level there drops by ~5 dB in the demo
-/// fixtures, while above ~1 kHz the fixture's own impedance is far lower and the leak
-/// hardly matters (< 1 dB at 2 kHz).
+/// the slit's size). Its impedance (≈ 5·10⁶ Pa·s/m³ resistance plus ≈ 2400 kg/m⁴ of mass)
+/// is of the order of the earpiece's source impedance (its compliant diaphragm) below a
+/// few hundred hertz, so the level there drops by ≈ 7 dB in the demo fixtures; its mass
+/// and the fixture cavity make a damped Helmholtz resonance near 2 kHz (+2 dB in fixture
+/// A, −0.5 dB in B).
 pub fn seal_leak_branch() -> Element {
     Element::Branch {
         elements: vec![Element::Slit {
             length_m: 2.0e-3,
             width_m: 5.0e-3,
-            gap_m: 0.12e-3,
+            gap_m: 0.2e-3,
         }],
         termination: Termination::OpenBaffled { radius_m: 0.5e-3 },
     }
@@ -132,10 +133,10 @@ impl PhysicalParams {
 /// either side of the rest position, K(x) rising, both somewhat asymmetric). At the demo
 /// level (−12 dBFS, ~3 µm peak below the resonance) this gives THD ≈ 0.4 % at 100 Hz.
 pub const NOMINAL_NONLINEARITY: MotorNonlinearity = MotorNonlinearity {
-    bl_b1_per_m: -2700.0,
-    bl_b2_per_m2: -3.4e8,
-    k_k1_per_m: 4500.0,
-    k_k2_per_m2: 4.8e8,
+    bl_b1_per_m: -4700.0,
+    bl_b2_per_m2: -1.0e9,
+    k_k1_per_m: 7900.0,
+    k_k2_per_m2: 1.5e9,
 };
 
 /// The fixture the earpieces sit in: a coupler model, its microphone tap, and the cache of

@@ -89,11 +89,12 @@ pub const CLIPPING_DRIVE_FACTOR: f64 = 5.0;
 pub const HEAVY_DISTORTION_FACTOR: f64 = 6.0;
 
 /// The rub of the `rub` defect (invented): a coil sitting off centre touches beyond
-/// ±2.2 µm (below the nominal unit's ~3 µm peak excursion at the demo level under ~500 Hz)
-/// with 0.2 mN of friction (a tenth of the motor force at that level).
+/// ±0.7 µm (the nominal unit's excursion at the demo level grows from ≈ 0.5 µm below
+/// 300 Hz to ≈ 1 µm at 1 kHz, towards its in-fixture resonance) with 0.13 mN of friction
+/// (a tenth of the motor force Bl·e/Re at that level).
 pub const DEFECT_RUB: Rub = Rub {
-    clearance_m: 2.2e-6,
-    friction_force_n: 0.2e-3,
+    clearance_m: 0.7e-6,
+    friction_force_n: 0.13e-3,
 };
 
 impl PhysicalParams {
