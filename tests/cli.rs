@@ -88,7 +88,7 @@ fn bad_arguments_are_exit_two() {
     assert_eq!(out.status.code(), Some(2));
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(
-        err.starts_with("tragus: --sim-unit: expected `nominal` or one of"),
+        err.starts_with("tragus: --sim-unit: expected one of nominal, design, reversed-polarity"),
         "{err}"
     );
     let out = tragus()

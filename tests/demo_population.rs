@@ -65,18 +65,27 @@ fn nominal_units_pass() {
 }
 
 // Each named defect on each channel, with the check (or validity rule) that must catch it.
-// These expectations follow from what each defect is: a reversed driver inverts the
-// impulse response; a weak unit reads low in the voice band; a moved resonance leaves the
-// response limits; heavy distortion exceeds the THD limit; a dead channel or a clipping
-// input is not a valid measurement (retest, never a pass).
+// These expectations follow from what each defect is physically (the simulated rig v2
+// models the driver in the fixture): a reversed driver inverts the impulse response; a
+// coil with twice its resistance (low sensitivity) or a weakened magnet (weak motor, Bl
+// −30 %, ≈ −3 dB) reads low in the voice band; extra moving mass moves the resonance out
+// of the response limits; a blocked outlet damper cuts the highs; a unit that does not
+// seal loses its bass (Beranek & Mellow 2012, ch. 3: a leak across the coupler's
+// compliance); heavy distortion exceeds the THD limit; a rubbing coil shows as rub and
+// buzz; a dead channel or a clipping input is not a valid measurement (retest, never a
+// pass).
 #[test]
 fn every_defect_is_caught() {
     let dir = tempfile::tempdir().unwrap();
-    let cases: [(&str, Option<&str>); 6] = [
+    let cases: [(&str, Option<&str>); 10] = [
         ("reversed-polarity", Some("pol")),
         ("low-sensitivity", Some("sens")),
+        ("weak-motor", Some("sens")),
         ("resonance-shift", Some("fr")),
+        ("blocked-damper", Some("fr")),
+        ("seal-leak", Some("bass")),
         ("heavy-distortion", Some("thd")),
+        ("rub", Some("rb")),
         ("dead-channel", None),
         ("clipping", None),
     ];
@@ -113,7 +122,7 @@ fn every_defect_is_caught() {
         .unwrap();
     let text = String::from_utf8_lossy(&out.stdout);
     assert_eq!(out.status.code(), Some(0), "{text}");
-    assert!(text.starts_with("12 record(s)"), "{text}");
+    assert!(text.starts_with("20 record(s)"), "{text}");
 }
 
 // The same serial on a fresh rig gives the same unit (seeded population), so a result can

@@ -219,11 +219,19 @@ fn demo_plan_has_two_channels_and_every_check_kind() {
     assert_eq!(plan.id, "demo-earbud");
     let names: Vec<&str> = plan.channels.iter().map(|c| c.name.as_str()).collect();
     assert_eq!(names, ["left", "right"]);
+    // Limits are written for the 2 cm³ reference coupler; both channels are corrected from
+    // the Line 3 fixture A to it.
+    for c in &plan.channels {
+        let corr = c.correction.as_ref().expect("demo channels are corrected");
+        assert_eq!(corr.fixture.id, "fixture-line3-a");
+        assert_eq!(corr.reference.id, "iec-60318-5-2cc");
+    }
     let kinds: Vec<&str> = plan.checks.iter().map(|c| c.kind.name()).collect();
     assert_eq!(
         kinds,
         [
             "response",
+            "sensitivity",
             "sensitivity",
             "thd",
             "harmonic",

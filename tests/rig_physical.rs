@@ -361,9 +361,10 @@ fn weak_nonlinearity_orders_scale_as_the_power_series_says() {
     assert!((step - 12.0).abs() < 0.05, "HD3 step {step} dB (b2 only)");
 }
 
-// The nominal unit as designed: THD 0.3–1 % at 100 Hz at −12 dBFS, falling above the
-// in-fixture resonance (~400 Hz: less excursion per volt, x ∝ 1/ω² in the mass-controlled
-// range) to < 0.3 % from 1 kHz, and rising with level (more excursion).
+// The nominal unit as designed: THD 0.1–1 % at 100 Hz at −12 dBFS (≈ 120 dB SPL peak in
+// the fixture; a plausible earbud there, invented), below that and below 0.3 % from 1 kHz
+// (less excursion per volt in the mass-controlled range, x ∝ 1/ω²), and rising with level
+// (more excursion).
 #[test]
 fn nominal_distortion_falls_with_frequency_and_rises_with_level() {
     let fixture = Arc::new(Fixture::new(fixture_a(), "mic").unwrap());
@@ -374,7 +375,7 @@ fn nominal_distortion_falls_with_frequency_and_rises_with_level() {
         thd_percent(&harmonics(&sim.output_fs, f))
     };
     let t100 = thd(100.0, -12.0);
-    assert!((0.3..=1.0).contains(&t100), "THD at 100 Hz {t100} %");
+    assert!((0.1..=1.0).contains(&t100), "THD at 100 Hz {t100} %");
     let above: Vec<f64> = [1000.0, 2000.0, 3000.0, 6000.0]
         .iter()
         .map(|&f| thd(f, -12.0))

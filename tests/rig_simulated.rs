@@ -526,6 +526,7 @@ fn defect_names_are_kebab_case_and_round_trip() {
     }
     assert_eq!("nominal".parse::<UnitKind>().unwrap(), UnitKind::Nominal);
     assert_eq!(UnitKind::Nominal.to_string(), "nominal");
+    assert_eq!("design".parse::<UnitKind>().unwrap(), UnitKind::Design);
     assert_eq!(
         "dead-chanel".parse::<Defect>().unwrap_err().to_string(),
         "expected one of reversed-polarity, dead-channel, low-sensitivity, resonance-shift, \
@@ -534,7 +535,7 @@ fn defect_names_are_kebab_case_and_round_trip() {
     );
     assert_eq!(
         "golden".parse::<UnitKind>().unwrap_err().to_string(),
-        "expected one of nominal, reversed-polarity, dead-channel, low-sensitivity, \
+        "expected one of nominal, design, reversed-polarity, dead-channel, low-sensitivity, \
          resonance-shift, clipping, heavy-distortion, seal-leak, blocked-damper, weak-motor, \
          rub, found \"golden\""
     );

@@ -2,7 +2,7 @@
 
 use super::{pipeline, Exit, JsonOut, Output};
 use crate::plan::RigSpec;
-use crate::rig::simulated::{Defect, SimUnit, SimulatedRig, UnitKind};
+use crate::rig::simulated::{SimUnit, SimulatedRig, UnitKind};
 use crate::rig::Rig;
 use crate::store::{NewRecord, Store};
 use anyhow::Context;
@@ -38,8 +38,8 @@ pub struct Args {
     /// Operator recorded with the unit (defaults to $USER).
     #[arg(long)]
     pub operator: Option<String>,
-    /// Simulated rig: which unit to simulate: `nominal` or a defect
-    /// (reversed-polarity, dead-channel, low-sensitivity, resonance-shift, clipping,
+    /// Simulated rig: which unit to simulate: `nominal` (a good unit with manufacturing
+    /// spread), `design` (the nominal design, no spread) or a defect (reversed-polarity, dead-channel, low-sensitivity, resonance-shift, clipping,
     /// heavy-distortion, seal-leak, blocked-damper, weak-motor, rub).
     #[arg(long, default_value = "nominal", value_name = "UNIT")]
     pub sim_unit: String,
@@ -56,16 +56,8 @@ pub struct Args {
 }
 
 fn parse_sim_unit(s: &str) -> Result<UnitKind, Exit> {
-    if s == "nominal" {
-        return Ok(UnitKind::Nominal);
-    }
-    s.parse::<Defect>().map(UnitKind::Defect).map_err(|_| {
-        let names: Vec<String> = Defect::ALL.iter().map(|d| d.to_string()).collect();
-        Exit::bad_input(anyhow::anyhow!(
-            "--sim-unit: expected `nominal` or one of {}, found `{s}`",
-            names.join(", ")
-        ))
-    })
+    s.parse::<UnitKind>()
+        .map_err(|e| Exit::bad_input(anyhow::anyhow!("--sim-unit: {e}")))
 }
 
 /// The fixture the simulated rig puts the unit in: the one the plan's correction names

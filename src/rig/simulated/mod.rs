@@ -186,6 +186,9 @@ impl FromStr for Defect {
 pub enum UnitKind {
     /// A good unit (with manufacturing spread).
     Nominal,
+    /// The design itself: the nominal parameters with no manufacturing spread, on every
+    /// channel (the unit a source model in a plan describes exactly).
+    Design,
     /// A unit with one defect on [`SimUnit::defect_channel`].
     Defect(Defect),
 }
@@ -194,6 +197,7 @@ impl fmt::Display for UnitKind {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             UnitKind::Nominal => f.write_str("nominal"),
+            UnitKind::Design => f.write_str("design"),
             UnitKind::Defect(d) => d.fmt(f),
         }
     }
@@ -203,11 +207,13 @@ impl FromStr for UnitKind {
     type Err = UnknownUnitKind;
 
     fn from_str(s: &str) -> Result<Self, Self::Err> {
-        if s == "nominal" {
-            return Ok(UnitKind::Nominal);
+        match s {
+            "nominal" => return Ok(UnitKind::Nominal),
+            "design" => return Ok(UnitKind::Design),
+            _ => {}
         }
         Defect::from_str(s).map(UnitKind::Defect).map_err(|_| {
-            let mut names = vec!["nominal"];
+            let mut names = vec!["nominal", "design"];
             names.extend(Defect::ALL.iter().map(|d| d.name()));
             unknown(s, &names)
         })
@@ -277,7 +283,10 @@ impl SimulatedRig {
     pub fn new(routes: Vec<(usize, usize)>, seed: u64, unit: SimUnit) -> Self {
         let params: Vec<EarphoneParams> = (0..routes.len())
             .map(|c| {
-                let p = unit_params(seed, &unit.serial, c);
+                let p = match unit.kind {
+                    UnitKind::Design => EarphoneParams::NOMINAL,
+                    _ => unit_params(seed, &unit.serial, c),
+                };
                 match unit.kind {
                     UnitKind::Defect(d) if c == unit.defect_channel => p.with_defect(d),
                     _ => p,

@@ -128,15 +128,17 @@ impl PhysicalParams {
 }
 
 /// Invented nominal nonlinearity of the demo micro-driver, whose linear range is about
-/// ±15 µm: Bl falls to 72 % (outward) and 86 % (inward) at ±25 µm, the suspension stiffens
-/// to 141 % and 119 % there (common practice for the shape of these curves: Bl(x) falling
-/// either side of the rest position, K(x) rising, both somewhat asymmetric). At the demo
-/// level (−12 dBFS, ~3 µm peak below the resonance) this gives THD ≈ 0.4 % at 100 Hz.
+/// ±20 µm: Bl falls to 68 % (outward) and 83 % (inward) at ±50 µm, the suspension stiffens
+/// to 165 % and 135 % there (common practice for the shape of these curves: Bl(x) falling
+/// either side of the rest position, K(x) rising, both somewhat asymmetric). Sealed in a
+/// coupler at the demo level (−18 dBFS, ≈ 0.25 µm peak below the resonance) the distortion
+/// is small; it grows with excursion: with level, towards the resonance, and at low
+/// frequencies when a leak lets the diaphragm move as in free air (≈ 35 µm).
 pub const NOMINAL_NONLINEARITY: MotorNonlinearity = MotorNonlinearity {
-    bl_b1_per_m: -4700.0,
-    bl_b2_per_m2: -1.0e9,
-    k_k1_per_m: 7900.0,
-    k_k2_per_m2: 1.5e9,
+    bl_b1_per_m: -1500.0,
+    bl_b2_per_m2: -1.0e8,
+    k_k1_per_m: 3000.0,
+    k_k2_per_m2: 2.0e8,
 };
 
 /// The fixture the earpieces sit in: a coupler model, its microphone tap, and the cache of

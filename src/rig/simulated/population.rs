@@ -81,20 +81,20 @@ pub const LOW_SENSITIVITY_RE_FACTOR: f64 = 2.0;
 /// Moving-mass factor of a resonance shift (adhesive on the diaphragm): 1/0.75², so the
 /// mass-controlled resonance in the fixture moves down by 25 %.
 pub const RESONANCE_SHIFT_MASS_FACTOR: f64 = 1.0 / (0.75 * 0.75);
-/// Amplifier gain factor of a clipping unit (its gain stage set 14 dB high: the demo
-/// sweep's peak, ≈ −8 dBFS at the microphone, lands at ≈ +6 dBFS).
-pub const CLIPPING_DRIVE_FACTOR: f64 = 5.0;
+/// Amplifier gain factor of a clipping unit (its gain stage set 20 dB high: the demo
+/// sweep's peak, ≈ −14 dBFS at the microphone, lands at ≈ +6 dBFS).
+pub const CLIPPING_DRIVE_FACTOR: f64 = 10.0;
 /// Nonlinear coefficient factor of a heavily distorting unit (a voice coil wound off
 /// centre and a stiff, uneven surround).
-pub const HEAVY_DISTORTION_FACTOR: f64 = 6.0;
+pub const HEAVY_DISTORTION_FACTOR: f64 = 40.0;
 
 /// The rub of the `rub` defect (invented): a coil sitting off centre touches beyond
-/// ±0.7 µm (the nominal unit's excursion at the demo level grows from ≈ 0.5 µm below
-/// 300 Hz to ≈ 1 µm at 1 kHz, towards its in-fixture resonance) with 0.13 mN of friction
-/// (a tenth of the motor force Bl·e/Re at that level).
+/// ±0.35 µm (the nominal unit's excursion at the demo level, −18 dBFS, grows from ≈ 0.25 µm
+/// below 300 Hz to ≈ 0.5 µm at 1 kHz, towards its in-fixture resonance) with 0.065 mN of
+/// friction (a tenth of the motor force Bl·e/Re at that level).
 pub const DEFECT_RUB: Rub = Rub {
-    clearance_m: 0.7e-6,
-    friction_force_n: 0.13e-3,
+    clearance_m: 0.35e-6,
+    friction_force_n: 0.065e-3,
 };
 
 impl PhysicalParams {
@@ -170,7 +170,10 @@ impl PhysicalPopulation {
     /// Channel `channel` of `unit` in population `seed`: spread, then the unit's defect when
     /// it is on this channel.
     pub fn unit_params(&self, seed: u64, unit: &SimUnit, channel: usize) -> PhysicalParams {
-        let p = physical_unit_params(seed, &unit.serial, channel, &self.nominal);
+        let p = match unit.kind {
+            UnitKind::Design => self.nominal.clone(),
+            _ => physical_unit_params(seed, &unit.serial, channel, &self.nominal),
+        };
         match unit.kind {
             UnitKind::Defect(d) if channel == unit.defect_channel => p.with_defect(d),
             _ => p,
