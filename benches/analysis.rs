@@ -1,11 +1,13 @@
 //! Speed of the per-unit analysis: one 1 s, 48 kHz, two-channel capture of the demo plan,
-//! deconvolved, analysed and judged with the demo check set. The analyzer is built once
-//! (as a station does) and reused, so this measures the per-unit hot path.
+//! deconvolved, corrected from the fixture to the reference coupler and judged with the
+//! demo check set. The analyzer and the correction tables are built once (as a station
+//! does) and reused, so this measures the per-unit hot path.
 //! Target (issue 2): ≤ 5 ms on one core of the project machine.
 
 use criterion::{criterion_group, criterion_main, Criterion};
 use std::hint::black_box;
 use std::path::Path;
+use tragus::acoustics::apply::PlanCorrections;
 use tragus::analysis::Analyzer;
 use tragus::dsp::sweep::Stimulus;
 use tragus::rig::simulated::{SimUnit, SimulatedRig, UnitKind};
@@ -32,11 +34,14 @@ fn bench_analysis(c: &mut Criterion) {
         .play_and_capture(&stimulus, plan.n_inputs())
         .expect("capture");
     let mut analyzer = Analyzer::new(&plan, &stimulus).expect("analyzer");
-    c.bench_function("analyze+judge demo unit (2 ch, 1 s, 48 kHz)", |b| {
+    let corrections = PlanCorrections::new(&plan, &analyzer).expect("corrections");
+    assert!(corrections.any(), "the demo plan corrects its channels");
+    c.bench_function("analyze+correct+judge demo unit (2 ch, 1 s, 48 kHz)", |b| {
         b.iter(|| {
-            let m = analyzer
+            let mut m = analyzer
                 .analyze(black_box(&capture), &plan.channels)
                 .expect("analysis");
+            corrections.apply(&mut m);
             black_box(tragus::checks::judge(&plan, &m))
         })
     });
@@ -45,6 +50,19 @@ fn bench_analysis(c: &mut Criterion) {
         .expect("analysis");
     c.bench_function("analyze only (2 ch)", |b| {
         b.iter(|| black_box(analyzer.analyze(black_box(&capture), &plan.channels)))
+    });
+    c.bench_function("correct only (2 ch, tables built)", |b| {
+        b.iter_batched(
+            || measured.clone(),
+            |mut m| {
+                corrections.apply(&mut m);
+                m
+            },
+            criterion::BatchSize::SmallInput,
+        )
+    });
+    c.bench_function("correction set-up (once per plan)", |b| {
+        b.iter(|| black_box(PlanCorrections::new(&plan, &analyzer).expect("corrections")))
     });
     c.bench_function("judge only (demo check set)", |b| {
         b.iter(|| black_box(tragus::checks::judge(&plan, black_box(&measured))))

@@ -1,6 +1,6 @@
 //! The simulated rig v2 (physical earphone) against outside references: an independent
 //! lumped-circuit solve written here (Beranek & Mellow 2012, ch. 3), an independent RK4
-//! time-domain integration of the large-signal ODE (Klippel's Bl(x)/Kms(x) model), the
+//! time-domain integration of the large-signal ODE (the Bl(x)/Kms(x) model), the
 //! power-series orders of weak nonlinearities, and the defects' physics.
 
 use std::f64::consts::PI;

@@ -6,10 +6,10 @@
 //! not linear and solves the whole signal at once.
 //!
 //! # Model
-//! The usual large-signal loudspeaker model (the Bl(x)/Kms(x) method of Klippel's published
-//! papers, e.g. J. Audio Eng. Soc. 40(6), 1992, "Nonlinear large-signal behavior of
-//! electrodynamic loudspeakers at low frequencies"), with polynomial coefficients per metre
-//! of excursion x (positive outward, towards the outlet):
+//! The usual large-signal lumped loudspeaker model with an excursion-dependent force factor
+//! Bl(x) and suspension stiffness Kms(x) (J. Audio Eng. Soc. 40(6), 1992, "Nonlinear
+//! large-signal behavior of electrodynamic loudspeakers at low frequencies"), with
+//! polynomial coefficients per metre of excursion x (positive outward, towards the outlet):
 //! ```text
 //!   Bl(x) = Bl0·(1 + b1·x + b2·x²)          K(x) = K0·(1 + k1·x + k2·x²),  K0 = 1/Cms
 //!   e     = Re·i + Le·di/dt + Bl(x)·v

@@ -424,49 +424,39 @@ impl PhysicalEarphone {
         &self.fixture
     }
 
+    /// The per-frequency circuit values the solver uses, at any `freq_hz` (not only a bin).
+    fn small_signal_bin(&self, freq_hz: f64) -> BinValues {
+        let m = &self.params.model;
+        let (z_in, t_tap) = self.fixture.point(freq_hz);
+        let tube = Element::Tube {
+            length_m: m.outlet_length_m,
+            radius_m: m.outlet_radius_m,
+            loss: m.outlet_loss,
+        }
+        .two_port(freq_hz, &m.air);
+        bin_values(
+            m,
+            freq_hz,
+            z_in,
+            t_tap,
+            m.rear_impedance_pa_s_m3(freq_hz),
+            &tube,
+        )
+    }
+
     /// Small-signal response at `freq_hz`: converter full scale out per full scale of drive
     /// (zero when dead), through the same per-frequency circuit the solver uses.
     pub fn small_signal_response(&self, freq_hz: f64) -> C64 {
         if self.params.dead {
             return C64::new(0.0, 0.0);
         }
-        let m = &self.params.model;
-        let (z_in, t_tap) = self.fixture.point(freq_hz);
-        let tube = Element::Tube {
-            length_m: m.outlet_length_m,
-            radius_m: m.outlet_radius_m,
-            loss: m.outlet_loss,
-        }
-        .two_port(freq_hz, &m.air);
-        let b = bin_values(
-            m,
-            freq_hz,
-            z_in,
-            t_tap,
-            m.rear_impedance_pa_s_m3(freq_hz),
-            &tube,
-        );
+        let b = self.small_signal_bin(freq_hz);
         b.pg_per_v * b.hp * self.params.converter_gain()
     }
 
     /// Small-signal diaphragm excursion per full scale of drive at `freq_hz`, m.
     pub fn small_signal_excursion_m(&self, freq_hz: f64) -> C64 {
-        let m = &self.params.model;
-        let (z_in, t_tap) = self.fixture.point(freq_hz);
-        let tube = Element::Tube {
-            length_m: m.outlet_length_m,
-            radius_m: m.outlet_radius_m,
-            loss: m.outlet_loss,
-        }
-        .two_port(freq_hz, &m.air);
-        let b = bin_values(
-            m,
-            freq_hz,
-            z_in,
-            t_tap,
-            m.rear_impedance_pa_s_m3(freq_hz),
-            &tube,
-        );
+        let b = self.small_signal_bin(freq_hz);
         let g = if self.params.inverted { -1.0 } else { 1.0 };
         b.pg_per_v * b.hx * self.params.drive_v_per_fs * g
     }
