@@ -37,9 +37,9 @@ use crate::analysis::{Analyzer, ChannelMeasurement};
 use crate::plan::{CorrectionSpec, Plan};
 use crate::result::{CorrectionInfo, CouplerRef};
 
-/// Points per octave of the log grid on which C is evaluated for the fine spectrum.
-/// 96 per octave keeps the interpolation error of the shipped models below 1e-4 dB; see
-/// the module doc.
+/// Points per octave of the log grid on which C is evaluated for the fine spectrum: with
+/// 384 the interpolation error of the shipped models is ≤ 1e-5 dB (measured; bar 0.001 dB),
+/// at ≈ 20 ms of set-up per plan; see the module doc.
 pub const DENSE_POINTS_PER_OCTAVE: f64 = 384.0;
 
 /// The band over which a plan's correction must be defined, Hz: from the sweep's start to
