@@ -172,8 +172,8 @@ impl Reader {
                 ],
             ),
         };
-        let channels = match top.get_node("channels") {
-            None => Some(Vec::new()),
+        let (channels, partial) = match top.get_node("channels") {
+            None => (Some(Vec::new()), Vec::new()),
             Some(n) => self.channels(n),
         };
         let soundcard = match top.get_node("audio") {
@@ -186,7 +186,7 @@ impl Reader {
                 loopback_output: None,
                 max_clock_drift_ppm: DEFAULT_MAX_CLOCK_DRIFT_PPM,
             }),
-            Some(n) => self.audio(n, channels.as_deref()),
+            Some(n) => self.audio(n, &partial),
         };
         let fixture = self.fixture(top);
         let calibration = match top.get_node("calibration") {
@@ -286,17 +286,30 @@ impl Reader {
             .map(|x| x as usize - 1)
     }
 
-    /// `{output: N, input: M}`, 0-based.
-    fn pair(&mut self, n: &Node, what: &str) -> Option<(usize, usize)> {
-        let f = self
+    /// `{output: N, input: M}`, 0-based; each part `None` where it is missing or wrong.
+    fn pair_parts(&mut self, n: &Node, what: &str) -> (Option<usize>, Option<usize>) {
+        let Some(f) = self
             .v
-            .fields(n, what, &["output", "input"], &["output", "input"])?;
+            .fields(n, what, &["output", "input"], &["output", "input"])
+        else {
+            return (None, None);
+        };
         let output = f[0].and_then(|n| self.channel_number(n, &format!("{what}.output")));
         let input = f[1].and_then(|n| self.channel_number(n, &format!("{what}.input")));
-        Some((output?, input?))
+        (output, input)
     }
 
-    fn channels(&mut self, node: &Node) -> Option<Vec<ChannelRoute>> {
+    /// `{output: N, input: M}`, 0-based.
+    fn pair(&mut self, n: &Node, what: &str) -> Option<(usize, usize)> {
+        match self.pair_parts(n, what) {
+            (Some(o), Some(i)) => Some((o, i)),
+            _ => None,
+        }
+    }
+
+    /// The channel map; also returns the routes that could be read when others could
+    /// not (so the loopback is still checked against them).
+    fn channels(&mut self, node: &Node) -> (Option<Vec<ChannelRoute>>, Vec<ChannelRoute>) {
         let Node::Mapping(m) = node else {
             self.v.report(
                 pos(node),
@@ -306,13 +319,12 @@ impl Reader {
                     raw::found(node)
                 ),
             );
-            return None;
+            return (None, Vec::new());
         };
         let mut routes = Vec::new();
         let mut ok = true;
         // (number, channel name) of outputs and inputs already mapped, for duplicates.
-        let mut outputs: Vec<(usize, String)> = Vec::new();
-        let mut inputs: Vec<(usize, String)> = Vec::new();
+        let mut seen: [Vec<(usize, String)>; 2] = [Vec::new(), Vec::new()];
         for (k, v) in m.iter() {
             let name = k.as_str();
             if !is_channel_name(name) {
@@ -328,17 +340,19 @@ impl Reader {
                 continue;
             }
             let what = format!("channels.{name}");
-            let Some((output, input)) = self.pair(v, &what) else {
-                ok = false;
-                continue;
-            };
-            for (list, number, key) in [
-                (&mut outputs, output, "output"),
-                (&mut inputs, input, "input"),
-            ] {
-                if let Some((_, other)) = list.iter().find(|(x, _)| *x == number) {
+            let (output, input) = self.pair_parts(v, &what);
+            for (side, (number, key)) in [(output, "output"), (input, "input")]
+                .into_iter()
+                .enumerate()
+            {
+                let Some(number) = number else { continue };
+                if let Some((_, other)) = seen[side].iter().find(|(x, _)| *x == number) {
+                    let at = match v {
+                        Node::Mapping(vm) => vm.get_node(key).map_or(pos(v), pos),
+                        _ => pos(v),
+                    };
                     self.v.report(
-                        pos(v),
+                        at,
                         format!(
                             "{what}.{key}: expected a device {key} no other channel uses, \
                              found {} (also channel {other})",
@@ -347,18 +361,21 @@ impl Reader {
                     );
                     ok = false;
                 }
-                list.push((number, name.to_string()));
+                seen[side].push((number, name.to_string()));
             }
-            routes.push(ChannelRoute {
-                name: name.to_string(),
-                output,
-                input,
-            });
+            match (output, input) {
+                (Some(output), Some(input)) => routes.push(ChannelRoute {
+                    name: name.to_string(),
+                    output,
+                    input,
+                }),
+                _ => ok = false,
+            }
         }
-        ok.then_some(routes)
+        (ok.then(|| routes.clone()), routes)
     }
 
-    fn audio(&mut self, node: &Node, channels: Option<&[ChannelRoute]>) -> Option<SoundcardSpec> {
+    fn audio(&mut self, node: &Node, channels: &[ChannelRoute]) -> Option<SoundcardSpec> {
         let f = self.v.fields(node, "audio", &AUDIO_KEYS, &[])?;
         let text = |r: &mut Self, i: usize, what: &str| -> Option<Option<String>> {
             match f[i] {
@@ -383,11 +400,15 @@ impl Reader {
         let loopback = match f[4] {
             None => Some(None),
             Some(n) => {
-                let p = self.pair_named(n, "audio.loopback");
-                if let (Some((_, input)), Some(routes)) = (p, channels) {
-                    if let Some(r) = routes.iter().find(|r| r.input == input) {
+                let p = self.pair(n, "audio.loopback");
+                if let Some((_, input)) = p {
+                    if let Some(r) = channels.iter().find(|r| r.input == input) {
+                        let at = match n {
+                            Node::Mapping(m) => m.get_node("input").map_or(pos(n), pos),
+                            _ => pos(n),
+                        };
                         self.v.report(
-                            pos(n),
+                            at,
                             format!(
                                 "audio.loopback.input: expected an input that no channel \
                                  records, found {} (the input of channel {})",
@@ -395,10 +416,14 @@ impl Reader {
                                 r.name
                             ),
                         );
-                        return None;
+                        // Reported; the keys after it are still checked.
+                        None
+                    } else {
+                        Some(p)
                     }
+                } else {
+                    None
                 }
-                p.map(Some)
             }
         };
         let max_clock_drift_ppm = match f[5] {
@@ -420,11 +445,6 @@ impl Reader {
             loopback_output: loopback.map(|(o, _)| o),
             max_clock_drift_ppm: max_clock_drift_ppm?,
         })
-    }
-
-    /// `{input: N, output: M}` for the loopback (same checks as a channel pair).
-    fn pair_named(&mut self, n: &Node, what: &str) -> Option<(usize, usize)> {
-        self.pair(n, what)
     }
 
     /// A file that must exist, resolved against the station file's directory.
