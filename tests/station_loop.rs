@@ -148,7 +148,10 @@ fn expected_counts(recs: &[serde_json::Value]) -> serde_json::Value {
 fn scripted_session_with_repeat_garbage_and_interrupt_mid_unit() {
     let dir = tempfile::tempdir().unwrap();
     let store = dir.path().join("store");
-    let mut lp = start(&store, &["--sim-unit", "E2-0002=seal-leak@left"]);
+    let mut lp = start(
+        &store,
+        &["--sim-unit", "E2-0002=seal-leak@left", "--sim-realtime"],
+    );
     lp.send("E2-0001\n\n  \n%%garbage%%\nE2-0002\nE2-0001\n  E2-0003  \n");
     let mut units = Vec::new();
     for _ in 0..4 {
@@ -156,8 +159,9 @@ fn scripted_session_with_repeat_garbage_and_interrupt_mid_unit() {
         assert_eq!(j["kind"], "unit", "{j}");
         units.push(j);
     }
-    // Now a fifth unit, and Ctrl-C while it is being tested: it must be finished and
-    // recorded, then the loop stops (the first Ctrl-C never abandons a unit).
+    // Now a fifth unit, and Ctrl-C while it is being tested (`--sim-realtime`: the unit
+    // takes the sweep's real playing time, ~1.3 s, after "testing" is shown): it must be
+    // finished and recorded, then the loop stops (the first Ctrl-C never abandons a unit).
     lp.send("E2-0004\n");
     lp.wait_screen("testing E2-0004");
     lp.interrupt();
@@ -243,4 +247,41 @@ fn interrupt_while_waiting_stops_at_once_and_end_of_input_stops_cleanly() {
     assert_eq!(summary["counts"]["tested"], 1);
     assert_eq!(summary["counts"]["retested"], 1);
     assert_eq!(lp.child.wait().unwrap().code(), Some(0));
+}
+
+#[test]
+fn second_interrupt_abandons_the_unit_without_a_record() {
+    let dir = tempfile::tempdir().unwrap();
+    let store = dir.path().join("c");
+    let mut lp = start(&store, &["--sim-realtime"]);
+    lp.send("E2-0300\n");
+    assert_eq!(lp.next_json()["kind"], "unit");
+    lp.send("E2-0301\n");
+    lp.wait_screen("testing E2-0301");
+    // Two SIGINTs within the unit's ~1.3 s of (paced) playing: abandon it.
+    lp.interrupt();
+    std::thread::sleep(Duration::from_millis(50));
+    lp.interrupt();
+    let summary = lp.next_json();
+    assert_eq!(summary["kind"], "summary", "{summary}");
+    assert_eq!(summary["stopped_by"], "interrupt");
+    assert_eq!(summary["abandoned"], "E2-0301");
+    assert_eq!(summary["counts"]["tests"], 1);
+    assert_eq!(lp.child.wait().unwrap().code(), Some(0));
+    // Only the completed unit is in the store, and the chain verifies (no half record).
+    let recs = records(&store);
+    assert_eq!(recs.len(), 1);
+    assert_eq!(recs[0]["serial"], "E2-0300");
+    let v = tragus()
+        .arg("verify")
+        .arg("--store")
+        .arg(&store)
+        .output()
+        .unwrap();
+    assert_eq!(
+        v.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&v.stdout)
+    );
 }

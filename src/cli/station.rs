@@ -50,6 +50,10 @@ pub struct Args {
     /// `nominal` units. For demonstrations and tests.
     #[arg(long, value_name = "SERIAL=KIND")]
     pub sim_unit: Vec<String>,
+    /// Simulated rig: take as long per unit as the sweep takes to play on a sound card
+    /// (operator training; tests use it to press Ctrl-C during a unit).
+    #[arg(long)]
+    pub sim_realtime: bool,
 }
 
 /// Why the loop stopped.
@@ -167,6 +171,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         station_id: None,
         operator: args.operator.clone(),
     })?;
+    bench.pace_realtime = args.sim_realtime;
     let sims = parse_sim_units(&bench, &args.sim_unit)?;
     let nominal = bench.sim_choice("nominal", None)?;
     let mut lines = args.json.as_ref().map(Lines::open).transpose()?;

@@ -46,6 +46,9 @@ pub(crate) struct Bench {
     pub store: PathBuf,
     pub station: StationInfo,
     pub operator: String,
+    /// Simulated rig only: take as long as the sweep would take to play on a real sound
+    /// card (operator training, and a real window for Ctrl-C during a unit in tests).
+    pub pace_realtime: bool,
     seed: u64,
 }
 
@@ -124,6 +127,7 @@ impl Bench {
             store,
             station,
             operator,
+            pace_realtime: false,
             seed,
         })
     }
@@ -205,9 +209,14 @@ impl Bench {
         }
         let mut rig = self.make_rig(serial, sim)?;
         tracing::info!(serial = %serial, rig = rig.name(), "playing the stimulus");
+        let started = std::time::Instant::now();
         let capture = rig
             .play_and_capture(&self.prep.stimulus, self.prep.plan.n_inputs())
             .map_err(Exit::from_rig)?;
+        if self.pace_realtime {
+            let play = std::time::Duration::from_secs_f64(self.stimulus_duration_s());
+            std::thread::sleep(play.saturating_sub(started.elapsed()));
+        }
         let mut result = pipeline::judge_capture(
             &mut self.prep,
             &capture,
