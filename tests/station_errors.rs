@@ -288,3 +288,25 @@ fn a_station_that_maps_channels_must_map_every_plan_channel() {
         "nothing may be recorded"
     );
 }
+
+/// Regression guard for outside input: every prefix of an example station file (what an
+/// interrupted copy or a half-saved edit leaves) loads or is refused with problems, never
+/// panics, and every refusal has at least one `path:line:col` problem.
+#[test]
+fn every_truncation_of_an_example_is_refused_cleanly() {
+    let path = station_path("line3-st1.yaml");
+    let text = std::fs::read_to_string(&path).unwrap();
+    let mut cut = 0;
+    for (i, _) in text.char_indices().step_by(7) {
+        match load_station_str(&text[..i], &path) {
+            Ok(_) => {}
+            Err(StationError::Invalid(p)) => {
+                assert!(!p.is_empty(), "prefix of {i} bytes: no problem given");
+                cut += 1;
+            }
+            Err(e) => panic!("prefix of {i} bytes: unexpected error {e}"),
+        }
+    }
+    // Most prefixes lack the `station:` key's value or cut a mapping: refused.
+    assert!(cut > 0);
+}
