@@ -15,6 +15,7 @@ pub mod plan;
 pub mod report;
 pub mod result;
 pub mod rig;
+pub mod station;
 pub mod store;
 pub mod wav;
 

@@ -91,6 +91,10 @@ pub struct UnitResult {
     /// What the rig was told to simulate, for simulated runs (`nominal`, a defect name).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub simulated_unit: Option<String>,
+    /// The station that tested the unit (id, production or engineering mode, station file
+    /// hash); absent for `analyze`, which tests on no station.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub station: Option<crate::station::StationInfo>,
     /// Unit-level reasons for a retest, in words.
     pub retest_reasons: Vec<String>,
     /// Per-channel measurements.

@@ -20,6 +20,7 @@ fn result(verdict: Verdict, checks: Vec<CheckResult>) -> UnitResult {
         time_utc: "2025-03-04T05:06:07.089Z".into(),
         rig: "simulated".into(),
         simulated_unit: Some("nominal".into()),
+        station: None,
         retest_reasons: vec![],
         channels: vec![
             measurement("left", &[0.0; 7]),

@@ -10,7 +10,9 @@ mod coupler;
 mod pipeline;
 mod records;
 mod run;
+mod station;
 mod stimulus;
+mod unit;
 mod validate;
 
 use clap::{Parser, Subcommand};
@@ -56,7 +58,8 @@ pub struct Cli {
 /// The commands.
 #[derive(Debug, Subcommand)]
 pub enum Command {
-    /// Check test plans; print one `PATH:LINE:COL: message` line per problem.
+    /// Check test plans (and station files with --station); print one `PATH:LINE:COL:
+    /// message` line per problem.
     Validate(validate::Args),
     /// Write the exact signal a plan plays (all output channels) as 32-bit float WAV.
     Stimulus(stimulus::Args),
@@ -64,6 +67,8 @@ pub enum Command {
     Analyze(analyze::Args),
     /// Test one unit end to end on a rig and record it in the store.
     Run(run::Args),
+    /// The operator loop: scan serial numbers, test and record each unit, show the counts.
+    Station(station::Args),
     /// List records from a store, newest first.
     Records(records::ListArgs),
     /// Recompute every record hash, the chain and every raw capture's SHA-256.
@@ -187,6 +192,8 @@ impl Exit {
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct Output {
     pub color: bool,
+    /// Colour is allowed (no --no-color, no NO_COLOR) on whichever stream is a terminal.
+    pub color_allowed: bool,
 }
 
 fn init_tracing(verbose: u8) {
@@ -221,16 +228,17 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         }
     };
     init_tracing(cli.verbose);
+    let color_allowed = !cli.no_color && std::env::var_os("NO_COLOR").is_none();
     let out = Output {
-        color: !cli.no_color
-            && std::env::var_os("NO_COLOR").is_none()
-            && std::io::stdout().is_terminal(),
+        color: color_allowed && std::io::stdout().is_terminal(),
+        color_allowed,
     };
     let result = match cli.command {
         Command::Validate(a) => validate::run(a),
         Command::Stimulus(a) => stimulus::run(a),
         Command::Analyze(a) => analyze::run(a, out),
         Command::Run(a) => run::run(a, out),
+        Command::Station(a) => station::run(a, out),
         Command::Records(a) => records::list(a),
         Command::Verify(a) => records::verify(a),
         Command::Coupler(a) => coupler::run(a),

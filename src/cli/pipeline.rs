@@ -2,13 +2,14 @@
 
 use super::Exit;
 use crate::acoustics::apply::PlanCorrections;
-use crate::acoustics::model::{load_model, ModelError};
+use crate::acoustics::model::{load_model, CouplerModel, ModelError};
 use crate::analysis::Analyzer;
 use crate::checks;
 use crate::dsp::sweep::Stimulus;
 use crate::plan::{load_plan, Plan, PlanError};
 use crate::result::{now_utc_rfc3339, PlanInfo, ToolInfo, UnitResult};
 use crate::rig::Capture;
+use crate::station::Station;
 use crate::Verdict;
 use std::path::Path;
 
@@ -30,32 +31,35 @@ pub(crate) struct Prepared {
 }
 
 /// Replace the fixture model of every corrected channel with the station's own
-/// (`--fixture`); its tap must be the one the plan names.
-fn use_station_fixture(plan: &mut Plan, fixture: &Path) -> Result<(), Exit> {
-    let model = load_model(fixture).map_err(|e| match e {
-        ModelError::Invalid(problems) => Exit::problems("coupler model", &problems),
-        other => Exit::bad_input(other),
-    })?;
+/// (`--fixture` or the station file's `fixture:`); its tap must be the one the plan names,
+/// or `tap` when the station names one. `label` names the source in messages.
+fn use_station_fixture(
+    plan: &mut Plan,
+    model: &CouplerModel,
+    tap: Option<&str>,
+    label: &str,
+) -> Result<(), Exit> {
     let taps = model.tap_names();
     if plan.channels.iter().all(|c| c.correction.is_none()) {
         tracing::warn!(
-            fixture = %fixture.display(),
-            "--fixture given, but the plan corrects no channel; the model is not used"
+            fixture = %model.source.display(),
+            "{label} given, but the plan corrects no channel; the model is not used"
         );
     }
     for ch in &mut plan.channels {
         if let Some(c) = &mut ch.correction {
-            if !taps.contains(&c.fixture_tap.as_str()) {
+            let wanted = tap.unwrap_or(&c.fixture_tap).to_string();
+            if !taps.contains(&wanted.as_str()) {
                 return Err(Exit::bad_input(anyhow::anyhow!(
-                    "--fixture {}: expected a tap `{}` (the plan's fixture_tap for channel {}), \
-                     found taps {}",
-                    fixture.display(),
-                    c.fixture_tap,
+                    "{label} {}: expected a tap `{wanted}` (the plan's fixture_tap for channel \
+                     {}), found taps {}",
+                    model.source.display(),
                     ch.name,
                     taps.join(", ")
                 )));
             }
             c.fixture = model.clone();
+            c.fixture_tap = wanted;
         }
     }
     Ok(())
@@ -64,9 +68,28 @@ fn use_station_fixture(plan: &mut Plan, fixture: &Path) -> Result<(), Exit> {
 /// Load the plan (with the station's fixture model when given) and build everything a
 /// unit needs: stimulus, analyzer, corrections.
 pub(crate) fn prepare(path: &Path, fixture: Option<&Path>) -> Result<Prepared, Exit> {
+    prepare_on(path, None, fixture)
+}
+
+/// Like [`prepare`], on a station: its channel map and fixture are applied first; an
+/// explicit `fixture` (`--fixture`) wins over the station's.
+pub(crate) fn prepare_on(
+    path: &Path,
+    station: Option<&Station>,
+    fixture: Option<&Path>,
+) -> Result<Prepared, Exit> {
     let mut plan = load(path)?;
+    if let Some(st) = station {
+        st.apply_to_plan(&mut plan).map_err(Exit::bad_input)?;
+    }
     if let Some(f) = fixture {
-        use_station_fixture(&mut plan, f)?;
+        let model = load_model(f).map_err(|e| match e {
+            ModelError::Invalid(problems) => Exit::problems("coupler model", &problems),
+            other => Exit::bad_input(other),
+        })?;
+        use_station_fixture(&mut plan, &model, None, "--fixture")?;
+    } else if let Some(fx) = station.and_then(|s| s.fixture.as_ref()) {
+        use_station_fixture(&mut plan, &fx.model, fx.tap.as_deref(), "station fixture")?;
     }
     let stimulus = Stimulus::from_plan(&plan).map_err(Exit::bad_input)?;
     let analyzer = Analyzer::new(&plan, &stimulus).map_err(Exit::bad_input)?;
@@ -117,6 +140,7 @@ pub(crate) fn judge_capture(
         time_utc: now_utc_rfc3339(),
         rig: rig.to_string(),
         simulated_unit,
+        station: None,
         retest_reasons,
         channels,
         checks,

@@ -1,21 +1,11 @@
-//! `tragus run PLAN --serial SN [--rig simulated|soundcard] [--store DIR] [--json OUT]`.
+//! `tragus run PLAN --serial SN [--station FILE] [--rig simulated|soundcard] [--store DIR]
+//! [--json OUT]`: one unit end to end ([`super::unit`]), then the human report or JSON.
 
-use super::{pipeline, Exit, JsonOut, Output};
-use crate::plan::RigSpec;
-use crate::rig::simulated::{SimUnit, SimulatedRig, UnitKind};
-use crate::rig::Rig;
-use crate::store::{NewRecord, Store};
-use anyhow::Context;
+use super::unit::{self, Bench, BenchOptions, UnitStop};
+use super::{Exit, JsonOut, Output};
 use std::path::PathBuf;
 
-/// Which rig plays the plan.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum RigChoice {
-    /// The simulated earphone and fixture (no hardware).
-    Simulated,
-    /// A sound card (needs a station configuration; not in this build yet).
-    Soundcard,
-}
+pub use super::unit::RigChoice;
 
 /// Arguments of `run`.
 #[derive(Debug, clap::Args)]
@@ -26,15 +16,19 @@ pub struct Args {
     /// Serial number of the unit (as scanned).
     #[arg(long, value_name = "SN")]
     pub serial: String,
-    /// Rig to use; defaults to the plan's `rig`.
+    /// Station file: channel map, fixture, store, rig, station id and mode of this bench.
+    #[arg(long, value_name = "FILE")]
+    pub station: Option<PathBuf>,
+    /// Rig to use; defaults to the station's `rig`, else the plan's `rig`.
     #[arg(long, value_enum)]
     pub rig: Option<RigChoice>,
-    /// Store directory (created if missing).
-    #[arg(long, value_name = "DIR", default_value = "tragus-data")]
-    pub store: PathBuf,
-    /// Station name recorded with the unit.
-    #[arg(long, default_value = "bench-1")]
-    pub station: String,
+    /// Store directory (created if missing); wins over the station's `store`; default
+    /// `tragus-data`.
+    #[arg(long, value_name = "DIR")]
+    pub store: Option<PathBuf>,
+    /// Station id recorded with the unit when no station file is given (default `bench-1`).
+    #[arg(long, value_name = "ID", conflicts_with = "station")]
+    pub station_id: Option<String>,
     /// Operator recorded with the unit (defaults to $USER).
     #[arg(long)]
     pub operator: Option<String>,
@@ -47,7 +41,8 @@ pub struct Args {
     #[arg(long, value_name = "CHANNEL")]
     pub sim_channel: Option<String>,
     /// The station's own fixture model: replaces the plan's `correction.fixture` for every
-    /// corrected channel (the plan's `fixture_tap` must exist in it).
+    /// corrected channel (the plan's `fixture_tap` must exist in it); wins over the station
+    /// file's `fixture`.
     #[arg(long, value_name = "MODEL.yaml")]
     pub fixture: Option<PathBuf>,
     /// Write the result JSON here (`-` for stdout: human output then goes nowhere).
@@ -55,142 +50,33 @@ pub struct Args {
     pub json: Option<JsonOut>,
 }
 
-fn parse_sim_unit(s: &str) -> Result<UnitKind, Exit> {
-    s.parse::<UnitKind>()
-        .map_err(|e| Exit::bad_input(anyhow::anyhow!("--sim-unit: {e}")))
-}
-
-/// The fixture the simulated rig puts the unit in: the one the plan's correction names
-/// (after `--fixture`), shared by every corrected channel since a station has one fixture.
-/// `None` when no channel is corrected.
-fn simulated_fixture(
-    plan: &crate::plan::Plan,
-) -> Result<Option<(crate::acoustics::network::Coupler, String)>, Exit> {
-    let mut found: Option<&crate::plan::CorrectionSpec> = None;
-    for c in plan.channels.iter().filter_map(|c| c.correction.as_ref()) {
-        match found {
-            None => found = Some(c),
-            Some(f) if f.fixture.sha256 == c.fixture.sha256 && f.fixture_tap == c.fixture_tap => {}
-            Some(f) => {
-                return Err(Exit::bad_input(anyhow::anyhow!(
-                    "--rig simulated: expected one fixture model and tap for every corrected \
-                     channel (the simulated station has one fixture), found `{}` tap `{}` and \
-                     `{}` tap `{}`; give --fixture to use one",
-                    f.fixture.id,
-                    f.fixture_tap,
-                    c.fixture.id,
-                    c.fixture_tap
-                )))
-            }
-        }
-    }
-    Ok(found.map(|c| (c.fixture.coupler(), c.fixture_tap.clone())))
-}
-
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
-    let mut prep = pipeline::prepare(&args.plan, args.fixture.as_deref())?;
-    let choice = args.rig.unwrap_or(match prep.plan.rig {
-        RigSpec::Simulated { .. } => RigChoice::Simulated,
-        RigSpec::Soundcard => RigChoice::Soundcard,
-    });
-    if args.serial.trim().is_empty() {
-        return Err(Exit::bad_input(anyhow::anyhow!(
-            "--serial: expected a serial number, found an empty string"
-        )));
-    }
-    let (mut rig, sim_label): (Box<dyn Rig>, Option<String>) = match choice {
-        RigChoice::Simulated => {
-            let kind = parse_sim_unit(&args.sim_unit)?;
-            let defect_channel = match &args.sim_channel {
-                None => 0,
-                Some(name) => prep.plan.channel_index(name).ok_or_else(|| {
-                    Exit::bad_input(anyhow::anyhow!(
-                        "--sim-channel: expected one of the plan's channels ({}), found `{name}`",
-                        prep.plan
-                            .channels
-                            .iter()
-                            .map(|c| c.name.as_str())
-                            .collect::<Vec<_>>()
-                            .join(", ")
-                    ))
-                })?,
-            };
-            let seed = match prep.plan.rig {
-                RigSpec::Simulated { seed } => seed,
-                RigSpec::Soundcard => 1,
-            };
-            let routes = prep
-                .plan
-                .channels
-                .iter()
-                .map(|c| (c.output, c.input))
-                .collect();
-            let unit = SimUnit {
-                serial: args.serial.clone(),
-                kind,
-                defect_channel,
-            };
-            let rig = match simulated_fixture(&prep.plan)? {
-                // The physical unit (rig v2) in the fixture the correction models, so the
-                // correction can be judged against the physics it assumes.
-                Some((coupler, tap)) => {
-                    tracing::info!(fixture = %coupler.id, "simulated rig: physical earphone");
-                    SimulatedRig::physical(routes, seed, unit, coupler, &tap)
-                        .map_err(Exit::bad_input)?
-                }
-                // No fixture model known: the behavioural unit (rig v1).
-                None => SimulatedRig::new(routes, seed, unit),
-            };
-            (Box::new(rig), Some(args.sim_unit.clone()))
-        }
-        RigChoice::Soundcard => {
-            return Err(Exit::bad_input(anyhow::anyhow!(
-                "--rig soundcard: the sound-card rig is not in this build yet; use \
-                 `--rig simulated`, or record the stimulus yourself and use `tragus analyze`"
+    let station = args
+        .station
+        .as_deref()
+        .map(unit::load_station)
+        .transpose()?;
+    let mut bench = Bench::new(BenchOptions {
+        plan: &args.plan,
+        station: station.as_ref(),
+        fixture: args.fixture.as_deref(),
+        rig: args.rig,
+        store: args.store.clone(),
+        station_id: args.station_id.clone(),
+        operator: args.operator.clone(),
+    })?;
+    let sim = bench.sim_choice(&args.sim_unit, args.sim_channel.as_deref())?;
+    let tested = match bench.test_unit(&args.serial, &sim, &|| false) {
+        Ok(t) => t,
+        Err(UnitStop::Error(e)) => return Err(e),
+        // `run` never asks to abandon; kept total rather than a panic.
+        Err(UnitStop::Abandoned) => {
+            return Err(Exit::retest(anyhow::anyhow!(
+                "the unit was abandoned and NOT recorded; test it again"
             )))
         }
     };
-    tracing::info!(serial = %args.serial, rig = rig.name(), "playing the stimulus");
-    let capture = rig
-        .play_and_capture(&prep.stimulus, prep.plan.n_inputs())
-        .map_err(Exit::from_rig)?;
-    let result = pipeline::judge_capture(&mut prep, &capture, &args.serial, rig.name(), sim_label)?;
-
-    // Record before reporting: a verdict the store does not hold was never given.
-    let result_json = serde_json::to_string(&result)
-        .context("cannot serialise the result")
-        .map_err(Exit::retest)?;
-    let wav = crate::wav::encode_wav_f32(capture.sample_rate_hz, &capture.channels)
-        .context("cannot encode the raw capture")
-        .map_err(Exit::retest)?;
-    let operator = args
-        .operator
-        .clone()
-        .or_else(|| std::env::var("USER").ok())
-        .unwrap_or_else(|| "unknown".into());
-    let record = NewRecord {
-        time_utc: result.time_utc.clone(),
-        serial: result.serial.clone(),
-        plan_id: result.plan.id.clone(),
-        plan_revision: result.plan.revision,
-        plan_sha256: result.plan.sha256.clone(),
-        software_version: result.tool.version.clone(),
-        station: args.station.clone(),
-        operator,
-        rig: result.rig.clone(),
-        verdict: result.verdict,
-        result_json,
-    };
-    let stored = Store::open(&args.store)
-        .and_then(|mut s| s.append(&record, &wav))
-        .with_context(|| {
-            format!(
-                "{}: the unit was NOT recorded; test it again",
-                args.store.display()
-            )
-        })
-        .map_err(Exit::retest)?;
-    tracing::info!(record = stored.id, hash = %stored.record_hash, "recorded");
+    let (result, stored) = (tested.result, tested.stored);
 
     if let Some(j) = &args.json {
         j.write(&result).map_err(Exit::bad_input)?;
@@ -200,7 +86,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         println!(
             "recorded as #{} in {} (capture {})",
             stored.id,
-            args.store.display(),
+            bench.store.display(),
             &stored.capture_sha256[..16.min(stored.capture_sha256.len())]
         );
     }

@@ -208,6 +208,41 @@ fn retest_reasons(result: &UnitResult) -> Vec<String> {
     out
 }
 
+/// The operator's view of one unit, read from a step away: the verdict in block letters
+/// and as a word, the reasons for a retest, and one line per failed check with its worst
+/// margin (negative: outside the limit) and where it is. `color` adds ANSI colour.
+pub fn render_operator(result: &UnitResult, color: bool) -> String {
+    let mut out = String::new();
+    out.push_str(&format!("unit {}\n", result.serial));
+    for line in block_word(result.verdict.word()) {
+        out.push_str("  ");
+        out.push_str(&paint(color, result.verdict, &line));
+        out.push('\n');
+    }
+    out.push_str(&format!(
+        "  {} · {}\n",
+        paint(color, result.verdict, result.verdict.word()),
+        summary(result)
+    ));
+    for r in retest_reasons(result) {
+        out.push_str(&format!("  retest: {r}\n"));
+    }
+    for c in result.checks.iter().filter(|c| c.verdict != Verdict::Pass) {
+        let at = c
+            .at_hz
+            .map(|f| format!(" at {}", format_hz(f)))
+            .unwrap_or_default();
+        out.push_str(&format!(
+            "  {} {} on {}: margin {} dB{at}\n",
+            paint(color, c.verdict, c.verdict.word()),
+            c.id,
+            c.channel,
+            format_margin(c.worst_margin_db)
+        ));
+    }
+    out
+}
+
 /// A margin for the table: two decimals, or a dash when there is none.
 fn format_margin(margin_db: Option<f64>) -> String {
     match margin_db {

@@ -7,6 +7,7 @@
 
 pub mod recording;
 pub mod simulated;
+pub mod soundcard_spec;
 
 use crate::dsp::sweep::Stimulus;
 

@@ -1,0 +1,301 @@
+//! One unit end to end on a bench: rig → capture → judge → record. Shared by `tragus run`
+//! (one unit) and `tragus station` (the operator loop), so both test and record a unit in
+//! exactly the same way.
+
+use super::{pipeline, Exit};
+use crate::plan::RigSpec;
+use crate::rig::simulated::{SimUnit, SimulatedRig, UnitKind};
+use crate::rig::Rig;
+use crate::station::{Mode, Station, StationInfo, StationRig};
+use crate::store::{NewRecord, Store, StoredRecord};
+use anyhow::Context;
+use std::path::{Path, PathBuf};
+
+/// Which rig plays the plan.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum RigChoice {
+    /// The simulated earphone and fixture (no hardware).
+    Simulated,
+    /// A sound card (needs a station configuration; not in this build yet).
+    Soundcard,
+}
+
+/// Default store directory when neither `--store` nor the station names one.
+pub(crate) const DEFAULT_STORE: &str = "tragus-data";
+/// Default station id when no station file names one.
+pub(crate) const DEFAULT_STATION_ID: &str = "bench-1";
+
+/// How a bench is set up: the command's options, before anything is loaded.
+pub(crate) struct BenchOptions<'a> {
+    pub plan: &'a Path,
+    pub station: Option<&'a Station>,
+    /// `--fixture` (wins over the station's fixture).
+    pub fixture: Option<&'a Path>,
+    /// `--rig` (wins over the station's and the plan's rig).
+    pub rig: Option<RigChoice>,
+    /// `--store` (wins over the station's store).
+    pub store: Option<PathBuf>,
+    /// Station id when there is no station file.
+    pub station_id: Option<String>,
+    pub operator: Option<String>,
+}
+
+/// Everything that stays the same from unit to unit on one bench.
+pub(crate) struct Bench {
+    pub prep: pipeline::Prepared,
+    pub store: PathBuf,
+    pub station: StationInfo,
+    pub operator: String,
+    /// Simulated rig only: take as long as the sweep would take to play on a real sound
+    /// card (operator training, and a real window for Ctrl-C during a unit in tests).
+    pub pace_realtime: bool,
+    seed: u64,
+}
+
+/// What the simulated rig is told to put in the fixture.
+#[derive(Debug, Clone)]
+pub(crate) struct SimChoice {
+    pub kind: UnitKind,
+    /// Plan channel index that carries the defect.
+    pub defect_channel: usize,
+    /// The name as the user wrote it (recorded).
+    pub label: String,
+}
+
+/// One tested and recorded unit.
+pub(crate) struct Tested {
+    pub result: crate::result::UnitResult,
+    pub stored: StoredRecord,
+}
+
+/// Why a unit has no record.
+pub(crate) enum UnitStop {
+    /// The operator abandoned the unit (second Ctrl-C) before it was recorded.
+    Abandoned,
+    /// An error, with its exit code.
+    Error(Exit),
+}
+
+impl From<Exit> for UnitStop {
+    fn from(e: Exit) -> Self {
+        UnitStop::Error(e)
+    }
+}
+
+impl Bench {
+    /// Load the plan on the station and decide rig, store, station id and operator.
+    pub fn new(o: BenchOptions) -> Result<Bench, Exit> {
+        let prep = pipeline::prepare_on(o.plan, o.station, o.fixture)?;
+        let rig = o.rig.unwrap_or(match o.station.map(|s| s.rig) {
+            Some(StationRig::Simulated) => RigChoice::Simulated,
+            Some(StationRig::Soundcard) => RigChoice::Soundcard,
+            None => match prep.plan.rig {
+                RigSpec::Simulated { .. } => RigChoice::Simulated,
+                RigSpec::Soundcard => RigChoice::Soundcard,
+            },
+        });
+        if rig == RigChoice::Soundcard {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "--rig soundcard: the sound-card rig is not in this build yet; use \
+                 `--rig simulated`, or record the stimulus yourself and use `tragus analyze`"
+            )));
+        }
+        let store = o
+            .store
+            .or_else(|| o.station.and_then(|s| s.store.clone()))
+            .unwrap_or_else(|| PathBuf::from(DEFAULT_STORE));
+        let station = match o.station {
+            Some(s) => s.info(),
+            None => StationInfo {
+                id: o
+                    .station_id
+                    .unwrap_or_else(|| DEFAULT_STATION_ID.to_string()),
+                mode: Mode::Production,
+                sha256: None,
+            },
+        };
+        let operator = o
+            .operator
+            .or_else(|| std::env::var("USER").ok())
+            .unwrap_or_else(|| "unknown".into());
+        let seed = match prep.plan.rig {
+            RigSpec::Simulated { seed } => seed,
+            RigSpec::Soundcard => 1,
+        };
+        Ok(Bench {
+            prep,
+            store,
+            station,
+            operator,
+            pace_realtime: false,
+            seed,
+        })
+    }
+
+    /// Parse `--sim-unit` / `--sim-channel` against this plan.
+    pub fn sim_choice(&self, unit: &str, channel: Option<&str>) -> Result<SimChoice, Exit> {
+        let kind = unit
+            .parse::<UnitKind>()
+            .map_err(|e| Exit::bad_input(anyhow::anyhow!("--sim-unit: {e}")))?;
+        let plan = &self.prep.plan;
+        let defect_channel = match channel {
+            None => 0,
+            Some(name) => plan.channel_index(name).ok_or_else(|| {
+                Exit::bad_input(anyhow::anyhow!(
+                    "--sim-channel: expected one of the plan's channels ({}), found `{name}`",
+                    plan.channels
+                        .iter()
+                        .map(|c| c.name.as_str())
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                ))
+            })?,
+        };
+        Ok(SimChoice {
+            kind,
+            defect_channel,
+            label: unit.to_string(),
+        })
+    }
+
+    /// Expected time one unit's sweep plays, s (for a progress indicator).
+    pub fn stimulus_duration_s(&self) -> f64 {
+        let s = &self.prep.stimulus;
+        s.n_samples() as f64 / f64::from(s.sample_rate_hz)
+    }
+
+    fn make_rig(&self, serial: &str, sim: &SimChoice) -> Result<Box<dyn Rig>, Exit> {
+        let routes = self
+            .prep
+            .plan
+            .channels
+            .iter()
+            .map(|c| (c.output, c.input))
+            .collect();
+        let unit = SimUnit {
+            serial: serial.to_string(),
+            kind: sim.kind,
+            defect_channel: sim.defect_channel,
+        };
+        Ok(match simulated_fixture(&self.prep.plan)? {
+            // The physical unit (rig v2) in the fixture the correction models, so the
+            // correction can be judged against the physics it assumes.
+            Some((coupler, tap)) => {
+                tracing::info!(fixture = %coupler.id, "simulated rig: physical earphone");
+                Box::new(
+                    SimulatedRig::physical(routes, self.seed, unit, coupler, &tap)
+                        .map_err(Exit::bad_input)?,
+                )
+            }
+            // No fixture model known: the behavioural unit (rig v1).
+            None => Box::new(SimulatedRig::new(routes, self.seed, unit)),
+        })
+    }
+
+    /// Test one unit and record it. `abandon` is asked once more just before the record is
+    /// written: when it says yes, nothing is written ([`UnitStop::Abandoned`]). The store
+    /// appends a record and its capture in one transaction, so there is never half a record.
+    pub fn test_unit(
+        &mut self,
+        serial: &str,
+        sim: &SimChoice,
+        abandon: &dyn Fn() -> bool,
+    ) -> Result<Tested, UnitStop> {
+        if serial.trim().is_empty() {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "--serial: expected a serial number, found an empty string"
+            ))
+            .into());
+        }
+        let mut rig = self.make_rig(serial, sim)?;
+        tracing::info!(serial = %serial, rig = rig.name(), "playing the stimulus");
+        let started = std::time::Instant::now();
+        let capture = rig
+            .play_and_capture(&self.prep.stimulus, self.prep.plan.n_inputs())
+            .map_err(Exit::from_rig)?;
+        if self.pace_realtime {
+            let play = std::time::Duration::from_secs_f64(self.stimulus_duration_s());
+            std::thread::sleep(play.saturating_sub(started.elapsed()));
+        }
+        let mut result = pipeline::judge_capture(
+            &mut self.prep,
+            &capture,
+            serial,
+            rig.name(),
+            Some(sim.label.clone()),
+        )?;
+        result.station = Some(self.station.clone());
+
+        // Record before reporting: a verdict the store does not hold was never given.
+        let result_json = serde_json::to_string(&result)
+            .context("cannot serialise the result")
+            .map_err(Exit::retest)?;
+        let wav = crate::wav::encode_wav_f32(capture.sample_rate_hz, &capture.channels)
+            .context("cannot encode the raw capture")
+            .map_err(Exit::retest)?;
+        let record = NewRecord {
+            time_utc: result.time_utc.clone(),
+            serial: result.serial.clone(),
+            plan_id: result.plan.id.clone(),
+            plan_revision: result.plan.revision,
+            plan_sha256: result.plan.sha256.clone(),
+            software_version: result.tool.version.clone(),
+            station: self.station.id.clone(),
+            operator: self.operator.clone(),
+            rig: result.rig.clone(),
+            verdict: result.verdict,
+            result_json,
+        };
+        if abandon() {
+            return Err(UnitStop::Abandoned);
+        }
+        let stored = Store::open(&self.store)
+            .and_then(|mut s| s.append(&record, &wav))
+            .with_context(|| {
+                format!(
+                    "{}: the unit was NOT recorded; test it again",
+                    self.store.display()
+                )
+            })
+            .map_err(Exit::retest)?;
+        tracing::info!(record = stored.id, hash = %stored.record_hash, "recorded");
+        Ok(Tested { result, stored })
+    }
+}
+
+/// The fixture the simulated rig puts the unit in: the one the plan's correction names
+/// (after `--fixture` or the station's fixture), shared by every corrected channel since a
+/// station has one fixture. `None` when no channel is corrected.
+fn simulated_fixture(
+    plan: &crate::plan::Plan,
+) -> Result<Option<(crate::acoustics::network::Coupler, String)>, Exit> {
+    let mut found: Option<&crate::plan::CorrectionSpec> = None;
+    for c in plan.channels.iter().filter_map(|c| c.correction.as_ref()) {
+        match found {
+            None => found = Some(c),
+            Some(f) if f.fixture.sha256 == c.fixture.sha256 && f.fixture_tap == c.fixture_tap => {}
+            Some(f) => {
+                return Err(Exit::bad_input(anyhow::anyhow!(
+                    "--rig simulated: expected one fixture model and tap for every corrected \
+                     channel (the simulated station has one fixture), found `{}` tap `{}` and \
+                     `{}` tap `{}`; give --fixture to use one",
+                    f.fixture.id,
+                    f.fixture_tap,
+                    c.fixture.id,
+                    c.fixture_tap
+                )))
+            }
+        }
+    }
+    Ok(found.map(|c| (c.fixture.coupler(), c.fixture_tap.clone())))
+}
+
+/// Load a station file; problems become one bad-input error listing every line.
+pub(crate) fn load_station(path: &Path) -> Result<Station, Exit> {
+    crate::station::load_station(path).map_err(|e| match e {
+        crate::station::StationError::Invalid(problems) => {
+            Exit::problems("station file", &problems)
+        }
+        other => Exit::bad_input(other),
+    })
+}

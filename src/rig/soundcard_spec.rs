@@ -1,0 +1,24 @@
+//! The sound-card settings as plain data: where and how the sound-card rig plays and
+//! records. Always compiled (no audio-backend types), so that station files can be read and
+//! validated on any machine; the station configuration ([`crate::station`]) produces it.
+
+/// Where and how the sound-card rig plays and records (station settings, plain data).
+#[derive(Debug, Clone, PartialEq)]
+pub struct SoundcardSpec {
+    /// cpal host name (`alsa`, `jack`, ...); `None` = the default host.
+    pub host: Option<String>,
+    /// Output device name; `None` = the host's default output device.
+    pub output_device: Option<String>,
+    /// Input device name; `None` = the host's default input device.
+    pub input_device: Option<String>,
+    /// Buffer size in frames; `None` = the device default.
+    pub buffer_frames: Option<u32>,
+    /// 0-based input channel that carries the electrical loopback of the drive (latency and
+    /// clock reference), if the station has one; it replays output `loopback_output`.
+    pub loopback_input: Option<usize>,
+    /// 0-based output channel whose drive the loopback input carries.
+    pub loopback_output: Option<usize>,
+    /// Above this estimated clock drift (ppm) between separate input and output devices the
+    /// measurement is a retest.
+    pub max_clock_drift_ppm: f64,
+}

@@ -1,0 +1,286 @@
+//! Station configuration: everything that belongs to the bench, not to the product.
+//!
+//! A plan says what to measure and how to judge it, and stays portable between stations;
+//! the station file says where the sound goes on this bench (audio host and devices, which
+//! device channel each plan channel uses, the electrical loopback), which fixture the unit
+//! sits in, which calibration and store the bench uses, whether it tests production units,
+//! and the hardware caps that keep people's hearing safe. It sits beside the plan at the
+//! start of the data flow: the CLI loads both ([`load_station`]), then
+//! [`Station::apply_to_plan`] remaps the plan's channel numbers before the stimulus is built.
+//!
+//! Like plans and coupler models, every problem is reported at once as
+//! `PATH:LINE:COL: message`, unknown keys with the nearest known key suggested; paths in the
+//! file resolve against the station file's directory.
+//!
+//! # Schema
+//!
+//! ```yaml
+//! station: line3-st1              # id: [a-z0-9][a-z0-9._-]*, recorded with every unit
+//! description: free text          # optional
+//! mode: production                # production (default) | engineering
+//! rig: simulated                  # simulated (default) | soundcard
+//! audio:                          # optional; every key optional
+//!   host: alsa                    # cpal host; default: the default host
+//!   output_device: "USB Audio"    # default: the host's default output
+//!   input_device: "USB Audio"     # default: the host's default input
+//!   buffer_frames: 256            # 16 to 65536; default: the device's
+//!   loopback: {input: 3, output: 1}   # 1-based; the drive of output 1 wired into input 3
+//!   max_clock_drift_ppm: 20       # default 20 (DEFAULT_MAX_CLOCK_DRIFT_PPM)
+//! channels:                       # optional: plan channel name → device channels, 1-based
+//!   left: {output: 1, input: 1}
+//!   right: {output: 2, input: 2}
+//! fixture: ../reference/couplers/fixture-line3-a.yaml   # optional coupler model
+//! fixture_tap: mic                # optional; default: the plan's fixture_tap
+//! calibration: ../calibration/line3-st1.yaml            # required in production mode
+//! store: ../tragus-data/line3-st1 # optional; default tragus-data
+//! caps:                           # optional; every key optional, defaults in Caps
+//!   max_drive_v_rms: 0.5
+//!   max_drive_v_peak: 0.8
+//!   max_digital_dbfs: -1
+//!   max_spl_mic_db: 140
+//!   max_spl_reference_db: 125
+//!   max_spl_reference_dba: 115
+//! ```
+//!
+//! # Decisions
+//!
+//! - **Channel map, all or nothing.** With no `channels:` the plan's own numbers are used.
+//!   With a `channels:` map, every channel of the plan must be in it, or the run is refused
+//!   ([`StationError::UnmappedChannel`]): a partly mapped plan would silently mix the
+//!   station's wiring with numbers written for another bench, the classic wrong-channel
+//!   fault. The map may name channels a plan does not use (one station runs several plans).
+//!   Outputs and inputs in the map are unique, and the loopback input is none of them.
+//! - **Production needs a calibration.** `mode: production` without `calibration:` is a
+//!   problem in the file; `mode: engineering` marks every record as non-production.
+//! - **Hash.** [`Station::sha256`] is the SHA-256 of the station file's bytes: the record
+//!   names the exact file; the fixture model has its own hash in the correction record.
+
+mod load;
+pub mod tally;
+
+pub use load::{load_station, load_station_str};
+
+use crate::acoustics::model::CouplerModel;
+use crate::plan::{Plan, Problem};
+use crate::rig::soundcard_spec::SoundcardSpec;
+use std::path::PathBuf;
+
+/// Default bound on the clock drift between separate input and output devices, ppm.
+///
+/// 20 ppm over a 1 s sweep is 20 µs, one sample at 48 kHz: beyond that the deconvolved
+/// impulse response smears at high frequencies. Consumer converter crystals are specified
+/// to some tens of ppm each (common practice, from memory), so two unlocked devices can
+/// exceed it and are then told apart from locked ones.
+pub const DEFAULT_MAX_CLOCK_DRIFT_PPM: f64 = 20.0;
+/// Accepted range of `max_clock_drift_ppm`: above 1000 ppm (0.1 %) no measurement is
+/// meaningful, and 0 would refuse every real device pair.
+pub const CLOCK_DRIFT_RANGE_PPM: (f64, f64) = (0.1, 1000.0);
+/// Accepted range of `buffer_frames` (audio APIs' usual limits, common practice).
+pub const BUFFER_FRAMES_RANGE: (i128, i128) = (16, 65_536);
+/// Highest device channel number (1-based) a station may name; the plan's own limit.
+pub const MAX_CHANNEL_NUMBER: usize = crate::plan::validate::MAX_CHANNEL_NUMBER;
+
+/// Whether the station tests units that ship.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Mode {
+    /// Production: calibrated, every record is a shipping decision.
+    Production,
+    /// Engineering (non-production): bench work, every record says so.
+    Engineering,
+}
+
+impl Mode {
+    /// The name written in files and records.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Mode::Production => "production",
+            Mode::Engineering => "engineering",
+        }
+    }
+}
+
+/// Which rig the station uses.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum StationRig {
+    /// The simulated earphone and fixture.
+    Simulated,
+    /// The sound card described by [`Station::soundcard`].
+    Soundcard,
+}
+
+/// Device channels of one plan channel, 0-based.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ChannelRoute {
+    /// Plan channel name.
+    pub name: String,
+    /// Output channel, 0-based.
+    pub output: usize,
+    /// Input channel, 0-based.
+    pub input: usize,
+}
+
+/// The station's fixture: the coupler model the unit sits in, replacing the plan's
+/// correction fixture.
+#[derive(Debug, Clone, PartialEq)]
+pub struct StationFixture {
+    /// The fixture's coupler model.
+    pub model: CouplerModel,
+    /// Microphone tap in it; `None` = the plan's `fixture_tap`.
+    pub tap: Option<String>,
+}
+
+/// Hardware caps (issue 5 enforces them; here they are read and checked for sense).
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct Caps {
+    /// Highest rms drive voltage at the earphone terminals, V.
+    pub max_drive_v_rms: f64,
+    /// Highest peak drive voltage, V.
+    pub max_drive_v_peak: f64,
+    /// Highest digital peak level of the stimulus, dBFS.
+    pub max_digital_dbfs: f64,
+    /// Highest sound pressure level at the fixture microphone, dB SPL re 20 µPa.
+    pub max_spl_mic_db: f64,
+    /// Highest sound pressure level in the reference coupler (ear-equivalent), dB SPL.
+    pub max_spl_reference_db: f64,
+    /// Highest A-weighted level in the reference coupler, dB(A).
+    pub max_spl_reference_dba: f64,
+}
+
+impl Default for Caps {
+    /// Conservative defaults for an earphone line (common practice, from memory; issue 5
+    /// reviews them): 0.5 V rms / 0.8 V peak is tens of milliwatts into a 16–32 Ω earbud,
+    /// far above what a sweep at −18 dBFS needs; −1 dBFS leaves headroom for inter-sample
+    /// peaks; 140 dB SPL is within the range of a ¼-inch measurement microphone; 125 dB SPL
+    /// peak and 115 dB(A) in the ear-equivalent coupler bound a short test signal that a
+    /// person might hear if a unit is taken out while playing.
+    fn default() -> Self {
+        Caps {
+            max_drive_v_rms: 0.5,
+            max_drive_v_peak: 0.8,
+            max_digital_dbfs: -1.0,
+            max_spl_mic_db: 140.0,
+            max_spl_reference_db: 125.0,
+            max_spl_reference_dba: 115.0,
+        }
+    }
+}
+
+/// A validated station file.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Station {
+    /// Station id (`station:`), recorded with every unit.
+    pub id: String,
+    /// Free-text description (empty when absent).
+    pub description: String,
+    /// Production or engineering.
+    pub mode: Mode,
+    /// Which rig plays the plan.
+    pub rig: StationRig,
+    /// Audio host, devices, buffer and loopback (0-based channels).
+    pub soundcard: SoundcardSpec,
+    /// Plan channel → device channels; empty = use the plan's numbers.
+    pub channels: Vec<ChannelRoute>,
+    /// The station's fixture, if it names one.
+    pub fixture: Option<StationFixture>,
+    /// Calibration file (resolved against the station file's directory).
+    pub calibration: Option<PathBuf>,
+    /// Store directory (resolved), if the station names one.
+    pub store: Option<PathBuf>,
+    /// Hardware caps.
+    pub caps: Caps,
+    /// Hex SHA-256 of the station file's bytes.
+    pub sha256: String,
+    /// The file the station came from.
+    pub source: PathBuf,
+}
+
+/// Why a station could not be loaded or applied.
+#[derive(Debug, thiserror::Error)]
+pub enum StationError {
+    /// The file could not be read.
+    #[error("{path}: cannot read station file: {source}")]
+    Io {
+        /// The path.
+        path: String,
+        /// The I/O error.
+        source: std::io::Error,
+    },
+    /// The file was read but is not valid; one `path:line:col: message` line per problem.
+    #[error("{}", .0.iter().map(|p| p.to_string()).collect::<Vec<_>>().join("\n"))]
+    Invalid(Vec<Problem>),
+    /// The station maps channels but not this one of the plan's; add it to `channels:`.
+    #[error(
+        "{station}: channels: expected an entry for the plan's channel `{channel}` (the station \
+         maps {mapped}); a station that maps channels must map every channel of the plan"
+    )]
+    UnmappedChannel {
+        /// Station file.
+        station: String,
+        /// The plan channel it does not map.
+        channel: String,
+        /// The channels it maps, comma-separated.
+        mapped: String,
+    },
+}
+
+/// What a result records about the station (`station` object of the result JSON).
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct StationInfo {
+    /// Station id.
+    pub id: String,
+    /// `production` or `engineering`.
+    pub mode: Mode,
+    /// SHA-256 of the station file; `None` for a station named without a file.
+    pub sha256: Option<String>,
+}
+
+impl Station {
+    /// The plan's channels on this station's device channels, 0-based `(output, input)` in
+    /// plan order. Without a channel map, the plan's own numbers.
+    pub fn routes_for(&self, plan: &Plan) -> Result<Vec<(usize, usize)>, StationError> {
+        plan.channels
+            .iter()
+            .map(|c| {
+                if self.channels.is_empty() {
+                    return Ok((c.output, c.input));
+                }
+                self.channels
+                    .iter()
+                    .find(|r| r.name == c.name)
+                    .map(|r| (r.output, r.input))
+                    .ok_or_else(|| StationError::UnmappedChannel {
+                        station: self.source.display().to_string(),
+                        channel: c.name.clone(),
+                        mapped: self
+                            .channels
+                            .iter()
+                            .map(|r| r.name.as_str())
+                            .collect::<Vec<_>>()
+                            .join(", "),
+                    })
+            })
+            .collect()
+    }
+
+    /// Put the plan's channels on this station's device channels (before the stimulus and
+    /// analyzer are built). The plan's hash is left as it was: it names the portable plan,
+    /// and the record names the station separately.
+    pub fn apply_to_plan(&self, plan: &mut Plan) -> Result<(), StationError> {
+        let routes = self.routes_for(plan)?;
+        for (c, (output, input)) in plan.channels.iter_mut().zip(routes) {
+            c.output = output;
+            c.input = input;
+        }
+        Ok(())
+    }
+
+    /// What a result records about this station.
+    pub fn info(&self) -> StationInfo {
+        StationInfo {
+            id: self.id.clone(),
+            mode: self.mode,
+            sha256: Some(self.sha256.clone()),
+        }
+    }
+}
