@@ -237,3 +237,27 @@ impl Calibration {
         file::to_yaml(self)
     }
 }
+
+/// Unit of a calibrated response (DESIGN.md).
+pub const UNIT_DB_SPL_PER_V: &str = "dB SPL/V";
+
+/// Turn a digital measurement (dB FS/FS) into a calibrated one (dB SPL/V): add `offset_db`
+/// ([`response_offset_db`]) to every absolute level — the response, the fixture response
+/// before correction, and the fine spectrum that smoothing and point levels read — and set
+/// the unit. Relative quantities (harmonics, THD, rub and buzz, phase) do not change.
+pub fn apply_offset(m: &mut crate::analysis::ChannelMeasurement, offset_db: f64) {
+    for r in &mut m.response_db {
+        *r += offset_db;
+    }
+    if let Some(f) = &mut m.fixture_response_db {
+        for r in f {
+            *r += offset_db;
+        }
+    }
+    let power_gain = 10f64.powf(offset_db / 10.0);
+    for p in &mut m.fine.power {
+        *p *= power_gain;
+    }
+    m.fine.rebuild_cumulative();
+    m.unit = UNIT_DB_SPL_PER_V.to_string();
+}

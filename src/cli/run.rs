@@ -53,6 +53,15 @@ pub struct Args {
     /// Write the result JSON here (`-` for stdout: human output then goes nowhere).
     #[arg(long, value_name = "OUT")]
     pub json: Option<JsonOut>,
+    /// The station's calibration file (`tragus calibrate`): responses become dB SPL/V and its
+    /// SHA-256 is recorded with the unit. A past-due calibration, or one that misses a
+    /// channel the plan uses, refuses the run (exit 2) unless `--non-production`.
+    #[arg(long, value_name = "CAL.yaml")]
+    pub calibration: Option<PathBuf>,
+    /// Test outside production (engineering, trials): run even with a past-due or partial
+    /// calibration; every record then says `non-production`.
+    #[arg(long)]
+    pub non_production: bool,
 }
 
 fn parse_sim_unit(s: &str) -> Result<UnitKind, Exit> {
@@ -87,8 +96,95 @@ fn simulated_fixture(
     Ok(found.map(|c| (c.fixture.coupler(), c.fixture_tap.clone())))
 }
 
+/// Load the calibration (if any), refuse what production may not use, and set the per-channel
+/// dB SPL/V offsets and the mode that goes into the record. Refusals are bad input (exit 2):
+/// no unit is tested on a station that is not fit to test it.
+pub(crate) fn use_calibration(
+    prep: &mut pipeline::Prepared,
+    path: Option<&std::path::Path>,
+    non_production: bool,
+    today: time::Date,
+) -> Result<(), Exit> {
+    use crate::calibration::{load_calibration, CalibrationError};
+    use crate::result::CalibrationInfo;
+    let needs = pipeline::plan_needs_calibration(&prep.plan);
+    let mode = if non_production {
+        "non-production"
+    } else {
+        "production"
+    };
+    let Some(path) = path else {
+        if let Some(check) = needs {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "check `{check}` is written in dB SPL, which needs a calibration: give \
+                 --calibration CAL.yaml (made with `tragus calibrate`)"
+            )));
+        }
+        prep.calibration = CalibrationInfo {
+            mode: if non_production {
+                "non-production".into()
+            } else {
+                "uncalibrated".into()
+            },
+            sha256: None,
+            due_date: None,
+        };
+        return Ok(());
+    };
+    let cal = load_calibration(path).map_err(|e| match e {
+        CalibrationError::Invalid(problems) => Exit::problems("calibration", &problems),
+        other => Exit::bad_input(other),
+    })?;
+    if let Err(e) = cal.check_due(today) {
+        if !non_production {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "{e}; no unit was tested (use --non-production only outside production)"
+            )));
+        }
+        tracing::warn!("{e}; testing anyway: --non-production");
+    }
+    let offsets: Result<Vec<f64>, CalibrationError> = prep
+        .plan
+        .channels
+        .iter()
+        .map(|c| cal.offset_db(&c.name, c.output, c.input))
+        .collect();
+    let offsets = match offsets {
+        Ok(o) => Some(o),
+        Err(e) if non_production && needs.is_none() => {
+            tracing::warn!("{e}; testing uncalibrated: --non-production");
+            None
+        }
+        Err(e) => {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "{e}; no unit was tested{}",
+                if non_production {
+                    " (the plan's dB SPL checks cannot be judged without it)"
+                } else {
+                    ""
+                }
+            )))
+        }
+    };
+    prep.calibration = CalibrationInfo {
+        mode: mode.into(),
+        sha256: offsets.as_ref().map(|_| cal.sha256()),
+        due_date: offsets
+            .as_ref()
+            .map(|_| crate::calibration::format_date(cal.due_date)),
+    };
+    prep.calibration_offsets_db = offsets;
+    Ok(())
+}
+
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
     let mut prep = pipeline::prepare(&args.plan, args.fixture.as_deref())?;
+    use_calibration(
+        &mut prep,
+        args.calibration.as_deref(),
+        args.non_production,
+        crate::calibration::Calibration::today_utc(),
+    )?;
     let choice = args.rig.unwrap_or(match prep.plan.rig {
         RigSpec::Simulated { .. } => RigChoice::Simulated,
         RigSpec::Soundcard => RigChoice::Soundcard,
@@ -180,6 +276,8 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         rig: result.rig.clone(),
         verdict: result.verdict,
         result_json,
+        calibration_mode: result.calibration.mode.clone(),
+        calibration_sha256: result.calibration.sha256.clone(),
     };
     let stored = Store::open(&args.store)
         .and_then(|mut s| s.append(&record, &wav))
