@@ -192,14 +192,7 @@ fn judge_channel(
             min_db,
             max_db,
             unit,
-        } => sensitivity::judge_in(
-            m,
-            *band,
-            *min_db,
-            *max_db,
-            *unit,
-            nominal_impedance_ohm,
-        ),
+        } => sensitivity::judge_in(m, *band, *min_db, *max_db, *unit, nominal_impedance_ohm),
         CheckKind::Thd { band, max_percent } => distortion::judge_thd(m, *band, *max_percent),
         CheckKind::Harmonic {
             order,

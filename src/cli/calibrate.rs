@@ -305,14 +305,13 @@ fn drive(a: DriveArgs) -> Result<i32, Exit> {
             let input = one_based("--input", a.input.unwrap_or(0))?;
             let gain = a.input_volts_peak_per_fs.unwrap_or(f64::NAN);
             let (rate, samples) = wav_channel(path, input, "--input")?;
-            let d = drive_from_input(&samples, rate, gain, a.tone_dbfs, a.freq_hz).map_err(
-                |e| {
+            let d =
+                drive_from_input(&samples, rate, gain, a.tone_dbfs, a.freq_hz).map_err(|e| {
                     Exit::bad_input(anyhow::anyhow!(
                         "{} input {input}: {e}; nothing was written",
                         path.display()
                     ))
-                },
-            )?;
+                })?;
             (d, None)
         }
         _ => {

@@ -30,8 +30,7 @@ use super::raw::{
 use super::{
     AnalysisSpec, Band, ChannelSpec, CheckKind, CheckSpec, CorrectionSpec, LimitLine, Location,
     Normalize, Plan, PlanError, Polarity, Problem, RigSpec, SensitivityUnit, StimulusSpec,
-    DEFAULT_MAX_HARMONIC,
-    DEFAULT_MIN_SNR_DB, DEFAULT_POINTS_PER_OCTAVE,
+    DEFAULT_MAX_HARMONIC, DEFAULT_MIN_SNR_DB, DEFAULT_POINTS_PER_OCTAVE,
 };
 use crate::acoustics::earphone_file::{load_earphone_str, EarphoneFileError};
 use crate::acoustics::model::{load_model_str, CouplerModel, ModelError};
@@ -363,8 +362,8 @@ impl Validator {
 
         let nominal_impedance_ohm = match &t.nominal_impedance_ohm {
             None => Some(None),
-            Some(v) if **v >= NOMINAL_IMPEDANCE_RANGE_OHM.0
-                && **v <= NOMINAL_IMPEDANCE_RANGE_OHM.1 =>
+            Some(v)
+                if **v >= NOMINAL_IMPEDANCE_RANGE_OHM.0 && **v <= NOMINAL_IMPEDANCE_RANGE_OHM.1 =>
             {
                 Some(Some(**v))
             }
@@ -373,9 +372,7 @@ impl Validator {
                     Pos::of_value(v),
                     format!(
                         "nominal_impedance_ohm: expected {} to {} Ω, found {}",
-                        NOMINAL_IMPEDANCE_RANGE_OHM.0,
-                        NOMINAL_IMPEDANCE_RANGE_OHM.1,
-                        **v
+                        NOMINAL_IMPEDANCE_RANGE_OHM.0, NOMINAL_IMPEDANCE_RANGE_OHM.1, **v
                     ),
                 );
                 None

@@ -103,9 +103,10 @@ impl StoredRecord {
             result_json: &self.result_json,
             capture_sha256: &self.capture_sha256,
             prev_hash: &self.prev_hash,
-            calibration: self.calibration_mode.as_deref().map(|m| {
-                (m, self.calibration_sha256.as_deref().unwrap_or(""))
-            }),
+            calibration: self
+                .calibration_mode
+                .as_deref()
+                .map(|m| (m, self.calibration_sha256.as_deref().unwrap_or(""))),
         }
     }
 
