@@ -402,7 +402,7 @@ fn band_pass(x: &[f64], fs_hz: f64, center_hz: f64, planner: &mut RealFftPlanner
     }
     // realfft's inverse wants a real DC (and Nyquist for even n): the gain is 0 there.
     spec[0].im = 0.0;
-    if n % 2 == 0 {
+    if n.is_multiple_of(2) {
         if let Some(last) = spec.last_mut() {
             last.im = 0.0;
         }

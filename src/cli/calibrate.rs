@@ -250,7 +250,8 @@ fn finish(cal: &Calibration, what: &str) -> Result<i32, Exit> {
 
 fn mic(a: MicArgs) -> Result<i32, Exit> {
     let input = one_based("--input", a.input)?;
-    if !(a.freq_hz > 0.0) || !(a.level_db > 0.0 && a.level_db < 200.0) {
+    let ok = a.freq_hz > 0.0 && a.level_db > 0.0 && a.level_db < 200.0;
+    if !ok {
         return Err(Exit::bad_input(anyhow::anyhow!(
             "--freq-hz/--level-db: expected a frequency above 0 Hz and a level from 0 to 200 dB \
              SPL, found {} Hz and {} dB",
@@ -337,11 +338,13 @@ fn drive(a: DriveArgs) -> Result<i32, Exit> {
 fn tone(a: ToneArgs) -> Result<i32, Exit> {
     let output = one_based("--output", a.output)?;
     let n_ch = a.channels.unwrap_or(output);
-    if n_ch < output
-        || !(a.freq_hz > 0.0 && a.freq_hz < f64::from(a.rate_hz) / 2.0)
-        || !(a.duration_s > 0.0 && a.duration_s <= 600.0)
-        || !(-120.0..=0.0).contains(&a.tone_dbfs)
-    {
+    let ok = n_ch >= output
+        && a.freq_hz > 0.0
+        && a.freq_hz < f64::from(a.rate_hz) / 2.0
+        && a.duration_s > 0.0
+        && a.duration_s <= 600.0
+        && (-120.0..=0.0).contains(&a.tone_dbfs);
+    if !ok {
         return Err(Exit::bad_input(anyhow::anyhow!(
             "calibrate tone: expected --channels ≥ --output, 0 < --freq-hz < rate/2, 0 < \
              --duration-s ≤ 600 and -120 ≤ --tone-dbfs ≤ 0"
