@@ -11,10 +11,10 @@
 //! 1. The mean (a converter's DC offset) is removed; the first and last
 //!    [`EDGE_FRACTION`] of the recording are not judged (the calibrator settling, the
 //!    band-pass's edge ringing).
-//! 2. Frequency: the peak of the Hann-windowed spectrum of the judged part, refined by
-//!    parabolic interpolation of the log magnitude of the three bins around it (Grandke
-//!    1983 style; a Hann window's log-parabola error is below 0.1 bin, far inside the
-//!    ±2 % acceptance).
+//! 2. Frequency: the peak of the Hann-windowed spectrum of the judged part, refined by a
+//!    parabola through the dB magnitudes of the three bins around it (common practice; its
+//!    bias on a Hann window is a few hundredths of a bin, from memory — the test measures
+//!    < 0.1 Hz on 0.42 Hz bins, far inside the ±2 % acceptance).
 //! 3. Level: a zero-phase FFT band-pass around the measured frequency, flat within ±1/6
 //!    octave, a raised-cosine skirt to zero at ±1/3 octave (the third-octave neighbours
 //!    carry nothing), applied to the whole recording; rms of the judged part.
