@@ -8,6 +8,7 @@
 
 pub mod acoustics;
 pub mod analysis;
+pub mod calibration;
 pub mod checks;
 pub mod cli;
 pub mod dsp;

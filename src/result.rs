@@ -73,6 +73,31 @@ pub struct CorrectionInfo {
     pub sha256: String,
 }
 
+/// Which calibration converted a result to dB SPL/V, and under which mode the unit was
+/// tested (the `calibration` object of the result JSON).
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct CalibrationInfo {
+    /// `production` (a calibration in date covering every channel), `non-production`
+    /// (`--non-production`: the result may rest on a past-due, partial or no calibration) or
+    /// `uncalibrated` (no calibration given; responses in dB FS/FS).
+    pub mode: String,
+    /// The calibration's canonical SHA-256 (`tragus-calibration/1`), when one was applied.
+    pub sha256: Option<String>,
+    /// The calibration's due date, `YYYY-MM-DD`, when one was applied.
+    pub due_date: Option<String>,
+}
+
+impl CalibrationInfo {
+    /// No calibration, production mode not claimed.
+    pub fn uncalibrated() -> Self {
+        CalibrationInfo {
+            mode: "uncalibrated".into(),
+            sha256: None,
+            due_date: None,
+        }
+    }
+}
+
 /// One unit's result.
 #[derive(Debug, Clone, serde::Serialize)]
 pub struct UnitResult {
@@ -101,6 +126,8 @@ pub struct UnitResult {
     pub channels: Vec<ChannelMeasurement>,
     /// Per-check results.
     pub checks: Vec<CheckResult>,
+    /// Calibration and mode of the test.
+    pub calibration: CalibrationInfo,
 }
 
 /// Current UTC time in RFC 3339 with millisecond precision.

@@ -6,7 +6,7 @@ mod checks_fixture;
 
 use checks_fixture::*;
 use tragus::checks::judge;
-use tragus::plan::{CheckKind, Normalize, Polarity};
+use tragus::plan::{CheckKind, Normalize, Polarity, SensitivityUnit};
 use tragus::Verdict;
 
 /// Sums of a handful of dB values and base-10 logs: a few ULP, far below 1e-9 dB.
@@ -132,6 +132,7 @@ fn sensitivity_is_the_db_mean_over_the_band_edges_included() {
         band: band(250.0, 2000.0),
         min_db: 0.0,
         max_db,
+        unit: SensitivityUnit::Db,
     };
     let got = one(kind(4.0), measurement("left", &r));
     assert_eq!(got.verdict, Verdict::Pass);
@@ -150,6 +151,7 @@ fn sensitivity_band_without_grid_points_is_a_retest() {
         band: band(130.0, 240.0),
         min_db: -1.0,
         max_db: 1.0,
+        unit: SensitivityUnit::Db,
     };
     let got = one(kind, measurement("left", &[0.0; 7]));
     assert_eq!(got.verdict, Verdict::Retest);

@@ -7,7 +7,7 @@ mod checks_fixture;
 use checks_fixture::*;
 use tragus::checks::CheckResult;
 use tragus::report::render_human;
-use tragus::result::{PlanInfo, ToolInfo, UnitResult};
+use tragus::result::{CalibrationInfo, PlanInfo, ToolInfo, UnitResult};
 use tragus::Verdict;
 
 fn result(verdict: Verdict, checks: Vec<CheckResult>) -> UnitResult {
@@ -27,6 +27,7 @@ fn result(verdict: Verdict, checks: Vec<CheckResult>) -> UnitResult {
             measurement("right", &[0.0; 7]),
         ],
         checks,
+        calibration: CalibrationInfo::uncalibrated(),
     }
 }
 

@@ -8,7 +8,13 @@ use common::*;
 #[test]
 fn help_on_every_command() {
     for cmd in [
-        "validate", "stimulus", "analyze", "run", "records", "verify",
+        "validate",
+        "stimulus",
+        "analyze",
+        "run",
+        "records",
+        "verify",
+        "calibrate",
     ] {
         let out = tragus().args([cmd, "--help"]).output().unwrap();
         assert_eq!(out.status.code(), Some(0), "{cmd}");

@@ -184,7 +184,8 @@ fn unknown_top_level_key_suggests_the_nearest() {
         problems_str(&text),
         [
             "t.yaml:7:1: unknown key `zzz`, expected one of plan, revision, description, \
-          sample_rate_hz, stimulus, analysis, channels, rig, checks, correction"
+          sample_rate_hz, nominal_impedance_ohm, stimulus, analysis, channels, rig, checks, \
+          correction"
         ]
     );
 }

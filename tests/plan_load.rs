@@ -5,7 +5,7 @@ use std::path::Path;
 use tragus::plan::validate::{DEFAULT_FADE_S, DEFAULT_SILENCE_AFTER_S, DEFAULT_SILENCE_BEFORE_S};
 use tragus::plan::{
     load_plan, load_plan_str, AnalysisSpec, Band, ChannelSpec, CheckKind, CheckSpec, LimitLine,
-    Normalize, Plan, Polarity, RigSpec, StimulusSpec,
+    Normalize, Plan, Polarity, RigSpec, SensitivityUnit, StimulusSpec,
 };
 
 fn line(points: &[(f64, f64)], origin: &str) -> Option<LimitLine> {
@@ -60,6 +60,7 @@ fn loopback_plan_is_the_station_self_test() {
             correction: None,
         }],
         rig: RigSpec::Simulated { seed: 1 },
+        nominal_impedance_ohm: None,
         checks: vec![
             check(
                 "flat",
@@ -128,6 +129,7 @@ fn reference_plan_loads_every_kind() {
             },
         ],
         rig: RigSpec::Simulated { seed: u64::MAX },
+        nominal_impedance_ohm: None,
         checks: vec![
             check(
                 "fr",
@@ -162,6 +164,7 @@ fn reference_plan_loads_every_kind() {
                     band: band(500.0, 2000.0),
                     min_db: -20.0,
                     max_db: -8.0,
+                    unit: SensitivityUnit::Db,
                 },
             ),
             check(

@@ -249,7 +249,8 @@ fn raw_update_and_delete_are_refused_by_triggers() {
         .execute(
             "INSERT INTO records SELECT 4, time_utc, time_unix_ns, serial, plan_id, \
              plan_revision, plan_sha256, software_version, station, operator, rig, verdict, \
-             result_json, capture_sha256, prev_hash, record_hash, NULL FROM records WHERE id = 3",
+             result_json, capture_sha256, prev_hash, record_hash, NULL, calibration_mode, \
+             calibration_sha256 FROM records WHERE id = 3",
             [],
         )
         .unwrap_err();
@@ -467,13 +468,13 @@ fn store_from_a_newer_tragus_is_refused() {
     let tmp = tempfile::tempdir().unwrap();
     drop(open(tmp.path()));
     raw(tmp.path())
-        .execute_batch("PRAGMA user_version = 2")
+        .execute_batch("PRAGMA user_version = 3")
         .unwrap();
     let err = Store::open(tmp.path()).unwrap_err();
     assert_eq!(
         err.to_string(),
         format!(
-            "{}: store schema version 2 is newer than this tragus supports (1); upgrade tragus",
+            "{}: store schema version 3 is newer than this tragus supports (2); upgrade tragus",
             tmp.path().join(DB_FILE).display()
         )
     );

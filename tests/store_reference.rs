@@ -45,6 +45,8 @@ fn chain_matches_python_reference() {
             rig: s(r, "rig"),
             verdict,
             result_json: s(r, "result_json"),
+            calibration_mode: s(r, "calibration_mode"),
+            calibration_sha256: r["calibration_sha256"].as_str().map(str::to_owned),
         };
         let capture = hex::decode(s(r, "capture_hex")).unwrap();
         let stored = store.append(&new, &capture).unwrap();

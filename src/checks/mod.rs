@@ -149,7 +149,7 @@ pub fn judge(plan: &Plan, channels: &[ChannelMeasurement]) -> (Vec<CheckResult>,
         }
         for name in &names {
             let finding = match find(name) {
-                Some(m) => judge_channel(&spec.kind, m),
+                Some(m) => judge_channel(&spec.kind, m, plan.nominal_impedance_ohm),
                 None => no_measurement(name),
             };
             results.push(finding.label(spec, name));
@@ -164,8 +164,13 @@ pub fn judge(plan: &Plan, channels: &[ChannelMeasurement]) -> (Vec<CheckResult>,
     (results, unit)
 }
 
-/// Judge one single-channel check kind on one measurement.
-fn judge_channel(kind: &CheckKind, m: &ChannelMeasurement) -> Finding {
+/// Judge one single-channel check kind on one measurement (`nominal_impedance_ohm`: the
+/// plan's, for sensitivities in dB SPL/mW).
+fn judge_channel(
+    kind: &CheckKind,
+    m: &ChannelMeasurement,
+    nominal_impedance_ohm: Option<f64>,
+) -> Finding {
     if let Some(f) = invalid_measurement(m) {
         return f;
     }
@@ -186,7 +191,8 @@ fn judge_channel(kind: &CheckKind, m: &ChannelMeasurement) -> Finding {
             band,
             min_db,
             max_db,
-        } => sensitivity::judge(m, *band, *min_db, *max_db),
+            unit,
+        } => sensitivity::judge_in(m, *band, *min_db, *max_db, *unit, nominal_impedance_ohm),
         CheckKind::Thd { band, max_percent } => distortion::judge_thd(m, *band, *max_percent),
         CheckKind::Harmonic {
             order,

@@ -6,6 +6,7 @@
 //! written": a unit without a record must be tested again, never shipped).
 
 mod analyze;
+mod calibrate;
 mod coupler;
 mod pipeline;
 mod records;
@@ -75,6 +76,8 @@ pub enum Command {
     Verify(records::VerifyArgs),
     /// Input impedance and transfer functions of a coupler model on the log grid.
     Coupler(coupler::Args),
+    /// Calibrate the station: microphone inputs (sound calibrator) and drive outputs.
+    Calibrate(calibrate::Args),
 }
 
 /// Where a `--json` document goes.
@@ -242,6 +245,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Records(a) => records::list(a),
         Command::Verify(a) => records::verify(a),
         Command::Coupler(a) => coupler::run(a),
+        Command::Calibrate(a) => calibrate::run(a),
     };
     match result {
         Ok(code) => code,

@@ -7,7 +7,7 @@ use crate::analysis::Analyzer;
 use crate::checks;
 use crate::dsp::sweep::Stimulus;
 use crate::plan::{load_plan, Plan, PlanError};
-use crate::result::{now_utc_rfc3339, PlanInfo, ToolInfo, UnitResult};
+use crate::result::{now_utc_rfc3339, CalibrationInfo, PlanInfo, ToolInfo, UnitResult};
 use crate::rig::Capture;
 use crate::station::Station;
 use crate::Verdict;
@@ -28,6 +28,10 @@ pub(crate) struct Prepared {
     pub analyzer: Analyzer,
     /// The fixture→reference correction of each channel, tabulated for `analyzer`.
     pub corrections: PlanCorrections,
+    /// The calibration's mode and identity, recorded with the result.
+    pub calibration: CalibrationInfo,
+    /// Per plan channel, the dB that turn dB FS/FS into dB SPL/V (`None`: uncalibrated).
+    pub calibration_offsets_db: Option<Vec<f64>>,
 }
 
 /// Replace the fixture model of every corrected channel with the station's own
@@ -106,7 +110,17 @@ pub(crate) fn prepare_on(
         stimulus,
         analyzer,
         corrections,
+        calibration: CalibrationInfo::uncalibrated(),
+        calibration_offsets_db: None,
     })
+}
+
+/// The id of the first check whose limits are in dB SPL (it needs a calibration), if any.
+pub(crate) fn plan_needs_calibration(plan: &Plan) -> Option<String> {
+    plan.checks
+        .iter()
+        .find(|c| c.kind.needs_calibration())
+        .map(|c| c.id.clone())
 }
 
 /// Analyse a capture and judge it.
@@ -122,6 +136,11 @@ pub(crate) fn judge_capture(
         .analyze(capture, &prep.plan.channels)
         .map_err(Exit::bad_input)?;
     prep.corrections.apply(&mut channels);
+    if let Some(offsets) = &prep.calibration_offsets_db {
+        for (m, &o) in channels.iter_mut().zip(offsets) {
+            crate::calibration::apply_offset(m, o);
+        }
+    }
     let (checks, mut verdict) = checks::judge(&prep.plan, &channels);
     let mut retest_reasons = Vec::new();
     for ch in &channels {
@@ -144,5 +163,6 @@ pub(crate) fn judge_capture(
         retest_reasons,
         channels,
         checks,
+        calibration: prep.calibration.clone(),
     })
 }

@@ -58,6 +58,7 @@ pub(crate) fn list(args: ListArgs) -> Result<i32, Exit> {
                     "operator": r.operator, "rig": r.rig, "verdict": r.verdict,
                     "capture_sha256": r.capture_sha256, "prev_hash": r.prev_hash,
                     "record_hash": r.record_hash,
+                    "calibration": {"mode": r.calibration_mode, "sha256": r.calibration_sha256},
                 })
             })
             .collect();

@@ -48,6 +48,15 @@ pub struct Args {
     /// Write the result JSON here (`-` for stdout: human output then goes nowhere).
     #[arg(long, value_name = "OUT")]
     pub json: Option<JsonOut>,
+    /// The station's calibration file (`tragus calibrate`): responses become dB SPL/V and its
+    /// SHA-256 is recorded with the unit. A past-due calibration, or one that misses a
+    /// channel the plan uses, refuses the run (exit 2) unless `--non-production`.
+    #[arg(long, value_name = "CAL.yaml")]
+    pub calibration: Option<PathBuf>,
+    /// Test outside production (engineering, trials): run even with a past-due or partial
+    /// calibration; every record then says `non-production`.
+    #[arg(long)]
+    pub non_production: bool,
 }
 
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
@@ -64,6 +73,8 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         store: args.store.clone(),
         station_id: args.station_id.clone(),
         operator: args.operator.clone(),
+        calibration: args.calibration.as_deref(),
+        non_production: args.non_production,
     })?;
     let sim = bench.sim_choice(&args.sim_unit, args.sim_channel.as_deref())?;
     let tested = match bench.test_unit(&args.serial, &sim, &|| false) {

@@ -170,6 +170,8 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         store: args.store.clone(),
         station_id: None,
         operator: args.operator.clone(),
+        calibration: None,
+        non_production: false,
     })?;
     bench.pace_realtime = args.sim_realtime;
     let sims = parse_sim_units(&bench, &args.sim_unit)?;

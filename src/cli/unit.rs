@@ -38,6 +38,10 @@ pub(crate) struct BenchOptions<'a> {
     /// Station id when there is no station file.
     pub station_id: Option<String>,
     pub operator: Option<String>,
+    /// `--calibration` (wins over the station's calibration file).
+    pub calibration: Option<&'a Path>,
+    /// `--non-production` (the station's `mode: engineering` means the same).
+    pub non_production: bool,
 }
 
 /// Everything that stays the same from unit to unit on one bench.
@@ -85,7 +89,18 @@ impl From<Exit> for UnitStop {
 impl Bench {
     /// Load the plan on the station and decide rig, store, station id and operator.
     pub fn new(o: BenchOptions) -> Result<Bench, Exit> {
-        let prep = pipeline::prepare_on(o.plan, o.station, o.fixture)?;
+        let mut prep = pipeline::prepare_on(o.plan, o.station, o.fixture)?;
+        let calibration = o
+            .calibration
+            .or_else(|| o.station.and_then(|s| s.calibration.as_deref()));
+        let non_production =
+            o.non_production || o.station.is_some_and(|s| s.mode == Mode::Engineering);
+        use_calibration(
+            &mut prep,
+            calibration,
+            non_production,
+            crate::calibration::Calibration::today_utc(),
+        )?;
         let rig = o.rig.unwrap_or(match o.station.map(|s| s.rig) {
             Some(StationRig::Simulated) => RigChoice::Simulated,
             Some(StationRig::Soundcard) => RigChoice::Soundcard,
@@ -245,6 +260,8 @@ impl Bench {
             rig: result.rig.clone(),
             verdict: result.verdict,
             result_json,
+            calibration_mode: result.calibration.mode.clone(),
+            calibration_sha256: result.calibration.sha256.clone(),
         };
         if abandon() {
             return Err(UnitStop::Abandoned);
@@ -261,6 +278,87 @@ impl Bench {
         tracing::info!(record = stored.id, hash = %stored.record_hash, "recorded");
         Ok(Tested { result, stored })
     }
+}
+
+/// Load the calibration (if any), refuse what production may not use, and set the per-channel
+/// dB SPL/V offsets and the mode that goes into the record. Refusals are bad input (exit 2):
+/// no unit is tested on a station that is not fit to test it.
+pub(crate) fn use_calibration(
+    prep: &mut pipeline::Prepared,
+    path: Option<&std::path::Path>,
+    non_production: bool,
+    today: time::Date,
+) -> Result<(), Exit> {
+    use crate::calibration::{load_calibration, CalibrationError};
+    use crate::result::CalibrationInfo;
+    let needs = pipeline::plan_needs_calibration(&prep.plan);
+    let mode = if non_production {
+        "non-production"
+    } else {
+        "production"
+    };
+    let Some(path) = path else {
+        if let Some(check) = needs {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "check `{check}` is written in dB SPL, which needs a calibration: give \
+                 --calibration CAL.yaml (made with `tragus calibrate`)"
+            )));
+        }
+        prep.calibration = CalibrationInfo {
+            mode: if non_production {
+                "non-production".into()
+            } else {
+                "uncalibrated".into()
+            },
+            sha256: None,
+            due_date: None,
+        };
+        return Ok(());
+    };
+    let cal = load_calibration(path).map_err(|e| match e {
+        CalibrationError::Invalid(problems) => Exit::problems("calibration", &problems),
+        other => Exit::bad_input(other),
+    })?;
+    if let Err(e) = cal.check_due(today) {
+        if !non_production {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "{e}; no unit was tested (use --non-production only outside production)"
+            )));
+        }
+        tracing::warn!("{e}; testing anyway: --non-production");
+    }
+    let offsets: Result<Vec<f64>, CalibrationError> = prep
+        .plan
+        .channels
+        .iter()
+        .map(|c| cal.offset_db(&c.name, c.output, c.input))
+        .collect();
+    let offsets = match offsets {
+        Ok(o) => Some(o),
+        Err(e) if non_production && needs.is_none() => {
+            tracing::warn!("{e}; testing uncalibrated: --non-production");
+            None
+        }
+        Err(e) => {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "{e}; no unit was tested{}",
+                if non_production {
+                    " (the plan's dB SPL checks cannot be judged without it)"
+                } else {
+                    ""
+                }
+            )))
+        }
+    };
+    prep.calibration = CalibrationInfo {
+        mode: mode.into(),
+        sha256: offsets.as_ref().map(|_| cal.sha256()),
+        due_date: offsets
+            .as_ref()
+            .map(|_| crate::calibration::format_date(cal.due_date)),
+    };
+    prep.calibration_offsets_db = offsets;
+    Ok(())
 }
 
 /// The fixture the simulated rig puts the unit in: the one the plan's correction names

@@ -41,12 +41,16 @@
 //! - `response`: `"upper"`, `"lower"`: `{"origin":S,"points":[[R,R],...]}` or `null`
 //!   (`origin` is `"inline"` or the CSV path as written); `"smoothing_fraction"`: I or
 //!   `null`; `"normalize"`: `{"at_hz":R}`, `{"band":{"high_hz":R,"low_hz":R}}` or `null`;
-//! - `sensitivity`: `"band"`, `"max_db"`, `"min_db"`; `thd`: `"band"`, `"max_percent"`;
+//! - `sensitivity`: `"band"`, `"max_db"`, `"min_db"`, and `"unit"` (`"db_spl_per_v"` or
+//!   `"db_spl_per_mw"`) only when not the default `db`; `thd`: `"band"`, `"max_percent"`;
 //! - `harmonic`: `"band"`, `"max_db"`, `"order"`; `rub_buzz`: `"band"`, `"max_db"`;
 //! - `polarity`: `"expected"`: `"positive"` or `"negative"`;
 //! - `balance`: `"band"`, `"max_diff_db"`, `"smoothing_fraction"` (I or `null`);
 //!
 //! where `"band"` is `{"high_hz":R,"low_hz":R}`.
+//!
+//! The top-level `"nominal_impedance_ohm":R` is present only when the plan declares it (so
+//! plans without it keep the hash they had before it existed).
 //!
 //! A channel's `"correction"` key is present only when the channel is corrected (the
 //! plan-wide `correction:` applied, or its own; absent for `correction: none`), so that a
@@ -68,7 +72,9 @@
 //! keeps the hash, changing any value, tap or source parameter changes it. `"canonical"` names this version of the
 //! form; a change to it gets a new name.
 
-use super::{Band, CheckKind, CorrectionSpec, LimitLine, Normalize, Plan, Polarity, RigSpec};
+use super::{
+    Band, CheckKind, CorrectionSpec, LimitLine, Normalize, Plan, Polarity, RigSpec, SensitivityUnit,
+};
 use crate::acoustics::earphone_file;
 use crate::acoustics::model::CouplerModel;
 use crate::acoustics::source::Source;
@@ -212,6 +218,7 @@ fn to_canonical(plan: &Plan) -> C {
         channels,
         rig,
         checks,
+        nominal_impedance_ohm,
     } = plan;
     let st = stimulus;
     let stimulus = obj([
@@ -282,10 +289,16 @@ fn to_canonical(plan: &Plan) -> C {
                         band: b,
                         min_db,
                         max_db,
+                        unit,
                     } => {
                         m.insert("band", band(b));
                         m.insert("min_db", real(*min_db));
                         m.insert("max_db", real(*max_db));
+                        // Only when not the default, so plans written before units existed
+                        // keep their hash.
+                        if *unit != SensitivityUnit::Db {
+                            m.insert("unit", s(unit.name()));
+                        }
                     }
                     CheckKind::Thd {
                         band: b,
@@ -328,7 +341,8 @@ fn to_canonical(plan: &Plan) -> C {
             })
             .collect(),
     );
-    obj([
+    let mut top = BTreeMap::new();
+    for (k, v) in [
         ("analysis", analysis),
         ("canonical", s(CANONICAL_FORM)),
         ("channels", channels),
@@ -339,7 +353,14 @@ fn to_canonical(plan: &Plan) -> C {
         ("rig", rig),
         ("sample_rate_hz", int(*sample_rate_hz)),
         ("stimulus", stimulus),
-    ])
+    ] {
+        top.insert(k, v);
+    }
+    // Only when declared, so plans without it keep their hash.
+    if let Some(r) = nominal_impedance_ohm {
+        top.insert("nominal_impedance_ohm", real(*r));
+    }
+    C::Obj(top)
 }
 
 fn write(c: &C, out: &mut String) {

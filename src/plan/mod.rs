@@ -52,6 +52,9 @@ pub struct Plan {
     pub rig: RigSpec,
     /// Checks in plan order.
     pub checks: Vec<CheckSpec>,
+    /// The earphone's declared nominal impedance, Ω (`nominal_impedance_ohm:`), for
+    /// sensitivity checks written in dB SPL/mW.
+    pub nominal_impedance_ohm: Option<f64>,
 }
 
 impl Plan {
@@ -227,6 +230,8 @@ pub enum CheckKind {
         min_db: f64,
         /// Upper limit, dB.
         max_db: f64,
+        /// What the limits are in.
+        unit: SensitivityUnit,
     },
     /// THD (re fundamental, %) below a maximum over a band of excitation frequencies.
     Thd {
@@ -267,7 +272,42 @@ pub enum CheckKind {
     },
 }
 
+/// The unit a sensitivity check's limits are written in (`unit:` of the check).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SensitivityUnit {
+    /// `db` (the default): the response's own unit, dB FS/FS uncalibrated or dB SPL/V
+    /// calibrated; the check compares whatever was measured.
+    Db,
+    /// `db_spl_per_v`: dB SPL for 1 V; the run needs a calibration.
+    DbSplPerV,
+    /// `db_spl_per_mw`: dB SPL for 1 mW into the plan's `nominal_impedance_ohm`,
+    /// `L(1 mW) = L(1 V) + 10·lg(R / 1000 Ω)`; the run needs a calibration.
+    DbSplPerMw,
+}
+
+impl SensitivityUnit {
+    /// The name as written in the plan.
+    pub fn name(self) -> &'static str {
+        match self {
+            SensitivityUnit::Db => "db",
+            SensitivityUnit::DbSplPerV => "db_spl_per_v",
+            SensitivityUnit::DbSplPerMw => "db_spl_per_mw",
+        }
+    }
+}
+
 impl CheckKind {
+    /// True when the check's limits are in dB SPL, so the run needs a calibration.
+    pub fn needs_calibration(&self) -> bool {
+        matches!(
+            self,
+            CheckKind::Sensitivity {
+                unit: SensitivityUnit::DbSplPerV | SensitivityUnit::DbSplPerMw,
+                ..
+            }
+        )
+    }
+
     /// The kind's name as written in the plan.
     pub fn name(&self) -> &'static str {
         match self {

@@ -136,6 +136,8 @@ pub struct RawTop {
     pub description: Option<Spanned<String>>,
     /// Sample rate, Hz.
     pub sample_rate_hz: Option<Spanned<i128>>,
+    /// Declared nominal impedance of the earphone, Ω.
+    pub nominal_impedance_ohm: Option<Spanned<f64>>,
     /// Decoded on its own into [`RawPlan::stimulus`]; listed so the key is known.
     pub stimulus: Option<IgnoredAny>,
     /// Decoded on its own into [`RawPlan::analysis`].
@@ -311,6 +313,8 @@ pub struct RawCheck {
     pub expected: Option<Spanned<String>>,
     /// Allowed difference, dB (balance).
     pub max_diff_db: Option<Spanned<f64>>,
+    /// Unit of the limits (sensitivity): `db`, `db_spl_per_v`, `db_spl_per_mw`.
+    pub unit: Option<Spanned<String>>,
 }
 
 impl RawCheck {
@@ -334,6 +338,7 @@ impl RawCheck {
             ("order", p(&self.order)),
             ("expected", p(&self.expected)),
             ("max_diff_db", p(&self.max_diff_db)),
+            ("unit", p(&self.unit)),
         ];
         all.into_iter()
             .filter_map(|(k, pos)| pos.map(|pos| (k, pos)))

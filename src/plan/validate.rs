@@ -29,8 +29,8 @@ use super::raw::{
 };
 use super::{
     AnalysisSpec, Band, ChannelSpec, CheckKind, CheckSpec, CorrectionSpec, LimitLine, Location,
-    Normalize, Plan, PlanError, Polarity, Problem, RigSpec, StimulusSpec, DEFAULT_MAX_HARMONIC,
-    DEFAULT_MIN_SNR_DB, DEFAULT_POINTS_PER_OCTAVE,
+    Normalize, Plan, PlanError, Polarity, Problem, RigSpec, SensitivityUnit, StimulusSpec,
+    DEFAULT_MAX_HARMONIC, DEFAULT_MIN_SNR_DB, DEFAULT_POINTS_PER_OCTAVE,
 };
 use crate::acoustics::earphone_file::{load_earphone_str, EarphoneFileError};
 use crate::acoustics::model::{load_model_str, CouplerModel, ModelError};
@@ -43,6 +43,10 @@ use std::path::{Path, PathBuf};
 /// analysis can separate, s. They lie `L·ln(n/(n−1))` apart (Novak et al. 2015, Δt_n =
 /// L·ln n); the analysis windows each harmonic within that gap.
 pub const MIN_HARMONIC_SEPARATION_S: f64 = 0.004;
+/// Range of a declared nominal impedance, Ω: earphones are 8 Ω to a few hundred, some
+/// studio headphones 600 Ω; the range leaves room at both ends and refuses a value in kΩ
+/// or mΩ written by mistake.
+pub const NOMINAL_IMPEDANCE_RANGE_OHM: (f64, f64) = (1.0, 2000.0);
 /// Default half-cosine fade-in and fade-out, s.
 pub const DEFAULT_FADE_S: f64 = 0.005;
 /// Default silence before the sweep, s.
@@ -146,6 +150,7 @@ impl Plan {
             path: source.display().to_string(),
             dir: source.parent().unwrap_or(Path::new(".")).to_path_buf(),
             problems: Vec::new(),
+            nominal_impedance_ohm: None,
         };
         let plan = v.plan(raw, source);
         match plan {
@@ -168,6 +173,8 @@ struct Validator {
     path: String,
     dir: PathBuf,
     problems: Vec<Problem>,
+    /// The plan's `nominal_impedance_ohm`, once read (checks in dB SPL/mW need it).
+    nominal_impedance_ohm: Option<f64>,
 }
 
 /// The sweep band and rate, once they are known to be valid.
@@ -194,7 +201,7 @@ const COMMON_CHECK_KEYS: [&str; 3] = ["id", "kind", "channels"];
 fn kind_keys(kind: &str) -> &'static [&'static str] {
     match kind {
         "response" => &["upper", "lower", "smoothing", "normalize"],
-        "sensitivity" => &["band_hz", "min_db", "max_db"],
+        "sensitivity" => &["band_hz", "min_db", "max_db", "unit"],
         "thd" => &["band_hz", "max_percent"],
         "harmonic" => &["order", "band_hz", "max_db"],
         "rub_buzz" => &["band_hz", "max_db"],
@@ -353,6 +360,26 @@ impl Validator {
                 }
             });
 
+        let nominal_impedance_ohm = match &t.nominal_impedance_ohm {
+            None => Some(None),
+            Some(v)
+                if **v >= NOMINAL_IMPEDANCE_RANGE_OHM.0 && **v <= NOMINAL_IMPEDANCE_RANGE_OHM.1 =>
+            {
+                Some(Some(**v))
+            }
+            Some(v) => {
+                self.report(
+                    Pos::of_value(v),
+                    format!(
+                        "nominal_impedance_ohm: expected {} to {} Ω, found {}",
+                        NOMINAL_IMPEDANCE_RANGE_OHM.0, NOMINAL_IMPEDANCE_RANGE_OHM.1, **v
+                    ),
+                );
+                None
+            }
+        };
+        self.nominal_impedance_ohm = nominal_impedance_ohm.flatten();
+
         if raw.stimulus.is_none() && !top.was_rejected("stimulus") {
             self.report(top.pos, "missing required key `stimulus`".into());
         }
@@ -415,6 +442,7 @@ impl Validator {
             channels: channels?,
             rig: rig?,
             checks: checks?,
+            nominal_impedance_ohm: nominal_impedance_ohm?,
         };
         plan.sha256 = super::hash::plan_sha256(&plan);
         Some(plan)
@@ -1296,11 +1324,44 @@ impl Validator {
                         return None;
                     }
                 }
+                let unit = match &c.unit {
+                    None => Some(SensitivityUnit::Db),
+                    Some(u) => match u.as_str() {
+                        "db" => Some(SensitivityUnit::Db),
+                        "db_spl_per_v" => Some(SensitivityUnit::DbSplPerV),
+                        "db_spl_per_mw" => Some(SensitivityUnit::DbSplPerMw),
+                        other => {
+                            self.report(
+                                Pos::of_value(u),
+                                format!(
+                                    "{}: expected db, db_spl_per_v or db_spl_per_mw, found {}",
+                                    l("unit"),
+                                    raw::found_scalar(other)
+                                ),
+                            );
+                            None
+                        }
+                    },
+                };
+                if let (Some(SensitivityUnit::DbSplPerMw), Some(u), None) =
+                    (unit, &c.unit, self.nominal_impedance_ohm)
+                {
+                    self.report(
+                        Pos::of_value(u),
+                        format!(
+                            "{}: db_spl_per_mw needs the plan's `nominal_impedance_ohm` (the \
+                             earphone's declared impedance), found none",
+                            l("unit")
+                        ),
+                    );
+                    return None;
+                }
                 (|| {
                     Some(CheckKind::Sensitivity {
                         band: b?,
                         min_db: min_db?,
                         max_db: max_db?,
+                        unit: unit?,
                     })
                 })()
             }

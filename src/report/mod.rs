@@ -49,6 +49,7 @@ pub fn render_human(result: &UnitResult, color: bool) -> String {
         ),
         ("time", result.time_utc.clone()),
         ("rig", rig),
+        ("calib.", calibration_line(&result.calibration)),
     ];
     for (k, v) in header {
         out.push_str(&format!("  {k:<8}{v}\n"));
@@ -177,6 +178,18 @@ fn summary(result: &UnitResult) -> String {
             format!("{n_retest} of {n} checks not judged; test the unit again")
         }
         Verdict::Retest => "measurement not valid; test the unit again".to_string(),
+    }
+}
+
+/// The calibration header line: mode, and the file's hash and due date when one was applied.
+fn calibration_line(c: &crate::result::CalibrationInfo) -> String {
+    match (&c.sha256, &c.due_date) {
+        (Some(sha), Some(due)) => format!(
+            "{} · sha256 {}… · due {due} · dB SPL/V",
+            c.mode,
+            sha.chars().take(12).collect::<String>()
+        ),
+        _ => format!("{} · dB FS/FS", c.mode),
     }
 }
 

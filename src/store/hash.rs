@@ -10,8 +10,13 @@ use sha2::{Digest, Sha256};
 pub const GENESIS_PREV_HASH: &str =
     "0000000000000000000000000000000000000000000000000000000000000000";
 
-/// First line of every record's canonical form; the `v1` changes only with the form itself.
+/// First line of the canonical form of records written by schema 1 (no calibration fields);
+/// the `v1` changes only with the form itself.
 pub const CANONICAL_HEADER: &[u8] = b"tragus-record-v1\n";
+
+/// First line of the canonical form of records written since schema 2 (with
+/// `calibration_mode` and `calibration_sha256`).
+pub const CANONICAL_HEADER_V2: &[u8] = b"tragus-record-v2\n";
 
 /// SHA-256 (FIPS 180-4) of `bytes` as 64 lowercase hex digits.
 pub fn sha256_hex(bytes: &[u8]) -> String {
@@ -45,6 +50,9 @@ pub(crate) struct CanonicalFields<'a> {
     pub result_json: &'a str,
     pub capture_sha256: &'a str,
     pub prev_hash: &'a str,
+    /// `(calibration_mode, calibration_sha256 or "")` for a v2 record; `None` for a record
+    /// written before schema 2, whose form is v1.
+    pub calibration: Option<(&'a str, &'a str)>,
 }
 
 impl CanonicalFields<'_> {
@@ -53,7 +61,7 @@ impl CanonicalFields<'_> {
         let id = self.id.to_string();
         let plan_revision = self.plan_revision.to_string();
         // The order is part of the format (module doc); never reorder.
-        let fields: [(&str, &str); 14] = [
+        let mut fields: Vec<(&str, &str)> = vec![
             ("id", &id),
             ("time_utc", self.time_utc),
             ("serial", self.serial),
@@ -67,11 +75,19 @@ impl CanonicalFields<'_> {
             ("verdict", self.verdict),
             ("result_json", self.result_json),
             ("capture_sha256", self.capture_sha256),
-            ("prev_hash", self.prev_hash),
         ];
+        let header = match self.calibration {
+            None => CANONICAL_HEADER,
+            Some((mode, sha)) => {
+                fields.push(("calibration_mode", mode));
+                fields.push(("calibration_sha256", sha));
+                CANONICAL_HEADER_V2
+            }
+        };
+        fields.push(("prev_hash", self.prev_hash));
         let len: usize = fields.iter().map(|(n, v)| n.len() + v.len() + 24).sum();
-        let mut out = Vec::with_capacity(CANONICAL_HEADER.len() + len);
-        out.extend_from_slice(CANONICAL_HEADER);
+        let mut out = Vec::with_capacity(header.len() + len);
+        out.extend_from_slice(header);
         for (name, value) in fields {
             out.extend_from_slice(name.as_bytes());
             out.push(b':');

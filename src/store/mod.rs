@@ -22,43 +22,54 @@
 //! # Canonical byte form
 //!
 //! `record_hash` is the SHA-256 (FIPS 180-4) of these bytes, written as 64 lowercase hex
-//! digits. Auditors recompute it from the stored columns alone:
+//! digits. Auditors recompute it from the stored columns alone. Records appended since
+//! schema 2 use the v2 form:
 //!
 //! ```text
-//! canonical = "tragus-record-v1" LF  field("id") field("time_utc") field("serial")
+//! canonical = "tragus-record-v2" LF  field("id") field("time_utc") field("serial")
 //!             field("plan_id") field("plan_revision") field("plan_sha256")
 //!             field("software_version") field("station") field("operator") field("rig")
 //!             field("verdict") field("result_json") field("capture_sha256")
-//!             field("prev_hash")
+//!             field("calibration_mode") field("calibration_sha256") field("prev_hash")
 //! field(NAME) = NAME ":" LEN ":" VALUE LF
 //! ```
+//!
+//! Records written by schema 1 (before calibrations were recorded; after the migration
+//! their `calibration_mode` is NULL) keep the v1 form they were hashed with: header
+//! `"tragus-record-v1"`, and no `calibration_mode` or `calibration_sha256` fields. A
+//! verifier picks the form by `calibration_mode`: NULL → v1, else v2; changing it to or
+//! from NULL changes the form and so breaks the hash.
 //!
 //! - `NAME` is the column name in ASCII, exactly as above, in exactly that order.
 //! - `VALUE` is the column's value as UTF-8 bytes, unescaped and untrimmed: text as stored;
 //!   `id` and `plan_revision` in decimal ASCII digits with no sign, no leading zeros, no
-//!   separators; `verdict` as `pass`, `fail` or `retest`; hashes as 64 lowercase hex digits.
+//!   separators; `verdict` as `pass`, `fail` or `retest`; hashes as 64 lowercase hex digits;
+//!   `calibration_mode` as `production`, `non-production` or `uncalibrated`;
+//!   `calibration_sha256` (the calibration file's canonical SHA-256) as the empty value
+//!   (`calibration_sha256:0:`) when no calibration was applied (NULL in the database).
 //! - `LEN` is the number of bytes of `VALUE` (not characters) in decimal ASCII, no leading
 //!   zeros.
 //! - `LF` is the single byte 0x0A; there is no other separator and nothing at the end.
 //!
 //! The length prefix makes the form unambiguous whatever the values contain (colons, line
 //! feeds, JSON). The first record's `prev_hash` is [`GENESIS_PREV_HASH`] (64 zeros); every
-//! other record's `prev_hash` is the `record_hash` of the record with the id one less. Not
-//! hashed: `time_unix_ns` (derived from `time_utc`; verification checks it) and `signature`
-//! (reserved for the station key's signature over `record_hash`, NULL until station keys
-//! exist).
+//! other record's `prev_hash` is the `record_hash` of the record with the id one less,
+//! whichever form either has. Not hashed: `time_unix_ns` (derived from `time_utc`;
+//! verification checks it) and `signature` (reserved for the station key's signature over
+//! `record_hash`, NULL until station keys exist).
 //!
 //! Worked example (checked by `tests/store_reference.rs` against
 //! `tests/reference/store_record_hash.py`, which uses Python's `hashlib`): the first record
 //! of a store with `time_utc` `2025-03-14T09:26:53.589Z`, serial `E2-000123`, plan
 //! `demo-earbud` revision 3, `plan_sha256` 64 × `a`, software `0.1.0`, station
 //! `larkspur-line3-st1`, operator `j.okafor`, rig `simulated`, verdict `pass`,
-//! `result_json` `{"verdict":"pass"}` and as capture the 44-byte WAV header of a mono 16-bit
-//! 48 kHz file with no samples (SHA-256 `531cd597…caa0`), has these canonical bytes (each
-//! line ends with LF, including the last):
+//! `result_json` `{"verdict":"pass"}`, as capture the 44-byte WAV header of a mono 16-bit
+//! 48 kHz file with no samples (SHA-256 `531cd597…caa0`), tested in `production` under a
+//! calibration whose SHA-256 is 64 × `b`, has these canonical bytes (each line ends with
+//! LF, including the last):
 //!
 //! ```text
-//! tragus-record-v1
+//! tragus-record-v2
 //! id:1:1
 //! time_utc:24:2025-03-14T09:26:53.589Z
 //! serial:9:E2-000123
@@ -72,10 +83,15 @@
 //! verdict:4:pass
 //! result_json:18:{"verdict":"pass"}
 //! capture_sha256:64:531cd597b25052b4845ef2f3887dec2183240802a93b6e044960de8ba017caa0
+//! calibration_mode:10:production
+//! calibration_sha256:64:bbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbb
 //! prev_hash:64:0000000000000000000000000000000000000000000000000000000000000000
 //! ```
 //!
-//! and `record_hash` `d43705c5cc69a7d592b5ba63ed20e990f3440f9348a7343bb0754c55bf12bcf6`.
+//! and `record_hash` `91c3830f9e147fd2e78d82411c26a3f54abea939b0b83bb7e39b61bd0b322437`. The
+//! same unit written by schema 1 (v1 form: header `tragus-record-v1`, the two calibration
+//! lines absent) has `record_hash`
+//! `d43705c5cc69a7d592b5ba63ed20e990f3440f9348a7343bb0754c55bf12bcf6`.
 //!
 //! # Crash safety
 //!
@@ -107,7 +123,7 @@ use rusqlite::types::Value;
 use rusqlite::{params, Connection, OptionalExtension, Row, TransactionBehavior};
 
 pub use error::StoreError;
-pub use hash::{sha256_hex, CANONICAL_HEADER, GENESIS_PREV_HASH};
+pub use hash::{sha256_hex, CANONICAL_HEADER, CANONICAL_HEADER_V2, GENESIS_PREV_HASH};
 pub use record::{NewRecord, RecordFilter, StoredRecord};
 pub use schema::SCHEMA_VERSION;
 pub use verify::{Notice, Problem, ProblemKind, VerifyReport};
@@ -155,7 +171,7 @@ pub(crate) fn crash_point(_point: &str) {}
 /// Columns of a record in the order [`read_record`] expects.
 const RECORD_COLUMNS: &str = "id, time_utc, serial, plan_id, plan_revision, plan_sha256, \
     software_version, station, operator, rig, verdict, result_json, capture_sha256, \
-    prev_hash, record_hash";
+    prev_hash, record_hash, calibration_mode, calibration_sha256";
 
 /// An open store: the station's database and its capture directory.
 ///
@@ -279,13 +295,17 @@ impl Store {
             capture_sha256,
             prev_hash,
             record_hash: String::new(),
+            calibration_mode: Some(rec.calibration_mode.clone()),
+            calibration_sha256: rec.calibration_sha256.clone(),
         };
         stored.record_hash = stored.computed_hash();
         tx.execute(
             "INSERT INTO records (id, time_utc, time_unix_ns, serial, plan_id, plan_revision, \
              plan_sha256, software_version, station, operator, rig, verdict, result_json, \
-             capture_sha256, prev_hash, record_hash, signature) \
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, NULL)",
+             capture_sha256, prev_hash, record_hash, signature, calibration_mode, \
+             calibration_sha256) \
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, NULL, \
+             ?17, ?18)",
             params![
                 stored.id,
                 stored.time_utc,
@@ -303,6 +323,8 @@ impl Store {
                 stored.capture_sha256,
                 stored.prev_hash,
                 stored.record_hash,
+                stored.calibration_mode,
+                stored.calibration_sha256,
             ],
         )
         .map_err(err)?;
@@ -475,5 +497,11 @@ fn read_record(row: &Row<'_>, db_path: &Path) -> Result<StoredRecord, StoreError
         capture_sha256: text(12, "capture_sha256")?,
         prev_hash: text(13, "prev_hash")?,
         record_hash: text(14, "record_hash")?,
+        calibration_mode: row
+            .get::<_, Option<String>>(15)
+            .map_err(|e| corrupt("calibration_mode", e))?,
+        calibration_sha256: row
+            .get::<_, Option<String>>(16)
+            .map_err(|e| corrupt("calibration_sha256", e))?,
     })
 }

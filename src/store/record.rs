@@ -36,6 +36,12 @@ pub struct NewRecord {
     pub verdict: Verdict,
     /// The full result document (DESIGN.md "Result JSON"); must be valid JSON.
     pub result_json: String,
+    /// Under which calibration mode the unit was tested: `production`, `non-production` or
+    /// `uncalibrated` (an id: lowercase letters, digits, `-`).
+    pub calibration_mode: String,
+    /// SHA-256 of the calibration applied (`tragus-calibration/1`, 64 lowercase hex digits),
+    /// `None` when none was.
+    pub calibration_sha256: Option<String>,
 }
 
 /// A record as stored: the appended fields plus what the store added.
@@ -65,6 +71,11 @@ pub struct StoredRecord {
     pub verdict: Verdict,
     /// See [`NewRecord::result_json`].
     pub result_json: String,
+    /// See [`NewRecord::calibration_mode`]; `None` for a record written before schema 2
+    /// (its hash is then over the v1 form, without calibration fields).
+    pub calibration_mode: Option<String>,
+    /// See [`NewRecord::calibration_sha256`].
+    pub calibration_sha256: Option<String>,
     /// SHA-256 of the raw capture WAV, lowercase hex; the file is
     /// [`Store::capture_path`](super::Store::capture_path) of it.
     pub capture_sha256: String,
@@ -92,6 +103,10 @@ impl StoredRecord {
             result_json: &self.result_json,
             capture_sha256: &self.capture_sha256,
             prev_hash: &self.prev_hash,
+            calibration: self
+                .calibration_mode
+                .as_deref()
+                .map(|m| (m, self.calibration_sha256.as_deref().unwrap_or(""))),
         }
     }
 
@@ -232,6 +247,27 @@ impl NewRecord {
                 expected: "a UTC time like 2025-03-14T09:26:53.589Z",
                 found: shorten(&self.time_utc),
             })?;
+        if self.calibration_mode.is_empty()
+            || !self
+                .calibration_mode
+                .bytes()
+                .all(|b| b.is_ascii_lowercase() || b.is_ascii_digit() || b == b'-')
+        {
+            return Err(StoreError::InvalidRecord {
+                field: "calibration_mode",
+                expected: "an id of lowercase letters, digits and `-` (production, ...)",
+                found: shorten(&self.calibration_mode),
+            });
+        }
+        if let Some(c) = &self.calibration_sha256 {
+            if !is_sha256_hex(c) {
+                return Err(StoreError::InvalidRecord {
+                    field: "calibration_sha256",
+                    expected: "64 lowercase hex digits",
+                    found: shorten(c),
+                });
+            }
+        }
         if !is_sha256_hex(&self.plan_sha256) {
             return Err(StoreError::InvalidRecord {
                 field: "plan_sha256",

@@ -15,7 +15,7 @@ use super::error::StoreError;
 pub(crate) const APPLICATION_ID: i64 = 0x5452_4753;
 
 /// Schema version this build writes and reads.
-pub const SCHEMA_VERSION: i64 = 1;
+pub const SCHEMA_VERSION: i64 = 2;
 
 /// How long an append waits for another process's write to finish before giving up with
 /// [`StoreError::Locked`]. An append holds the lock for one fsync'd transaction
@@ -88,6 +88,13 @@ CREATE TABLE records (
 CREATE INDEX records_by_serial ON records (serial);
 CREATE INDEX records_by_plan   ON records (plan_id);
 CREATE INDEX records_by_time   ON records (time_unix_ns);
+"#,
+    // 1 → 2: the calibration each unit was tested under. Records from schema 1 keep NULL in
+    // both columns (their hash is over the v1 form); every record appended from now on has
+    // a mode, and its hash is over the v2 form that includes both columns.
+    r#"
+ALTER TABLE records ADD COLUMN calibration_mode   TEXT;
+ALTER TABLE records ADD COLUMN calibration_sha256 TEXT;
 "#,
 ];
 

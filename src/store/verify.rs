@@ -212,7 +212,7 @@ impl fmt::Display for Notice {
 }
 
 /// Columns read for verification, in this order.
-const COLUMNS: [&str; 16] = [
+const COLUMNS: [&str; 18] = [
     "id",
     "time_utc",
     "time_unix_ns",
@@ -229,7 +229,13 @@ const COLUMNS: [&str; 16] = [
     "capture_sha256",
     "prev_hash",
     "record_hash",
+    "calibration_mode",
+    "calibration_sha256",
 ];
+
+/// Columns that may be NULL (schema 2 columns on records from schema 1; the sha when no
+/// calibration was applied).
+const NULLABLE_COLUMNS: [&str; 2] = ["calibration_mode", "calibration_sha256"];
 
 /// One row as raw values; a damaged column is `None` and has been reported.
 struct RawRow {
@@ -264,6 +270,8 @@ fn read_raw(row: &Row<'_>, problems: &mut Vec<Problem>) -> rusqlite::Result<RawR
                     other.data_type()
                 ))),
             }
+        } else if NULLABLE_COLUMNS.contains(&column) && value == ValueRef::Null {
+            // Absent: recorded as missing from `text`.
         } else {
             match value {
                 ValueRef::Text(bytes) => match std::str::from_utf8(bytes) {
@@ -300,6 +308,7 @@ impl RawRow {
             result_json: t("result_json")?,
             capture_sha256: t("capture_sha256")?,
             prev_hash: t("prev_hash")?,
+            calibration: t("calibration_mode").map(|m| (m, t("calibration_sha256").unwrap_or(""))),
         })
     }
 }

@@ -48,6 +48,7 @@ pub fn plan(channels: &[&str], checks: Vec<CheckSpec>) -> Plan {
             .collect(),
         rig: RigSpec::Simulated { seed: 7 },
         checks,
+        nominal_impedance_ohm: None,
     }
 }
 

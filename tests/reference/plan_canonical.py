@@ -297,6 +297,9 @@ def canonical(path):
                 out["normalize"] = {"band": band(n["band_hz"])}
         elif k == "sensitivity":
             out.update(band=band(c["band_hz"]), min_db=real(c["min_db"]), max_db=real(c["max_db"]))
+            # The unit enters only when it is not the default `db` (hash contract).
+            if c.get("unit", "db") != "db":
+                out["unit"] = c["unit"]
         elif k == "thd":
             out.update(band=band(c["band_hz"]), max_percent=real(c["max_percent"]))
         elif k == "harmonic":
@@ -337,6 +340,9 @@ def canonical(path):
             "stop_hz": real(st["stop_hz"]),
         },
     }
+    # Present only when the plan declares it (hash contract).
+    if "nominal_impedance_ohm" in plan:
+        doc["nominal_impedance_ohm"] = real(plan["nominal_impedance_ohm"])
     return dump(doc)
 
 

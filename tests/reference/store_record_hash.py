@@ -15,9 +15,12 @@ import os
 import struct
 
 GENESIS = "0" * 64
-ORDER = ["id", "time_utc", "serial", "plan_id", "plan_revision", "plan_sha256",
-         "software_version", "station", "operator", "rig", "verdict", "result_json",
-         "capture_sha256", "prev_hash"]
+ORDER_V1 = ["id", "time_utc", "serial", "plan_id", "plan_revision", "plan_sha256",
+            "software_version", "station", "operator", "rig", "verdict", "result_json",
+            "capture_sha256", "prev_hash"]
+# Schema 2: the calibration fields go between capture_sha256 and prev_hash; an absent
+# calibration_sha256 (None) is the empty value.
+ORDER_V2 = ORDER_V1[:13] + ["calibration_mode", "calibration_sha256", "prev_hash"]
 
 
 def wav(n_channels, rate_hz, samples):
@@ -30,10 +33,11 @@ def wav(n_channels, rate_hz, samples):
     return b"RIFF" + struct.pack("<I", len(body)) + body
 
 
-def canonical(rec):
-    out = b"tragus-record-v1\n"
-    for name in ORDER:
-        value = str(rec[name]).encode("utf-8")
+def canonical(rec, version):
+    out = b"tragus-record-v%d\n" % version
+    for name in (ORDER_V1 if version == 1 else ORDER_V2):
+        value = rec[name]
+        value = ("" if value is None else str(value)).encode("utf-8")
         out += name.encode("ascii") + b":" + str(len(value)).encode("ascii") + b":" + value + b"\n"
     return out
 
@@ -53,26 +57,47 @@ records = [
          capture=wav(2, 48000, [0, 1000, -1000, 32767])),
 ]
 
-out = []
-prev = GENESIS
-for i, rec in enumerate(records, start=1):
+# The same two units as tested under schema 2: the first in production with a calibration,
+# the second uncalibrated (no calibration applied: the empty value).
+CALIBRATION = [("production", "b" * 64), ("uncalibrated", None)]
+
+
+def chain(records, version, first_id=1, prev=GENESIS):
+    out = []
+    for i, rec in enumerate(records, start=first_id):
+        rec = dict(rec)
+        capture = rec.pop("capture")
+        rec["id"] = i
+        rec["capture_sha256"] = hashlib.sha256(capture).hexdigest()
+        rec["prev_hash"] = prev
+        canon = canonical(rec, version)
+        rec["record_hash"] = hashlib.sha256(canon).hexdigest()
+        rec["capture_hex"] = capture.hex()
+        rec["canonical"] = canon.decode("utf-8")
+        prev = rec["record_hash"]
+        out.append(rec)
+    return out
+
+
+v2 = []
+for rec, (mode, sha) in zip(records, CALIBRATION):
     rec = dict(rec)
-    capture = rec.pop("capture")
-    rec["id"] = i
-    rec["capture_sha256"] = hashlib.sha256(capture).hexdigest()
-    rec["prev_hash"] = prev
-    canon = canonical(rec)
-    rec["record_hash"] = hashlib.sha256(canon).hexdigest()
-    rec["capture_hex"] = capture.hex()
-    rec["canonical"] = canon.decode("utf-8")
-    prev = rec["record_hash"]
-    out.append(rec)
+    rec["calibration_mode"] = mode
+    rec["calibration_sha256"] = sha
+    v2.append(rec)
+out = chain(v2, 2)
+# A store written by schema 1 (v1 form), then migrated, then continued by schema 2: the
+# v2 record's prev_hash is the last v1 record's hash.
+out_v1 = chain(records, 1)
+after = dict(v2[0])
+out_after = chain([after], 2, first_id=len(out_v1) + 1, prev=out_v1[-1]["record_hash"])
 
 path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "store_record_hash.json")
 with open(path, "w", encoding="utf-8") as f:
-    json.dump({"made_by": "tests/reference/store_record_hash.py", "records": out}, f,
+    json.dump({"made_by": "tests/reference/store_record_hash.py", "records": out,
+               "records_v1": out_v1, "after_migration": out_after}, f,
               indent=1, ensure_ascii=False)
     f.write("\n")
 print(out[0]["canonical"])
-for r in out:
+for r in out + out_v1 + out_after:
     print(r["id"], r["capture_sha256"], r["record_hash"])

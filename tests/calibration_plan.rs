@@ -1,0 +1,62 @@
+//! Plan keys for calibrated limits: `unit:` of a sensitivity check and the plan's
+//! `nominal_impedance_ohm`, in the typed plan and the plan hash.
+
+use std::path::Path;
+use tragus::plan::hash::canonical_json;
+use tragus::plan::{load_plan, load_plan_str, CheckKind, SensitivityUnit};
+
+#[test]
+fn units_and_impedance_enter_the_hash_like_the_reference_says() {
+    // plan-spl-expected.txt was written by tests/reference/plan_canonical.py (Python json +
+    // hashlib) from the contract in src/plan/hash.rs.
+    let expected = std::fs::read_to_string("tests/data/calibration/plan-spl-expected.txt").unwrap();
+    let mut lines = expected.lines();
+    let (json, sha) = (lines.next().unwrap(), lines.next().unwrap());
+    let plan = load_plan(Path::new("tests/data/calibration/plan-spl.yaml")).unwrap();
+    assert_eq!(canonical_json(&plan), json);
+    assert_eq!(plan.sha256, sha);
+    assert_eq!(plan.nominal_impedance_ohm, Some(32.0));
+    let units: Vec<SensitivityUnit> = plan
+        .checks
+        .iter()
+        .filter_map(|c| match c.kind {
+            CheckKind::Sensitivity { unit, .. } => Some(unit),
+            _ => None,
+        })
+        .collect();
+    assert_eq!(
+        units,
+        [
+            SensitivityUnit::DbSplPerV,
+            SensitivityUnit::DbSplPerMw,
+            SensitivityUnit::Db
+        ]
+    );
+}
+
+#[test]
+fn the_default_unit_and_no_impedance_keep_the_old_hash() {
+    let base = "plan: p\nrevision: 1\nsample_rate_hz: 48000\nstimulus: {start_hz: 20, stop_hz: 20000, duration_s: 1, level_dbfs: -18}\nchannels:\n  - {name: left, output: 1, input: 1}\nchecks:\n  - {id: s, kind: sensitivity, band_hz: [500, 2000], min_db: -10, max_db: 0}\n";
+    let with_default = base.replace("kind: sensitivity,", "kind: sensitivity, unit: db,");
+    let a = load_plan_str(base, Path::new("a.yaml")).unwrap();
+    let b = load_plan_str(&with_default, Path::new("b.yaml")).unwrap();
+    assert_eq!(a.sha256, b.sha256);
+    assert!(!canonical_json(&a).contains("unit"));
+    assert!(!canonical_json(&a).contains("nominal_impedance_ohm"));
+}
+
+#[test]
+fn bad_values_are_refused_with_their_position() {
+    let text = "plan: p\nrevision: 1\nsample_rate_hz: 48000\nnominal_impedance_ohm: 0.032\nstimulus: {start_hz: 20, stop_hz: 20000, duration_s: 1, level_dbfs: -18}\nchannels:\n  - {name: left, output: 1, input: 1}\nchecks:\n  - {id: s, kind: sensitivity, unit: dB_SPL, band_hz: [500, 2000], min_db: -10, max_db: 0}\n";
+    let e = load_plan_str(text, Path::new("p.yaml"))
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("p.yaml:4:24: nominal_impedance_ohm: expected 1 to 2000 Ω, found 0.032"),
+        "{e}"
+    );
+    assert!(
+        e.contains("p.yaml:9:38: check s: unit: expected db, db_spl_per_v or db_spl_per_mw, found `dB_SPL`"),
+        "{e}"
+    );
+}
