@@ -7,6 +7,7 @@
 
 mod analyze;
 mod coupler;
+mod devices;
 mod pipeline;
 mod records;
 mod run;
@@ -70,6 +71,8 @@ pub enum Command {
     Verify(records::VerifyArgs),
     /// Input impedance and transfer functions of a coupler model on the log grid.
     Coupler(coupler::Args),
+    /// List audio hosts and devices: channels, rates, sample formats, defaults.
+    Devices(devices::Args),
 }
 
 /// Where a `--json` document goes.
@@ -234,6 +237,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Records(a) => records::list(a),
         Command::Verify(a) => records::verify(a),
         Command::Coupler(a) => coupler::run(a),
+        Command::Devices(a) => devices::run(a),
     };
     match result {
         Ok(code) => code,

@@ -13,7 +13,8 @@ use std::path::PathBuf;
 pub enum RigChoice {
     /// The simulated earphone and fixture (no hardware).
     Simulated,
-    /// A sound card (needs a station configuration; not in this build yet).
+    /// A sound card (build with `--features soundcard`; devices from the `--host`,
+    /// `--output-device`, ... options).
     Soundcard,
 }
 
@@ -50,6 +51,26 @@ pub struct Args {
     /// corrected channel (the plan's `fixture_tap` must exist in it).
     #[arg(long, value_name = "MODEL.yaml")]
     pub fixture: Option<PathBuf>,
+    /// Sound-card rig: cpal host (`alsa`, `jack`, ...); default: the default host.
+    #[arg(long, value_name = "HOST")]
+    pub host: Option<String>,
+    /// Sound-card rig: output device (id or name, see `tragus devices`); default: the
+    /// host's default output.
+    #[arg(long, value_name = "DEVICE")]
+    pub output_device: Option<String>,
+    /// Sound-card rig: input device; default: the host's default input.
+    #[arg(long, value_name = "DEVICE")]
+    pub input_device: Option<String>,
+    /// Sound-card rig: buffer size, frames; default: the device's.
+    #[arg(long, value_name = "FRAMES")]
+    pub buffer_frames: Option<u32>,
+    /// Sound-card rig: input channel (1-based) wired back from `--loopback-output`
+    /// (latency and clock reference).
+    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u16).range(1..), requires = "loopback_output")]
+    pub loopback_input: Option<u16>,
+    /// Sound-card rig: output channel (1-based) the loopback input replays.
+    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u16).range(1..), requires = "loopback_input")]
+    pub loopback_output: Option<u16>,
     /// Write the result JSON here (`-` for stdout: human output then goes nowhere).
     #[arg(long, value_name = "OUT")]
     pub json: Option<JsonOut>,
@@ -85,6 +106,32 @@ fn simulated_fixture(
         }
     }
     Ok(found.map(|c| (c.fixture.coupler(), c.fixture_tap.clone())))
+}
+
+/// The sound-card rig from the command-line options (a station file will set them later).
+#[cfg(feature = "soundcard")]
+fn soundcard_rig(args: &Args, plan: &crate::plan::Plan) -> Result<Box<dyn Rig>, Exit> {
+    let spec = crate::rig::SoundcardSpec {
+        host: args.host.clone(),
+        output_device: args.output_device.clone(),
+        input_device: args.input_device.clone(),
+        buffer_frames: args.buffer_frames,
+        loopback_input: args.loopback_input.map(|n| usize::from(n) - 1),
+        loopback_output: args.loopback_output.map(|n| usize::from(n) - 1),
+        ..Default::default()
+    };
+    let routes = plan.channels.iter().map(|c| (c.output, c.input)).collect();
+    let rig = crate::rig::soundcard::SoundcardRig::open(spec, routes, plan.sample_rate_hz)
+        .map_err(Exit::from_rig)?;
+    Ok(Box::new(rig))
+}
+
+#[cfg(not(feature = "soundcard"))]
+fn soundcard_rig(_args: &Args, _plan: &crate::plan::Plan) -> Result<Box<dyn Rig>, Exit> {
+    Err(Exit::bad_input(anyhow::anyhow!(
+        "--rig soundcard: {}",
+        super::devices::NOT_BUILT
+    )))
 }
 
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
@@ -143,12 +190,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
             };
             (Box::new(rig), Some(args.sim_unit.clone()))
         }
-        RigChoice::Soundcard => {
-            return Err(Exit::bad_input(anyhow::anyhow!(
-                "--rig soundcard: the sound-card rig is not in this build yet; use \
-                 `--rig simulated`, or record the stimulus yourself and use `tragus analyze`"
-            )))
-        }
+        RigChoice::Soundcard => (soundcard_rig(&args, &prep.plan)?, None),
     };
     tracing::info!(serial = %args.serial, rig = rig.name(), "playing the stimulus");
     let capture = rig
