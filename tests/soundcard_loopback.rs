@@ -313,3 +313,27 @@ fn a_stalled_or_killed_server_mid_sweep_is_a_retest() {
     }
     assert!(ok, "restart the sound server");
 }
+
+#[test]
+fn a_wrong_device_name_is_bad_input() {
+    // Needs the ALSA host only, not a server: a device name the host does not know is the
+    // station's mistake (exit 2, DESIGN.md), and the message lists the devices it has.
+    let out = tragus(&[
+        "run",
+        "plans/loopback.yaml",
+        "--rig",
+        "soundcard",
+        "--serial",
+        "SC-3",
+        "--output-device",
+        "no-such-device",
+        "--store",
+        std::env::temp_dir().join("tragus-sc-unused").to_str().unwrap(),
+    ]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("expected one of the output devices") && err.contains("no-such-device"),
+        "{err}"
+    );
+}
