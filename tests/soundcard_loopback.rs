@@ -149,7 +149,10 @@ fn a_channel_swap_is_detected() {
     assert_eq!(code, 3, "{result:#}");
     assert_eq!(result["verdict"], "retest");
     let reasons = result["retest_reasons"].to_string();
-    assert!(reasons.contains("no input carries the stimulus"), "{reasons}");
+    assert!(
+        reasons.contains("no input carries the stimulus"),
+        "{reasons}"
+    );
     // With the loopback on output 2 → input 2 the alignment holds, and the plan's input 1
     // shows the swap: silence where the response should be, so the flat check fails or
     // the measurement is invalid ("no signal") — never a pass.
@@ -188,7 +191,9 @@ fn stereo_channels_arrive_on_their_own_inputs() {
     };
     let routes = plan.channels.iter().map(|c| (c.output, c.input)).collect();
     let mut rig = SoundcardRig::open(spec, routes, plan.sample_rate_hz).expect("open");
-    let capture = rig.play_and_capture(&stimulus, plan.n_inputs()).expect("capture");
+    let capture = rig
+        .play_and_capture(&stimulus, plan.n_inputs())
+        .expect("capture");
     assert_eq!(capture.xruns, 0, "{:?}", capture.faults);
     assert!(capture.faults.is_empty(), "{:?}", capture.faults);
     assert!(capture.device_latency_samples.is_some_and(|l| l > 0));
@@ -197,18 +202,18 @@ fn stereo_channels_arrive_on_their_own_inputs() {
     let left = analyzer.analyze_channel("left", &capture.channels[0]);
     let right = analyzer.analyze_channel("right", &capture.channels[1]);
     let at_1k = |m: &tragus::analysis::ChannelMeasurement| {
-        let i = m
-            .frequencies_hz
-            .iter()
-            .position(|&f| f >= 1000.0)
-            .unwrap();
+        let i = m.frequencies_hz.iter().position(|&f| f >= 1000.0).unwrap();
         m.response_db[i]
     };
     assert_eq!(left.polarity, Polarity::Positive);
     assert_eq!(right.polarity, Polarity::Negative);
     // Digital copies: 0 dB and 20·log10(0.5) = −6.0206 dB; same ±0.05 dB as above.
     assert!(at_1k(&left).abs() < 0.05, "left {}", at_1k(&left));
-    assert!((at_1k(&right) + 6.0206).abs() < 0.05, "right {}", at_1k(&right));
+    assert!(
+        (at_1k(&right) + 6.0206).abs() < 0.05,
+        "right {}",
+        at_1k(&right)
+    );
 }
 
 /// PID of the running PulseAudio server (its pid file in the runtime directory).
@@ -230,11 +235,7 @@ fn signal(pid: i32, sig: &str) {
 }
 
 /// Run the long plan in the background and disturb the server `after` into the sweep.
-fn run_disturbed(
-    dir: &Path,
-    after: Duration,
-    disturb: impl FnOnce(),
-) -> (i32, serde_json::Value) {
+fn run_disturbed(dir: &Path, after: Duration, disturb: impl FnOnce()) -> (i32, serde_json::Value) {
     let json = dir.join("result.json");
     let store = dir.join("store");
     let child = Command::new(env!("CARGO_BIN_EXE_tragus"))
@@ -328,7 +329,10 @@ fn a_wrong_device_name_is_bad_input() {
         "--output-device",
         "no-such-device",
         "--store",
-        std::env::temp_dir().join("tragus-sc-unused").to_str().unwrap(),
+        std::env::temp_dir()
+            .join("tragus-sc-unused")
+            .to_str()
+            .unwrap(),
     ]);
     assert_eq!(out.status.code(), Some(2));
     let err = String::from_utf8_lossy(&out.stderr);
