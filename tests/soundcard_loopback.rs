@@ -341,3 +341,40 @@ fn a_wrong_device_name_is_bad_input() {
         "{err}"
     );
 }
+
+#[test]
+fn devices_lists_the_servers_default_device() {
+    let _guard = SERVER.lock().unwrap_or_else(|e| e.into_inner());
+    if !server_up() {
+        return;
+    }
+    let out = tragus(&["devices", "--json", "-"]);
+    assert_eq!(out.status.code(), Some(0));
+    let hosts: serde_json::Value = serde_json::from_slice(&out.stdout).expect("JSON");
+    // tests/soundcard/pulse.sh routes ALSA's `default` to the server's stereo null sink.
+    let default = hosts
+        .as_array()
+        .unwrap()
+        .iter()
+        .flat_map(|h| h["devices"].as_array().unwrap())
+        .find(|d| d["default_output"] == true && d["default_input"] == true)
+        .expect("a default output and input device");
+    assert!(
+        default["output_channels"].as_u64().unwrap() >= 2,
+        "{default:#}"
+    );
+    assert!(
+        default["input_channels"].as_u64().unwrap() >= 2,
+        "{default:#}"
+    );
+    let runs_48k = default["output_configs"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|c| {
+            c["sample_format"] == "f32"
+                && c["min_rate_hz"].as_u64().unwrap() <= 48000
+                && c["max_rate_hz"].as_u64().unwrap() >= 48000
+        });
+    assert!(runs_48k, "{default:#}");
+}
