@@ -239,6 +239,13 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
     }
     if !args.json.as_ref().is_some_and(JsonOut::is_stdout) {
         print!("{}", crate::report::render_human(&result, out.color));
+        if let Some(lag) = capture.device_latency_samples {
+            // The device path removed before the analysis (README: the sound-card rig).
+            println!(
+                "sound card: device latency {lag} samples ({:.1} ms), removed before the analysis",
+                lag as f64 * 1e3 / f64::from(capture.sample_rate_hz)
+            );
+        }
         println!(
             "recorded as #{} in {} (capture {})",
             stored.id,
