@@ -122,6 +122,10 @@ pub struct UnitResult {
     pub station: Option<crate::station::StationInfo>,
     /// Unit-level reasons for a retest, in words.
     pub retest_reasons: Vec<String>,
+    /// Sound-card rig: the device path's latency (output to input, samples) found by the
+    /// alignment and removed before the analysis; absent for other rigs.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub device_latency_samples: Option<i64>,
     /// Per-channel measurements.
     pub channels: Vec<ChannelMeasurement>,
     /// Per-check results.

@@ -21,6 +21,7 @@ fn result(verdict: Verdict, checks: Vec<CheckResult>) -> UnitResult {
         rig: "simulated".into(),
         simulated_unit: Some("nominal".into()),
         station: None,
+        device_latency_samples: None,
         retest_reasons: vec![],
         channels: vec![
             measurement("left", &[0.0; 7]),

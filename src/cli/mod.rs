@@ -8,6 +8,7 @@
 mod analyze;
 mod calibrate;
 mod coupler;
+mod devices;
 mod pipeline;
 mod records;
 mod run;
@@ -78,6 +79,8 @@ pub enum Command {
     Coupler(coupler::Args),
     /// Calibrate the station: microphone inputs (sound calibrator) and drive outputs.
     Calibrate(calibrate::Args),
+    /// List audio hosts and devices: channels, rates, sample formats, defaults.
+    Devices(devices::Args),
 }
 
 /// Where a `--json` document goes.
@@ -246,6 +249,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Verify(a) => records::verify(a),
         Command::Coupler(a) => coupler::run(a),
         Command::Calibrate(a) => calibrate::run(a),
+        Command::Devices(a) => devices::run(a),
     };
     match result {
         Ok(code) => code,

@@ -160,6 +160,7 @@ pub(crate) fn judge_capture(
         rig: rig.to_string(),
         simulated_unit,
         station: None,
+        device_latency_samples: None,
         retest_reasons,
         channels,
         checks,

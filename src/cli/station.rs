@@ -172,6 +172,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         operator: args.operator.clone(),
         calibration: None,
         non_production: false,
+        soundcard: station.soundcard.clone(),
     })?;
     bench.pace_realtime = args.sim_realtime;
     let sims = parse_sim_units(&bench, &args.sim_unit)?;

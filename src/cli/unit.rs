@@ -42,6 +42,8 @@ pub(crate) struct BenchOptions<'a> {
     pub calibration: Option<&'a Path>,
     /// `--non-production` (the station's `mode: engineering` means the same).
     pub non_production: bool,
+    /// Sound-card settings (the station's, with command-line options applied).
+    pub soundcard: crate::rig::SoundcardSpec,
 }
 
 /// Everything that stays the same from unit to unit on one bench.
@@ -54,6 +56,10 @@ pub(crate) struct Bench {
     /// card (operator training, and a real window for Ctrl-C during a unit in tests).
     pub pace_realtime: bool,
     seed: u64,
+    rig: RigChoice,
+    // Read only by the sound-card rig, which a build without the feature does not have.
+    #[cfg_attr(not(feature = "soundcard"), allow(dead_code))]
+    soundcard: crate::rig::SoundcardSpec,
 }
 
 /// What the simulated rig is told to put in the fixture.
@@ -109,10 +115,12 @@ impl Bench {
                 RigSpec::Soundcard => RigChoice::Soundcard,
             },
         });
+        // Refused before anything is tested, rather than at the first unit.
+        #[cfg(not(feature = "soundcard"))]
         if rig == RigChoice::Soundcard {
             return Err(Exit::bad_input(anyhow::anyhow!(
-                "--rig soundcard: the sound-card rig is not in this build yet; use \
-                 `--rig simulated`, or record the stimulus yourself and use `tragus analyze`"
+                "--rig soundcard: {}",
+                super::devices::NOT_BUILT
             )));
         }
         let store = o
@@ -144,6 +152,8 @@ impl Bench {
             operator,
             pace_realtime: false,
             seed,
+            rig,
+            soundcard: o.soundcard,
         })
     }
 
@@ -180,6 +190,9 @@ impl Bench {
     }
 
     fn make_rig(&self, serial: &str, sim: &SimChoice) -> Result<Box<dyn Rig>, Exit> {
+        if self.rig == RigChoice::Soundcard {
+            return self.soundcard_rig();
+        }
         let routes = self
             .prep
             .plan
@@ -240,6 +253,7 @@ impl Bench {
             Some(sim.label.clone()),
         )?;
         result.station = Some(self.station.clone());
+        result.device_latency_samples = capture.device_latency_samples;
 
         // Record before reporting: a verdict the store does not hold was never given.
         let result_json = serde_json::to_string(&result)
@@ -359,6 +373,32 @@ pub(crate) fn use_calibration(
     };
     prep.calibration_offsets_db = offsets;
     Ok(())
+}
+
+impl Bench {
+    /// The sound-card rig on this bench's devices, with the plan's routes (after the
+    /// station's channel map). Opened per unit: a device lost between units is found at the
+    /// next unit, not carried as a stale stream.
+    #[cfg(feature = "soundcard")]
+    fn soundcard_rig(&self) -> Result<Box<dyn Rig>, Exit> {
+        let plan = &self.prep.plan;
+        let routes = plan.channels.iter().map(|c| (c.output, c.input)).collect();
+        let rig = crate::rig::soundcard::SoundcardRig::open(
+            self.soundcard.clone(),
+            routes,
+            plan.sample_rate_hz,
+        )
+        .map_err(Exit::from_rig)?;
+        Ok(Box::new(rig))
+    }
+
+    #[cfg(not(feature = "soundcard"))]
+    fn soundcard_rig(&self) -> Result<Box<dyn Rig>, Exit> {
+        Err(Exit::bad_input(anyhow::anyhow!(
+            "--rig soundcard: {}",
+            super::devices::NOT_BUILT
+        )))
+    }
 }
 
 /// The fixture the simulated rig puts the unit in: the one the plan's correction names

@@ -3,11 +3,17 @@
 //! Sits between the stimulus ([`crate::dsp::sweep`]) and the analysis. Every rig implements
 //! [`Rig`]; the CLI picks one. `recording` reads a capture from a WAV file; `simulated`
 //! runs a model of an earphone and fixture ([`simulated::Dut`] keeps the unit model behind a
-//! trait so a physical model can replace the behavioural one).
+//! trait so a physical model can replace the behavioural one). `soundcard` (feature
+//! `soundcard`) plays through a real sound card; `align` finds the stimulus in a recording.
 
+pub mod align;
 pub mod recording;
 pub mod simulated;
+#[cfg(feature = "soundcard")]
+pub mod soundcard;
 pub mod soundcard_spec;
+
+pub use soundcard_spec::SoundcardSpec;
 
 use crate::dsp::sweep::Stimulus;
 
@@ -22,6 +28,10 @@ pub struct Capture {
     pub xruns: u32,
     /// Rig-level faults noticed while capturing (each makes the measurement a retest).
     pub faults: Vec<String>,
+    /// Samples removed from the start of the device recording to align it with stimulus
+    /// sample 0 (the sound-card rig's measured device latency); `None` for rigs that do
+    /// not align (simulated, recording) or when alignment failed (then `faults` says why).
+    pub device_latency_samples: Option<i64>,
 }
 
 impl Capture {

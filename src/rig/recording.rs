@@ -88,6 +88,7 @@ impl Rig for RecordingRig {
             channels: self.data.channels.clone(),
             xruns: 0,
             faults,
+            device_latency_samples: None,
         })
     }
 }

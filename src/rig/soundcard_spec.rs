@@ -22,3 +22,27 @@ pub struct SoundcardSpec {
     /// measurement is a retest.
     pub max_clock_drift_ppm: f64,
 }
+
+impl SoundcardSpec {
+    /// Default drift bound, ppm. 20 ppm over a 1 s sweep is 20 µs, one sample at 48 kHz:
+    /// beyond that the deconvolved impulse response smears at high frequencies. Consumer
+    /// converter crystals are specified to some tens of ppm each (common practice, from
+    /// memory), so two unlocked devices can exceed it and are then told apart from locked
+    /// ones.
+    pub const DEFAULT_MAX_CLOCK_DRIFT_PPM: f64 = 20.0;
+}
+
+impl Default for SoundcardSpec {
+    /// Default host and devices, device buffer size, no loopback, the default drift bound.
+    fn default() -> Self {
+        SoundcardSpec {
+            host: None,
+            output_device: None,
+            input_device: None,
+            buffer_frames: None,
+            loopback_input: None,
+            loopback_output: None,
+            max_clock_drift_ppm: Self::DEFAULT_MAX_CLOCK_DRIFT_PPM,
+        }
+    }
+}

@@ -65,13 +65,9 @@ use crate::plan::{Plan, Problem};
 use crate::rig::soundcard_spec::SoundcardSpec;
 use std::path::PathBuf;
 
-/// Default bound on the clock drift between separate input and output devices, ppm.
-///
-/// 20 ppm over a 1 s sweep is 20 µs, one sample at 48 kHz: beyond that the deconvolved
-/// impulse response smears at high frequencies. Consumer converter crystals are specified
-/// to some tens of ppm each (common practice, from memory), so two unlocked devices can
-/// exceed it and are then told apart from locked ones.
-pub const DEFAULT_MAX_CLOCK_DRIFT_PPM: f64 = 20.0;
+/// Default `max_clock_drift_ppm`: the sound-card rig's (one bound, one reason; see
+/// [`SoundcardSpec::DEFAULT_MAX_CLOCK_DRIFT_PPM`]).
+pub const DEFAULT_MAX_CLOCK_DRIFT_PPM: f64 = SoundcardSpec::DEFAULT_MAX_CLOCK_DRIFT_PPM;
 /// Accepted range of `max_clock_drift_ppm`: above 1000 ppm (0.1 %) no measurement is
 /// meaningful, and 0 would refuse every real device pair.
 pub const CLOCK_DRIFT_RANGE_PPM: (f64, f64) = (0.1, 1000.0);

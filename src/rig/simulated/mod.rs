@@ -505,6 +505,7 @@ impl Rig for SimulatedRig {
             channels,
             xruns: 0,
             faults,
+            device_latency_samples: None,
         })
     }
 }
