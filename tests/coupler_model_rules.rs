@@ -58,3 +58,34 @@ fn series_element_before_a_cavity_or_an_open_end_is_accepted() {
     let m = load_model_str(open, Path::new("b.yaml")).expect("valid");
     assert!(m.coupler().evaluate(f).input_impedance.re.is_finite());
 }
+
+// Every YAML file kind of the project refuses bytes that are not UTF-8 with the position
+// of the first bad byte (line 2, column 6 here: after "ok: 1\n" and "bad: "), never with
+// a bare I/O error or a panic (UTF-8, RFC 3629: 0xFF never occurs).
+#[test]
+fn files_that_are_not_utf8_are_refused_at_the_bad_byte() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("bad.yaml");
+    std::fs::write(&path, b"ok: 1\nbad: \xff\xfe\n").unwrap();
+    let want = format!(
+        "{}:2:6: expected UTF-8 text, found invalid bytes",
+        path.display()
+    );
+    let messages = [
+        tragus::acoustics::model::load_model(&path)
+            .unwrap_err()
+            .to_string(),
+        tragus::acoustics::earphone_file::load_earphone(&path)
+            .unwrap_err()
+            .to_string(),
+        tragus::station::load_station(&path)
+            .unwrap_err()
+            .to_string(),
+        tragus::calibration::load_calibration(&path)
+            .unwrap_err()
+            .to_string(),
+    ];
+    for m in messages {
+        assert_eq!(m, want);
+    }
+}

@@ -58,7 +58,7 @@ use super::model::{
 use super::network::ChainItem;
 use super::source::EarphoneModel;
 use crate::plan::raw::{self, is_id, Pos};
-use crate::plan::{Location, Problem};
+use crate::plan::Problem;
 use marked_yaml::types::MarkedMappingNode;
 use marked_yaml::Node;
 use serde_json::{json, Value};
@@ -104,20 +104,13 @@ pub enum EarphoneFileError {
 
 /// Load and validate an earphone parameter file.
 pub fn load_earphone(path: &Path) -> Result<EarphoneModel, EarphoneFileError> {
-    let bytes = std::fs::read(path).map_err(|source| EarphoneFileError::Io {
-        path: path.display().to_string(),
-        source,
-    })?;
-    match String::from_utf8(bytes) {
+    match raw::read_text_file(path) {
         Ok(text) => load_earphone_str(&text, path),
-        Err(_) => Err(EarphoneFileError::Invalid(vec![Problem {
-            location: Location {
-                path: path.display().to_string(),
-                line: 1,
-                col: 1,
-            },
-            message: "expected UTF-8 text, found invalid bytes".into(),
-        }])),
+        Err(raw::TextFileError::Io(source)) => Err(EarphoneFileError::Io {
+            path: path.display().to_string(),
+            source,
+        }),
+        Err(raw::TextFileError::NotUtf8(p)) => Err(EarphoneFileError::Invalid(vec![p])),
     }
 }
 

@@ -164,31 +164,14 @@ pub enum ModelError {
 
 /// Load, validate and hash a coupler model file.
 pub fn load_model(path: &Path) -> Result<CouplerModel, ModelError> {
-    let bytes = std::fs::read(path).map_err(|source| ModelError::Io {
-        path: path.display().to_string(),
-        source,
-    })?;
-    match String::from_utf8(bytes) {
+    match raw::read_text_file(path) {
         Ok(text) => load_model_str(&text, path),
-        Err(e) => {
-            let (line, col) = text_pos(&e.as_bytes()[..e.utf8_error().valid_up_to()]);
-            Err(ModelError::Invalid(vec![Problem {
-                location: Location {
-                    path: path.display().to_string(),
-                    line,
-                    col,
-                },
-                message: "expected UTF-8 text, found invalid bytes".into(),
-            }]))
-        }
+        Err(raw::TextFileError::Io(source)) => Err(ModelError::Io {
+            path: path.display().to_string(),
+            source,
+        }),
+        Err(raw::TextFileError::NotUtf8(p)) => Err(ModelError::Invalid(vec![p])),
     }
-}
-
-fn text_pos(good: &[u8]) -> (usize, usize) {
-    let good = std::str::from_utf8(good).unwrap_or_default();
-    let line = good.matches('\n').count() + 1;
-    let col = good.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
-    (line, col)
 }
 
 /// Load a model from text; `path` labels problems and anchors relative CSV paths.

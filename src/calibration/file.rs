@@ -90,11 +90,14 @@ const DRIVE_READING_KEYS: [&str; 6] = [
 
 /// Load and validate a calibration file.
 pub fn load_calibration(path: &Path) -> Result<Calibration, CalibrationError> {
-    let text = std::fs::read_to_string(path).map_err(|source| CalibrationError::Io {
-        path: path.display().to_string(),
-        source,
-    })?;
-    load_calibration_str(&text, path)
+    match crate::plan::raw::read_text_file(path) {
+        Ok(text) => load_calibration_str(&text, path),
+        Err(crate::plan::raw::TextFileError::Io(source)) => Err(CalibrationError::Io {
+            path: path.display().to_string(),
+            source,
+        }),
+        Err(crate::plan::raw::TextFileError::NotUtf8(p)) => Err(CalibrationError::Invalid(vec![p])),
+    }
 }
 
 /// Load a calibration from text; `path` labels problems.

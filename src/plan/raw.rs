@@ -427,6 +427,35 @@ pub fn parse(text: &str, path: &str) -> (Option<RawPlan>, Vec<Problem>) {
     (plan, d.problems)
 }
 
+/// Why a YAML file's text could not be had ([`read_text_file`]).
+#[derive(Debug)]
+pub enum TextFileError {
+    /// The file could not be read.
+    Io(std::io::Error),
+    /// The file is not UTF-8 text: a problem at the first invalid byte's line:col.
+    NotUtf8(Problem),
+}
+
+/// Read a YAML file of the project (coupler model, earphone, station, calibration) as
+/// UTF-8 text; invalid bytes are reported where they start, as `path:line:col`.
+pub fn read_text_file(path: &std::path::Path) -> Result<String, TextFileError> {
+    let bytes = std::fs::read(path).map_err(TextFileError::Io)?;
+    String::from_utf8(bytes).map_err(|e| {
+        let good =
+            std::str::from_utf8(&e.as_bytes()[..e.utf8_error().valid_up_to()]).unwrap_or_default();
+        let line = good.matches('\n').count() + 1;
+        let col = good.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
+        TextFileError::NotUtf8(Problem {
+            location: Location {
+                path: path.display().to_string(),
+                line,
+                col,
+            },
+            message: "expected UTF-8 text, found invalid bytes".into(),
+        })
+    })
+}
+
 /// Parse YAML text into a marked node tree whose top level is a mapping, with the same
 /// guards as plans (nesting depth, no anchors, aliases or tags, one document, no duplicate
 /// keys) but no decoding: for other YAML files of the project (coupler models).

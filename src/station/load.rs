@@ -54,22 +54,13 @@ const DIGITAL_RANGE_DBFS: (f64, f64) = (-120.0, 0.0);
 /// Load and validate a station file; its fixture model is loaded too (its problems are
 /// reported at the model file's own positions).
 pub fn load_station(path: &Path) -> Result<Station, StationError> {
-    let bytes = std::fs::read(path).map_err(|source| StationError::Io {
-        path: path.display().to_string(),
-        source,
-    })?;
-    match String::from_utf8(bytes) {
+    match raw::read_text_file(path) {
         Ok(text) => load_station_str(&text, path),
-        Err(e) => {
-            let good = &e.as_bytes()[..e.utf8_error().valid_up_to()];
-            let good = std::str::from_utf8(good).unwrap_or_default();
-            let line = good.matches('\n').count() + 1;
-            let col = good.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
-            Err(StationError::Invalid(vec![Problem {
-                location: Pos { line, col }.at(&path.display().to_string()),
-                message: "expected UTF-8 text, found invalid bytes".into(),
-            }]))
-        }
+        Err(raw::TextFileError::Io(source)) => Err(StationError::Io {
+            path: path.display().to_string(),
+            source,
+        }),
+        Err(raw::TextFileError::NotUtf8(p)) => Err(StationError::Invalid(vec![p])),
     }
 }
 
