@@ -234,7 +234,21 @@ fn signal(pid: i32, sig: &str) {
     assert!(ok, "kill {sig} {pid}");
 }
 
+/// Whether the server has a playback stream (a sink input) right now: the rig's output
+/// stream is running, so the sweep is playing.
+fn playback_running() -> bool {
+    Command::new("pactl")
+        .args(["list", "short", "sink-inputs"])
+        .output()
+        .is_ok_and(|o| o.status.success() && !o.stdout.iter().all(u8::is_ascii_whitespace))
+}
+
 /// Run the long plan in the background and disturb the server `after` into the sweep.
+///
+/// `after` counts from the moment the server shows the rig's playback stream, not from the
+/// spawn: start-up (process, devices, the input's first samples) took over 2 s in CI, and
+/// a stall before the sweep starts loses nothing — the rig then rightly passes with the
+/// stall as extra device latency (seen: 60 616 samples).
 fn run_disturbed(dir: &Path, after: Duration, disturb: impl FnOnce()) -> (i32, serde_json::Value) {
     let json = dir.join("result.json");
     let store = dir.join("store");
@@ -262,6 +276,10 @@ fn run_disturbed(dir: &Path, after: Duration, disturb: impl FnOnce()) -> (i32, s
         .stderr(std::process::Stdio::piped())
         .spawn()
         .expect("spawn tragus");
+    let t0 = std::time::Instant::now();
+    while !playback_running() && t0.elapsed() < Duration::from_secs(15) {
+        std::thread::sleep(Duration::from_millis(20));
+    }
     std::thread::sleep(after);
     disturb();
     let out = child.wait_with_output().expect("wait");
@@ -287,7 +305,7 @@ fn a_stalled_or_killed_server_mid_sweep_is_a_retest() {
     // must be a retest (exit 3), never a pass. (A 300 ms stall was sometimes absorbed by
     // the server's buffering without any loss — then a pass is right — so the stall is
     // made long enough to be certain of the loss.)
-    let (code, result) = run_disturbed(dir.path(), Duration::from_millis(2000), || {
+    let (code, result) = run_disturbed(dir.path(), Duration::from_millis(1000), || {
         signal(pid, "-STOP");
         std::thread::sleep(Duration::from_millis(1200));
         signal(pid, "-CONT");
@@ -295,7 +313,7 @@ fn a_stalled_or_killed_server_mid_sweep_is_a_retest() {
     assert_eq!(code, 3, "{result:#}");
     // Killed mid-sweep: the device is lost; retest, and whatever was recorded is
     // recorded as a retest (or nothing is written at all), never a pass.
-    let (code, result) = run_disturbed(dir.path(), Duration::from_millis(2000), || {
+    let (code, result) = run_disturbed(dir.path(), Duration::from_millis(1000), || {
         signal(pid, "-KILL");
     });
     assert_eq!(code, 3, "{result:#}");

@@ -250,7 +250,7 @@ impl Bench {
             &capture,
             serial,
             rig.name(),
-            Some(sim.label.clone()),
+            (self.rig == RigChoice::Simulated).then(|| sim.label.clone()),
         )?;
         result.station = Some(self.station.clone());
         result.device_latency_samples = capture.device_latency_samples;
