@@ -3,7 +3,7 @@
 
 mod common;
 
-use common::{tragus, write_f32_wav};
+use common::{assert_exit, tragus, write_f32_wav};
 use std::path::Path;
 use tragus::calibration::{load_calibration, Calibration};
 
@@ -53,12 +53,7 @@ fn mic_then_drive_make_a_complete_calibration() {
     let wav = dir.path().join("cal-tone.wav");
     calibrator_wav(&wav, 1000.0, 0.04);
     let out = mic(dir.path(), &wav, &["--due-days", "7"]);
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    assert_exit(&out, 0);
     let cal = load_calibration(&dir.path().join("cal.yaml")).unwrap();
     // 0.02 dB: the acceptance for a simulated calibrator tone.
     let err_db = 20.0 * (cal.microphone[&2].fs_per_pa / 0.04).log10();
@@ -90,12 +85,7 @@ fn mic_then_drive_make_a_complete_calibration() {
         .arg(dir.path().join("cal.yaml"))
         .output()
         .unwrap();
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    assert_exit(&out, 0);
     let cal = load_calibration(&dir.path().join("cal.yaml")).unwrap();
     // 1e-12 relative: arithmetic only.
     assert!((cal.drive[&1].volts_peak_per_fs / (2f64.sqrt() * 2.0) - 1.0).abs() < 1e-12);
@@ -178,12 +168,7 @@ fn drive_through_a_calibrated_input() {
         .arg(dir.path().join("cal.yaml"))
         .output()
         .unwrap();
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    assert_exit(&out, 0);
     let cal = load_calibration(&dir.path().join("cal.yaml")).unwrap();
     let g = cal.drive[&1].volts_peak_per_fs;
     // 0.02 dB, the same acceptance as a microphone reading (band-pass level of a sine).

@@ -69,12 +69,7 @@ fn shipped_plans_are_valid() {
         .arg(root().join("plans/loopback.yaml"))
         .output()
         .unwrap();
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stdout)
-    );
+    assert_exit(&out, 0);
 }
 
 // Bad arguments: exit 2 with a message that says what was expected.

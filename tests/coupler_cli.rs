@@ -13,12 +13,7 @@ fn coupler_json(model: &str, extra: &[&str]) -> serde_json::Value {
         .args(extra)
         .output()
         .unwrap();
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    assert_exit(&out, 0);
     serde_json::from_slice(&out.stdout).unwrap()
 }
 
@@ -130,12 +125,7 @@ fn svg_plot_is_well_formed() {
         .arg(&svg)
         .output()
         .unwrap();
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    assert_exit(&out, 0);
     let text = std::fs::read_to_string(&svg).unwrap();
     assert!(text.starts_with("<?xml") || text.starts_with("<svg"));
     let mut stack: Vec<String> = Vec::new();

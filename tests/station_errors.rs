@@ -250,12 +250,7 @@ fn validate_reports_station_problems_with_exit_2() {
         .arg(station_path("line3-st1.yaml"))
         .output()
         .unwrap();
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stdout)
-    );
+    assert_exit(&out, 0);
 }
 
 #[test]

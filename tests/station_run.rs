@@ -129,12 +129,7 @@ fn the_station_store_is_used_unless_store_is_given() {
         .arg(&station)
         .output()
         .unwrap();
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    assert_exit(&out, 0);
     // Relative to the station file, not to the working directory.
     assert!(dir.path().join("here/tragus.db").is_file());
     assert_eq!(records(&dir.path().join("here"))[0]["station"], "bench-9");

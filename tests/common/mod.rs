@@ -112,3 +112,16 @@ pub fn gaussian_noise(n: usize, rms: f64, seed: u64) -> Vec<f64> {
 pub fn rms(x: &[f32]) -> f64 {
     (x.iter().map(|&v| f64::from(v).powi(2)).sum::<f64>() / x.len().max(1) as f64).sqrt()
 }
+
+/// Assert that a finished `tragus` exited with `code`, showing its stderr and stdout when
+/// it did not (what the user would have read).
+#[track_caller]
+pub fn assert_exit(out: &std::process::Output, code: i32) {
+    assert_eq!(
+        out.status.code(),
+        Some(code),
+        "stderr: {}\nstdout: {}",
+        String::from_utf8_lossy(&out.stderr),
+        String::from_utf8_lossy(&out.stdout)
+    );
+}
