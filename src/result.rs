@@ -85,6 +85,9 @@ pub struct CalibrationInfo {
     pub sha256: Option<String>,
     /// The calibration's due date, `YYYY-MM-DD`, when one was applied.
     pub due_date: Option<String>,
+    /// The unit the plan's levels are written and judged in: `db_fs_per_fs` or
+    /// `db_spl_per_v` (the plan's `level_unit`).
+    pub level_unit: String,
 }
 
 impl CalibrationInfo {
@@ -94,6 +97,7 @@ impl CalibrationInfo {
             mode: "uncalibrated".into(),
             sha256: None,
             due_date: None,
+            level_unit: crate::plan::LevelUnit::DbFsPerFs.name().into(),
         }
     }
 }

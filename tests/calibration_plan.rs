@@ -3,7 +3,7 @@
 
 use std::path::Path;
 use tragus::plan::hash::canonical_json;
-use tragus::plan::{load_plan, load_plan_str, CheckKind, SensitivityUnit};
+use tragus::plan::{load_plan, load_plan_str, CheckKind, LevelUnit, SensitivityUnit};
 
 #[test]
 fn units_and_impedance_enter_the_hash_like_the_reference_says() {
@@ -57,6 +57,49 @@ fn bad_values_are_refused_with_their_position() {
     );
     assert!(
         e.contains("p.yaml:9:38: check s: unit: expected db, db_spl_per_v or db_spl_per_mw, found `dB_SPL`"),
+        "{e}"
+    );
+}
+
+#[test]
+fn level_unit_defaults_follow_the_checks_and_enter_the_hash_only_for_db_spl() {
+    let base = "plan: p\nrevision: 1\nsample_rate_hz: 48000\nstimulus: {start_hz: 20, stop_hz: 20000, duration_s: 1, level_dbfs: -18}\nchannels:\n  - {name: left, output: 1, input: 1}\nchecks:\n  - {id: s, kind: sensitivity, band_hz: [500, 2000], min_db: -10, max_db: 0}\n";
+    let load = |t: &str| load_plan_str(t, Path::new("p.yaml")).unwrap();
+    let absent = load(base);
+    assert_eq!(absent.level_unit, LevelUnit::DbFsPerFs);
+    // Written out, the default changes nothing (hash contract, src/plan/hash.rs).
+    let fs = load(&format!("level_unit: db_fs_per_fs\n{base}"));
+    assert_eq!(fs.sha256, absent.sha256);
+    let spl = load(&format!("level_unit: db_spl_per_v\n{base}"));
+    assert_eq!(spl.level_unit, LevelUnit::DbSplPerV);
+    assert_ne!(spl.sha256, absent.sha256);
+    assert!(canonical_json(&spl).contains(r#""level_unit":"db_spl_per_v""#));
+    // A check in dB SPL makes the plan's levels dB SPL/V by default.
+    let by_check = load(&base.replace(
+        "kind: sensitivity,",
+        "kind: sensitivity, unit: db_spl_per_v,",
+    ));
+    assert_eq!(by_check.level_unit, LevelUnit::DbSplPerV);
+}
+
+#[test]
+fn level_unit_problems_are_reported_at_their_position() {
+    let base = "plan: p\nrevision: 1\nsample_rate_hz: 48000\nstimulus: {start_hz: 20, stop_hz: 20000, duration_s: 1, level_dbfs: -18}\nchannels:\n  - {name: left, output: 1, input: 1}\nchecks:\n  - {id: s, kind: sensitivity, unit: db_spl_per_v, band_hz: [500, 2000], min_db: 90, max_db: 120}\n";
+    let e = load_plan_str(&format!("level_unit: dBSPL\n{base}"), Path::new("p.yaml"))
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("p.yaml:1:13: level_unit: expected db_fs_per_fs (uncalibrated digital transfer) or db_spl_per_v (calibrated), found `dBSPL`"),
+        "{e}"
+    );
+    let e = load_plan_str(
+        &format!("level_unit: db_fs_per_fs\n{base}"),
+        Path::new("p.yaml"),
+    )
+    .unwrap_err()
+    .to_string();
+    assert!(
+        e.contains("p.yaml:1:13: level_unit: expected db_spl_per_v, since check `s` is written in dB SPL; found db_fs_per_fs"),
         "{e}"
     );
 }

@@ -1,6 +1,7 @@
 //! `tragus run --calibration`: refusals (past due, missing channel, dB SPL plan without a
-//! calibration), `--non-production` in the record, and calibrated results in dB SPL/V and
-//! dB SPL/mW on the simulated rig.
+//! calibration, a calibration for a dB FS/FS plan, digital levels in production on a sound
+//! card), `--non-production` in the record, and calibrated results in dB SPL/V and dB SPL/mW
+//! on the simulated rig.
 
 mod common;
 
@@ -72,11 +73,13 @@ fn records(store: &Path) -> Vec<tragus::store::StoredRecord> {
 
 const DB_CHECK: &str =
     "  - {id: sens, kind: sensitivity, band_hz: [500, 2000], min_db: -200, max_db: 300}\n";
+/// The plan key that says its levels are dB SPL/V.
+const SPL: &str = "level_unit: db_spl_per_v\n";
 
 #[test]
 fn past_due_calibration_blocks_the_run_naming_the_due_date() {
     let dir = tempfile::tempdir().unwrap();
-    let plan = write(dir.path(), "p.yaml", &plan_text(DB_CHECK, ""));
+    let plan = write(dir.path(), "p.yaml", &plan_text(DB_CHECK, SPL));
     let cal = calibration_due(dir.path(), "2021-03-04");
     let store = dir.path().join("store");
     let (code, err, json) = run(&plan, &store, &["--calibration", cal.to_str().unwrap()]);
@@ -110,7 +113,7 @@ fn past_due_calibration_blocks_the_run_naming_the_due_date() {
 #[test]
 fn a_channel_the_calibration_lacks_blocks_the_run() {
     let dir = tempfile::tempdir().unwrap();
-    let text = plan_text(DB_CHECK, "").replace("output: 1, input: 1", "output: 3, input: 1");
+    let text = plan_text(DB_CHECK, SPL).replace("output: 1, input: 1", "output: 3, input: 1");
     let plan = write(dir.path(), "p.yaml", &text);
     let cal = calibration_due(dir.path(), "2999-12-31");
     let (code, err, _) = run(
@@ -133,9 +136,20 @@ fn a_plan_in_db_spl_needs_a_calibration() {
     let (code, err, _) = run(&plan, &dir.path().join("s"), &[]);
     assert_eq!(code, 2, "{err}");
     assert!(
-        err.contains("check `spl` is written in dB SPL, which needs a calibration"),
+        err.contains(
+            "plan `cal-test` writes its levels in dB SPL/V (check `spl`), which needs a calibration"
+        ),
         "{err}"
     );
+    // Written as a plan key, without any dB SPL check, the same.
+    let plan = write(dir.path(), "r.yaml", &plan_text(DB_CHECK, SPL));
+    let (code, err, _) = run(&plan, &dir.path().join("s"), &[]);
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains("plan `cal-test` writes its levels in dB SPL/V, which needs a calibration"),
+        "{err}"
+    );
+    assert!(records(&dir.path().join("s")).is_empty());
     // The plan key is validated: db_spl_per_mw without a nominal impedance.
     let check = "  - {id: mw, kind: sensitivity, unit: db_spl_per_mw, band_hz: [500, 2000], min_db: 80, max_db: 140}\n";
     let plan = write(dir.path(), "q.yaml", &plan_text(check, ""));
@@ -168,16 +182,19 @@ fn band_mean(json: &serde_json::Value, lo: f64, hi: f64) -> f64 {
 fn calibrated_response_is_the_digital_one_plus_the_analytic_offset() {
     let dir = tempfile::tempdir().unwrap();
     let plan = write(dir.path(), "p.yaml", &plan_text(DB_CHECK, ""));
+    let plan_spl = write(dir.path(), "p-spl.yaml", &plan_text(DB_CHECK, SPL));
     let cal = calibration_due(dir.path(), "2999-12-31");
     let store = dir.path().join("store");
     let (_, err, digital) = run(&plan, &store, &[]);
     let digital = digital.unwrap_or_else(|| panic!("{err}"));
     assert_eq!(digital["channels"][0]["unit"], "dB FS/FS");
     assert_eq!(digital["calibration"]["mode"], "uncalibrated");
-    let (_, err, spl) = run(&plan, &store, &["--calibration", cal.to_str().unwrap()]);
+    assert_eq!(digital["calibration"]["level_unit"], "db_fs_per_fs");
+    let (_, err, spl) = run(&plan_spl, &store, &["--calibration", cal.to_str().unwrap()]);
     let spl = spl.unwrap_or_else(|| panic!("{err}"));
     assert_eq!(spl["channels"][0]["unit"], "dB SPL/V");
     assert_eq!(spl["calibration"]["mode"], "production");
+    assert_eq!(spl["calibration"]["level_unit"], "db_spl_per_v");
     // Example file, channel 1: 0.05 FS/Pa, 2 V/FS → offset −20lg 0.05 − 20lg 2 − 20lg 20 µPa
     // = 26.0206 − 6.0206 + 93.9794 = 113.9794 dB, written out here independently.
     let offset = 26.020599913279625 - 6.020599913279624 + 93.97940008672037;
@@ -209,7 +226,7 @@ fn sensitivity_in_db_spl_per_v_and_per_mw_at_32_ohm() {
     let cal = calibration_due(dir.path(), "2999-12-31");
     let store = dir.path().join("store");
     // First the calibrated mean over 500–2000 Hz, read from the response itself.
-    let plan0 = write(dir.path(), "p0.yaml", &plan_text(DB_CHECK, ""));
+    let plan0 = write(dir.path(), "p0.yaml", &plan_text(DB_CHECK, SPL));
     let (_, err, j) = run(&plan0, &store, &["--calibration", cal.to_str().unwrap()]);
     let level_v = band_mean(&j.unwrap_or_else(|| panic!("{err}")), 500.0, 2000.0);
     // Per mW into 32 Ω: L(1 mW) = L(1 V) + 10·lg(32/1000) (−14.949 dB), written out here.
@@ -243,4 +260,60 @@ fn sensitivity_in_db_spl_per_v_and_per_mw_at_32_ohm() {
     // the JSON's decimal round trip of the limits.
     assert!((margin("v") - 1.0).abs() < 1e-6, "{}", margin("v"));
     assert!((margin("mw") - 0.5).abs() < 1e-6, "{}", margin("mw"));
+}
+
+#[test]
+fn a_calibration_never_applies_to_a_plan_in_db_fs_per_fs() {
+    // Judging dB FS/FS limits against dB SPL/V numbers would fail (or pass) every unit by
+    // some 100 dB: the explicit combination is refused before anything plays.
+    let dir = tempfile::tempdir().unwrap();
+    let plan = write(dir.path(), "p.yaml", &plan_text(DB_CHECK, ""));
+    let cal = calibration_due(dir.path(), "2999-12-31");
+    let store = dir.path().join("store");
+    let (code, err, json) = run(&plan, &store, &["--calibration", cal.to_str().unwrap()]);
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains("plan `cal-test` writes its levels in dB FS/FS (level_unit: db_fs_per_fs), so a calibration would not apply to it"),
+        "{err}"
+    );
+    assert!(json.is_none());
+    assert!(records(&store).is_empty());
+
+    // A station that names a calibration runs such a plan (engineering work: loopback,
+    // bring-up) without applying it, and the record says dB FS/FS and no calibration.
+    let station = write(
+        dir.path(),
+        "st.yaml",
+        &format!(
+            "station: bench-9\nmode: engineering\nrig: simulated\ncalibration: {}\n",
+            cal.display()
+        ),
+    );
+    let (code, err, json) = run(&plan, &store, &["--station", station.to_str().unwrap()]);
+    assert!(code == 0 || code == 1, "{err}");
+    let json = json.unwrap();
+    assert_eq!(json["channels"][0]["unit"], "dB FS/FS");
+    assert_eq!(json["calibration"]["mode"], "non-production");
+    assert_eq!(json["calibration"]["sha256"], serde_json::Value::Null);
+    assert_eq!(json["calibration"]["level_unit"], "db_fs_per_fs");
+}
+
+#[test]
+fn digital_levels_are_refused_in_production_on_a_sound_card() {
+    // Levels in dB FS/FS hold only for the gains of the bench they were measured on
+    // (common practice: production limits are written in calibrated units), so a
+    // production sound-card station refuses the plan before any device is opened; this
+    // holds in builds with and without the sound-card backend.
+    let dir = tempfile::tempdir().unwrap();
+    let plan = write(dir.path(), "p.yaml", &plan_text(DB_CHECK, ""));
+    let store = dir.path().join("store");
+    let (code, err, json) = run(&plan, &store, &["--rig", "soundcard"]);
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains("plan `cal-test` writes its levels in dB FS/FS (level_unit: db_fs_per_fs), which hold only for the gains of the bench")
+            && err.contains("use --non-production"),
+        "{err}"
+    );
+    assert!(json.is_none());
+    assert!(records(&store).is_empty());
 }

@@ -96,17 +96,6 @@ impl Bench {
     /// Load the plan on the station and decide rig, store, station id and operator.
     pub fn new(o: BenchOptions) -> Result<Bench, Exit> {
         let mut prep = pipeline::prepare_on(o.plan, o.station, o.fixture)?;
-        let calibration = o
-            .calibration
-            .or_else(|| o.station.and_then(|s| s.calibration.as_deref()));
-        let non_production =
-            o.non_production || o.station.is_some_and(|s| s.mode == Mode::Engineering);
-        use_calibration(
-            &mut prep,
-            calibration,
-            non_production,
-            crate::calibration::Calibration::today_utc(),
-        )?;
         let rig = o.rig.unwrap_or(match o.station.map(|s| s.rig) {
             Some(StationRig::Simulated) => RigChoice::Simulated,
             Some(StationRig::Soundcard) => RigChoice::Soundcard,
@@ -115,6 +104,23 @@ impl Bench {
                 RigSpec::Soundcard => RigChoice::Soundcard,
             },
         });
+        let calibration = match (
+            o.calibration,
+            o.station.and_then(|s| s.calibration.as_deref()),
+        ) {
+            (Some(p), _) => CalibrationSource::Option(p),
+            (None, Some(p)) => CalibrationSource::Station(p),
+            (None, None) => CalibrationSource::None,
+        };
+        let non_production =
+            o.non_production || o.station.is_some_and(|s| s.mode == Mode::Engineering);
+        use_calibration(
+            &mut prep,
+            calibration,
+            non_production,
+            rig,
+            crate::calibration::Calibration::today_utc(),
+        )?;
         // Refused before anything is tested, rather than at the first unit.
         #[cfg(not(feature = "soundcard"))]
         if rig == RigChoice::Soundcard {
@@ -294,29 +300,73 @@ impl Bench {
     }
 }
 
-/// Load the calibration (if any), refuse what production may not use, and set the per-channel
-/// dB SPL/V offsets and the mode that goes into the record. Refusals are bad input (exit 2):
-/// no unit is tested on a station that is not fit to test it.
+/// Where the calibration for a run comes from.
+#[derive(Debug, Clone, Copy)]
+pub(crate) enum CalibrationSource<'a> {
+    /// None named.
+    None,
+    /// `--calibration FILE` (the user asked for it explicitly).
+    Option(&'a Path),
+    /// The station file's `calibration:`.
+    Station(&'a Path),
+}
+
+/// Decide, from the plan's level unit, the rig, the mode and the calibration, whether this
+/// bench may test units with this plan; then load the calibration it needs and set the
+/// per-channel dB SPL/V offsets and the calibration facts that go into every record.
+///
+/// The rules (README, "Levels and calibration"):
+/// - a plan in dB SPL/V needs a calibration in date covering its channels (a past-due one
+///   only with `--non-production`);
+/// - a plan in dB FS/FS is judged in dB FS/FS: a calibration is never applied to it (an
+///   explicit `--calibration` is refused, a station's is left aside); on the sound card it
+///   runs only outside production, because digital levels hold only for the gains of the
+///   bench they were measured on.
+///
+/// Refusals are bad input (exit 2): no unit is tested on a station that is not fit to test
+/// it.
 pub(crate) fn use_calibration(
     prep: &mut pipeline::Prepared,
-    path: Option<&std::path::Path>,
+    source: CalibrationSource,
     non_production: bool,
+    rig: RigChoice,
     today: time::Date,
 ) -> Result<(), Exit> {
     use crate::calibration::{load_calibration, CalibrationError};
+    use crate::plan::LevelUnit;
     use crate::result::CalibrationInfo;
-    let needs = pipeline::plan_needs_calibration(&prep.plan);
+    let plan = &prep.plan;
+    let level_unit = plan.level_unit;
     let mode = if non_production {
         "non-production"
     } else {
         "production"
     };
-    let Some(path) = path else {
-        if let Some(check) = needs {
+    if level_unit == LevelUnit::DbFsPerFs {
+        if let CalibrationSource::Option(path) = source {
             return Err(Exit::bad_input(anyhow::anyhow!(
-                "check `{check}` is written in dB SPL, which needs a calibration: give \
-                 --calibration CAL.yaml (made with `tragus calibrate`)"
+                "--calibration {}: plan `{}` writes its levels in dB FS/FS (level_unit: \
+                 db_fs_per_fs), so a calibration would not apply to it; drop --calibration, or \
+                 write the plan's absolute limits in dB SPL/V (level_unit: db_spl_per_v)",
+                path.display(),
+                plan.id
             )));
+        }
+        if rig == RigChoice::Soundcard && !non_production {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "plan `{}` writes its levels in dB FS/FS (level_unit: db_fs_per_fs), which \
+                 hold only for the gains of the bench they were measured on: production on a \
+                 sound card needs a plan in dB SPL/V (level_unit: db_spl_per_v) and a \
+                 calibration; use --non-production (or a station in `mode: engineering`) for \
+                 engineering measurements; no unit was tested",
+                plan.id
+            )));
+        }
+        if let CalibrationSource::Station(path) = source {
+            tracing::info!(
+                calibration = %path.display(),
+                "the plan's levels are dB FS/FS: the station's calibration is not applied"
+            );
         }
         prep.calibration = CalibrationInfo {
             mode: if non_production {
@@ -326,8 +376,25 @@ pub(crate) fn use_calibration(
             },
             sha256: None,
             due_date: None,
+            level_unit: level_unit.name().into(),
         };
+        prep.calibration_offsets_db = None;
         return Ok(());
+    }
+
+    let path = match source {
+        CalibrationSource::Option(p) | CalibrationSource::Station(p) => p,
+        CalibrationSource::None => {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "plan `{}` writes its levels in dB SPL/V{}, which needs a calibration: give \
+                 --calibration CAL.yaml (made with `tragus calibrate`) or name it in the \
+                 station file; no unit was tested",
+                plan.id,
+                pipeline::plan_needs_calibration(plan)
+                    .map(|c| format!(" (check `{c}`)"))
+                    .unwrap_or_default()
+            )))
+        }
     };
     let cal = load_calibration(path).map_err(|e| match e {
         CalibrationError::Invalid(problems) => Exit::problems("calibration", &problems),
@@ -341,37 +408,24 @@ pub(crate) fn use_calibration(
         }
         tracing::warn!("{e}; testing anyway: --non-production");
     }
-    let offsets: Result<Vec<f64>, CalibrationError> = prep
-        .plan
+    let offsets = plan
         .channels
         .iter()
         .map(|c| cal.offset_db(&c.name, c.output, c.input))
-        .collect();
-    let offsets = match offsets {
-        Ok(o) => Some(o),
-        Err(e) if non_production && needs.is_none() => {
-            tracing::warn!("{e}; testing uncalibrated: --non-production");
-            None
-        }
-        Err(e) => {
-            return Err(Exit::bad_input(anyhow::anyhow!(
-                "{e}; no unit was tested{}",
-                if non_production {
-                    " (the plan's dB SPL checks cannot be judged without it)"
-                } else {
-                    ""
-                }
-            )))
-        }
-    };
+        .collect::<Result<Vec<f64>, CalibrationError>>()
+        .map_err(|e| {
+            Exit::bad_input(anyhow::anyhow!(
+                "{e}; no unit was tested (the plan's levels are dB SPL/V, which cannot be \
+                 judged without it)"
+            ))
+        })?;
     prep.calibration = CalibrationInfo {
         mode: mode.into(),
-        sha256: offsets.as_ref().map(|_| cal.sha256()),
-        due_date: offsets
-            .as_ref()
-            .map(|_| crate::calibration::format_date(cal.due_date)),
+        sha256: Some(cal.sha256()),
+        due_date: Some(crate::calibration::format_date(cal.due_date)),
+        level_unit: level_unit.name().into(),
     };
-    prep.calibration_offsets_db = offsets;
+    prep.calibration_offsets_db = Some(offsets);
     Ok(())
 }
 

@@ -50,7 +50,10 @@
 //! where `"band"` is `{"high_hz":R,"low_hz":R}`.
 //!
 //! The top-level `"nominal_impedance_ohm":R` is present only when the plan declares it (so
-//! plans without it keep the hash they had before it existed).
+//! plans without it keep the hash they had before it existed). The top-level
+//! `"level_unit":"db_spl_per_v"` is present only when the plan's levels are dB SPL/V (written
+//! so, or by default because a sensitivity check is in dB SPL); a plan in dB FS/FS has no such
+//! key.
 //!
 //! A channel's `"correction"` key is present only when the channel is corrected (the
 //! plan-wide `correction:` applied, or its own; absent for `correction: none`), so that a
@@ -73,7 +76,8 @@
 //! form; a change to it gets a new name.
 
 use super::{
-    Band, CheckKind, CorrectionSpec, LimitLine, Normalize, Plan, Polarity, RigSpec, SensitivityUnit,
+    Band, CheckKind, CorrectionSpec, LevelUnit, LimitLine, Normalize, Plan, Polarity, RigSpec,
+    SensitivityUnit,
 };
 use crate::acoustics::earphone_file;
 use crate::acoustics::model::CouplerModel;
@@ -219,6 +223,7 @@ fn to_canonical(plan: &Plan) -> C {
         rig,
         checks,
         nominal_impedance_ohm,
+        level_unit,
     } = plan;
     let st = stimulus;
     let stimulus = obj([
@@ -359,6 +364,11 @@ fn to_canonical(plan: &Plan) -> C {
     // Only when declared, so plans without it keep their hash.
     if let Some(r) = nominal_impedance_ohm {
         top.insert("nominal_impedance_ohm", real(*r));
+    }
+    // Only for calibrated levels: digital-level plans keep the hash they had before
+    // `level_unit` existed.
+    if *level_unit == LevelUnit::DbSplPerV {
+        top.insert("level_unit", s(level_unit.name()));
     }
     C::Obj(top)
 }

@@ -55,6 +55,44 @@ pub struct Plan {
     /// The earphone's declared nominal impedance, Ω (`nominal_impedance_ohm:`), for
     /// sensitivity checks written in dB SPL/mW.
     pub nominal_impedance_ohm: Option<f64>,
+    /// The unit the plan's absolute levels (response limit lines, `db` sensitivity limits)
+    /// are written in (`level_unit:`), which decides whether a run needs a calibration.
+    pub level_unit: LevelUnit,
+}
+
+/// The unit of a plan's absolute levels (`level_unit:` at the top of the plan).
+///
+/// Absolute limits only mean something in one unit: the same unit measured on a calibrated
+/// bench reads some 100 dB higher in dB SPL/V than in dB FS/FS, so a plan says which one it
+/// was written in and a run judges it only in that unit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum LevelUnit {
+    /// `db_fs_per_fs`: the digital transfer, capture full scale per stimulus full scale.
+    /// Holds only for the bench it was measured on (its gains), so production on a sound
+    /// card refuses it; the simulated rig, loopback and engineering work use it. The default
+    /// when the plan has no dB SPL check.
+    DbFsPerFs,
+    /// `db_spl_per_v`: sound pressure in the coupler per drive voltage; the run needs a
+    /// calibration. The default when a sensitivity check is written in dB SPL.
+    DbSplPerV,
+}
+
+impl LevelUnit {
+    /// The name as written in the plan.
+    pub fn name(self) -> &'static str {
+        match self {
+            LevelUnit::DbFsPerFs => "db_fs_per_fs",
+            LevelUnit::DbSplPerV => "db_spl_per_v",
+        }
+    }
+
+    /// How reports write it.
+    pub fn label(self) -> &'static str {
+        match self {
+            LevelUnit::DbFsPerFs => "dB FS/FS",
+            LevelUnit::DbSplPerV => "dB SPL/V",
+        }
+    }
 }
 
 impl Plan {

@@ -138,6 +138,8 @@ pub struct RawTop {
     pub sample_rate_hz: Option<Spanned<i128>>,
     /// Declared nominal impedance of the earphone, Ω.
     pub nominal_impedance_ohm: Option<Spanned<f64>>,
+    /// Unit of the plan's absolute levels: `db_fs_per_fs` or `db_spl_per_v`.
+    pub level_unit: Option<Spanned<String>>,
     /// Decoded on its own into [`RawPlan::stimulus`]; listed so the key is known.
     pub stimulus: Option<IgnoredAny>,
     /// Decoded on its own into [`RawPlan::analysis`].

@@ -28,9 +28,9 @@ use super::raw::{
     RawList, RawPair, RawPlan, RawSource, Section,
 };
 use super::{
-    AnalysisSpec, Band, ChannelSpec, CheckKind, CheckSpec, CorrectionSpec, LimitLine, Location,
-    Normalize, Plan, PlanError, Polarity, Problem, RigSpec, SensitivityUnit, StimulusSpec,
-    DEFAULT_MAX_HARMONIC, DEFAULT_MIN_SNR_DB, DEFAULT_POINTS_PER_OCTAVE,
+    AnalysisSpec, Band, ChannelSpec, CheckKind, CheckSpec, CorrectionSpec, LevelUnit, LimitLine,
+    Location, Normalize, Plan, PlanError, Polarity, Problem, RigSpec, SensitivityUnit,
+    StimulusSpec, DEFAULT_MAX_HARMONIC, DEFAULT_MIN_SNR_DB, DEFAULT_POINTS_PER_OCTAVE,
 };
 use crate::acoustics::earphone_file::{load_earphone_str, EarphoneFileError};
 use crate::acoustics::model::{load_model_str, CouplerModel, ModelError};
@@ -315,6 +315,53 @@ impl Validator {
         }
     }
 
+    /// `level_unit:`, or the default: dB SPL/V when a check is written in dB SPL, else dB
+    /// FS/FS. A plan that declares digital levels cannot also hold a dB SPL check.
+    fn level_unit(
+        &mut self,
+        v: Option<&Spanned<String>>,
+        checks: Option<&[CheckSpec]>,
+    ) -> Option<LevelUnit> {
+        let spl_check = checks
+            .unwrap_or_default()
+            .iter()
+            .find(|c| c.kind.needs_calibration());
+        let Some(v) = v else {
+            return Some(if spl_check.is_some() {
+                LevelUnit::DbSplPerV
+            } else {
+                LevelUnit::DbFsPerFs
+            });
+        };
+        let unit = match v.as_str() {
+            "db_fs_per_fs" => LevelUnit::DbFsPerFs,
+            "db_spl_per_v" => LevelUnit::DbSplPerV,
+            other => {
+                self.report(
+                    Pos::of_value(v),
+                    format!(
+                        "level_unit: expected db_fs_per_fs (uncalibrated digital transfer) or \
+                         db_spl_per_v (calibrated), found {}",
+                        raw::found_scalar(other)
+                    ),
+                );
+                return None;
+            }
+        };
+        if let (LevelUnit::DbFsPerFs, Some(c)) = (unit, spl_check) {
+            self.report(
+                Pos::of_value(v),
+                format!(
+                    "level_unit: expected db_spl_per_v, since check `{}` is written in dB SPL; \
+                     found db_fs_per_fs",
+                    c.id
+                ),
+            );
+            return None;
+        }
+        Some(unit)
+    }
+
     fn plan(&mut self, raw: &RawPlan, source: &Path) -> Option<Plan> {
         let top = &raw.top;
         let t = &top.value;
@@ -429,6 +476,8 @@ impl Validator {
             )
         });
 
+        let level_unit = self.level_unit(t.level_unit.as_ref(), checks.as_deref());
+
         corrections?;
         let mut plan = Plan {
             id: id?,
@@ -443,6 +492,7 @@ impl Validator {
             rig: rig?,
             checks: checks?,
             nominal_impedance_ohm: nominal_impedance_ohm?,
+            level_unit: level_unit?,
         };
         plan.sha256 = super::hash::plan_sha256(&plan);
         Some(plan)

@@ -49,6 +49,7 @@ pub fn plan(channels: &[&str], checks: Vec<CheckSpec>) -> Plan {
         rig: RigSpec::Simulated { seed: 7 },
         checks,
         nominal_impedance_ohm: None,
+        level_unit: tragus::plan::LevelUnit::DbFsPerFs,
     }
 }
 

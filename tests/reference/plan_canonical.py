@@ -343,6 +343,14 @@ def canonical(path):
     # Present only when the plan declares it (hash contract).
     if "nominal_impedance_ohm" in plan:
         doc["nominal_impedance_ohm"] = real(plan["nominal_impedance_ohm"])
+    # Present only for calibrated levels: written so, or by default when a sensitivity
+    # check is in dB SPL (hash contract).
+    spl_check = any(
+        c.get("kind") == "sensitivity" and c.get("unit", "db") in ("db_spl_per_v", "db_spl_per_mw")
+        for c in plan["checks"]
+    )
+    if plan.get("level_unit", "db_spl_per_v" if spl_check else "db_fs_per_fs") == "db_spl_per_v":
+        doc["level_unit"] = "db_spl_per_v"
     return dump(doc)
 
 
