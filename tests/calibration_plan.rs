@@ -16,6 +16,12 @@ fn units_and_impedance_enter_the_hash_like_the_reference_says() {
     assert_eq!(canonical_json(&plan), json);
     assert_eq!(plan.sha256, sha);
     assert_eq!(plan.nominal_impedance_ohm, Some(32.0));
+    // Declared 92.5 dB SPL/mW at 32 Ω: per volt L(1 V) = L(1 mW) − 10·lg(32/1000)
+    // = 92.5 + 14.9485 dB (1 V into 32 Ω is 31.25 mW), written out independently here.
+    let product = plan.product.unwrap();
+    let per_v = 92.5 + 10.0 * (1000.0f64 / 32.0).log10();
+    assert!((product.sensitivity_db_spl_per_v - per_v).abs() < 1e-12);
+    assert!((product.worst_case_db_spl_per_v() - (per_v + 3.0 + 9.5)).abs() < 1e-12);
     let units: Vec<SensitivityUnit> = plan
         .checks
         .iter()
@@ -100,6 +106,36 @@ fn level_unit_problems_are_reported_at_their_position() {
     .to_string();
     assert!(
         e.contains("p.yaml:1:13: level_unit: expected db_spl_per_v, since check `s` is written in dB SPL; found db_fs_per_fs"),
+        "{e}"
+    );
+}
+
+#[test]
+fn product_problems_are_reported_at_their_position() {
+    let base = "plan: p\nrevision: 1\nsample_rate_hz: 48000\nstimulus: {start_hz: 20, stop_hz: 20000, duration_s: 1, level_dbfs: -18}\nchannels:\n  - {name: left, output: 1, input: 1}\nchecks:\n  - {id: s, kind: sensitivity, band_hz: [500, 2000], min_db: -10, max_db: 0}\n";
+    let e = load_plan_str(
+        &format!("{base}product: {{sensitivity_db: 100, sensitivity_unit: db_spl_per_mw, tolerance_db: 3, response_peak_db: 8}}\n"),
+        Path::new("p.yaml"),
+    )
+    .unwrap_err()
+    .to_string();
+    assert!(
+        e.contains("p.yaml:9:50: product.sensitivity_unit: db_spl_per_mw needs the plan's `nominal_impedance_ohm`"),
+        "{e}"
+    );
+    let e = load_plan_str(
+        &format!("{base}product: {{sensitivity_db: 100, sensitivity_unit: db_spl_per_v, tolerance_db: -3}}\n"),
+        Path::new("p.yaml"),
+    )
+    .unwrap_err()
+    .to_string();
+    assert!(e.contains("p.yaml:9:1"), "{e}");
+    assert!(
+        e.contains("product: missing required key `response_peak_db`"),
+        "{e}"
+    );
+    assert!(
+        e.contains("product.tolerance_db: expected 0 to 20 dB, found -3"),
         "{e}"
     );
 }

@@ -62,6 +62,7 @@ fn loopback_plan_is_the_station_self_test() {
         rig: RigSpec::Simulated { seed: 1 },
         nominal_impedance_ohm: None,
         level_unit: tragus::plan::LevelUnit::DbFsPerFs,
+        product: None,
         checks: vec![
             check(
                 "flat",
@@ -132,6 +133,7 @@ fn reference_plan_loads_every_kind() {
         rig: RigSpec::Simulated { seed: u64::MAX },
         nominal_impedance_ohm: None,
         level_unit: tragus::plan::LevelUnit::DbFsPerFs,
+        product: None,
         checks: vec![
             check(
                 "fr",

@@ -53,7 +53,9 @@
 //! plans without it keep the hash they had before it existed). The top-level
 //! `"level_unit":"db_spl_per_v"` is present only when the plan's levels are dB SPL/V (written
 //! so, or by default because a sensitivity check is in dB SPL); a plan in dB FS/FS has no such
-//! key.
+//! key. The top-level `"product"` is present only when the plan declares one:
+//! `{"response_peak_db":R,"sensitivity_db":R,"sensitivity_unit":S,"tolerance_db":R}` (the
+//! values as written, not converted).
 //!
 //! A channel's `"correction"` key is present only when the channel is corrected (the
 //! plan-wide `correction:` applied, or its own; absent for `correction: none`), so that a
@@ -224,6 +226,7 @@ fn to_canonical(plan: &Plan) -> C {
         checks,
         nominal_impedance_ohm,
         level_unit,
+        product,
     } = plan;
     let st = stimulus;
     let stimulus = obj([
@@ -369,6 +372,18 @@ fn to_canonical(plan: &Plan) -> C {
     // `level_unit` existed.
     if *level_unit == LevelUnit::DbSplPerV {
         top.insert("level_unit", s(level_unit.name()));
+    }
+    // Only when declared (safety checks use it, so a change of it is a change of the plan).
+    if let Some(p) = product {
+        top.insert(
+            "product",
+            obj([
+                ("response_peak_db", real(p.response_peak_db)),
+                ("sensitivity_db", real(p.sensitivity_db)),
+                ("sensitivity_unit", s(p.sensitivity_unit.name())),
+                ("tolerance_db", real(p.tolerance_db)),
+            ]),
+        );
     }
     C::Obj(top)
 }

@@ -58,6 +58,33 @@ pub struct Plan {
     /// The unit the plan's absolute levels (response limit lines, `db` sensitivity limits)
     /// are written in (`level_unit:`), which decides whether a run needs a calibration.
     pub level_unit: LevelUnit,
+    /// What the product's specification declares (`product:`), used by the hearing-safety
+    /// checks to bound the sound level before anything plays.
+    pub product: Option<ProductSpec>,
+}
+
+/// The product's declared acoustic output (`product:`), in the reference coupler.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ProductSpec {
+    /// Declared nominal sensitivity, in `sensitivity_unit`.
+    pub sensitivity_db: f64,
+    /// `db_spl_per_v` or `db_spl_per_mw` (never `db`).
+    pub sensitivity_unit: SensitivityUnit,
+    /// Declared tolerance, ± dB.
+    pub tolerance_db: f64,
+    /// Highest response above the sensitivity anywhere in the sweep band, dB.
+    pub response_peak_db: f64,
+    /// The sensitivity in dB SPL/V (converted with the plan's `nominal_impedance_ohm` when
+    /// declared per mW: `L(1 V) = L(1 mW) − 10·lg(R / 1000 Ω)`).
+    pub sensitivity_db_spl_per_v: f64,
+}
+
+impl ProductSpec {
+    /// The highest sensitivity a unit within its declaration can have at any frequency of
+    /// the band, dB SPL/V: nominal + tolerance + response peak.
+    pub fn worst_case_db_spl_per_v(&self) -> f64 {
+        self.sensitivity_db_spl_per_v + self.tolerance_db + self.response_peak_db
+    }
 }
 
 /// The unit of a plan's absolute levels (`level_unit:` at the top of the plan).

@@ -112,6 +112,8 @@ pub struct RawPlan {
     pub channels: Option<RawList<RawChannel>>,
     /// `rig:` section.
     pub rig: Option<Section<RawRig>>,
+    /// `product:` section (declared sensitivity, for the hearing-safety checks).
+    pub product: Option<Section<RawProduct>>,
     /// `checks:` list.
     pub checks: Option<RawList<RawCheck>>,
     /// Top-level `correction:` (applies to every channel that does not say otherwise).
@@ -148,6 +150,8 @@ pub struct RawTop {
     pub channels: Option<IgnoredAny>,
     /// Decoded on its own into [`RawPlan::rig`].
     pub rig: Option<IgnoredAny>,
+    /// Decoded on its own into [`RawPlan::product`].
+    pub product: Option<IgnoredAny>,
     /// Decoded on its own into [`RawPlan::checks`].
     pub checks: Option<IgnoredAny>,
     /// Decoded on its own into [`RawPlan::correction`].
@@ -271,6 +275,20 @@ impl<'de> Deserialize<'de> for RawSource {
         }
         d.deserialize_any(V)
     }
+}
+
+/// `product:` keys: what the product's specification declares, in the reference coupler.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields, expecting = "a mapping")]
+pub struct RawProduct {
+    /// Declared nominal sensitivity.
+    pub sensitivity_db: Option<Spanned<f64>>,
+    /// Its unit: `db_spl_per_v` or `db_spl_per_mw`.
+    pub sensitivity_unit: Option<Spanned<String>>,
+    /// Declared tolerance of the sensitivity, ± dB.
+    pub tolerance_db: Option<Spanned<f64>>,
+    /// Highest response above the sensitivity anywhere in the sweep band, dB.
+    pub response_peak_db: Option<Spanned<f64>>,
 }
 
 /// `rig:` keys.
@@ -523,6 +541,7 @@ impl Decoder<'_> {
         let stimulus = self.sub_section(top_map, "stimulus", &mut top);
         let analysis = self.sub_section(top_map, "analysis", &mut top);
         let rig = self.sub_section(top_map, "rig", &mut top);
+        let product = self.sub_section(top_map, "product", &mut top);
         let channels = self.list(top_map, "channels", "channel", &mut top);
         let checks = self.list(top_map, "checks", "check", &mut top);
         let correction = top_map
@@ -546,6 +565,7 @@ impl Decoder<'_> {
             analysis,
             channels,
             rig,
+            product,
             checks,
             correction,
             channel_corrections,

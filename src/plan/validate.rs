@@ -29,7 +29,7 @@ use super::raw::{
 };
 use super::{
     AnalysisSpec, Band, ChannelSpec, CheckKind, CheckSpec, CorrectionSpec, LevelUnit, LimitLine,
-    Location, Normalize, Plan, PlanError, Polarity, Problem, RigSpec, SensitivityUnit,
+    Location, Normalize, Plan, PlanError, Polarity, Problem, ProductSpec, RigSpec, SensitivityUnit,
     StimulusSpec, DEFAULT_MAX_HARMONIC, DEFAULT_MIN_SNR_DB, DEFAULT_POINTS_PER_OCTAVE,
 };
 use crate::acoustics::earphone_file::{load_earphone_str, EarphoneFileError};
@@ -315,6 +315,62 @@ impl Validator {
         }
     }
 
+    /// `product:`: the declared sensitivity (per V, or per mW with the plan's nominal
+    /// impedance), its tolerance and the response peak above it.
+    fn product(&mut self, sec: &Section<raw::RawProduct>) -> Option<ProductSpec> {
+        let p = &sec.value;
+        let value = self
+            .required(sec, &p.sensitivity_db, "product", "sensitivity_db")
+            .and_then(|v| self.in_range(v, "product.sensitivity_db", 40.0, 200.0, " dB"));
+        let unit = self
+            .required(sec, &p.sensitivity_unit, "product", "sensitivity_unit")
+            .and_then(|u| match u.as_str() {
+                "db_spl_per_v" => Some((SensitivityUnit::DbSplPerV, u)),
+                "db_spl_per_mw" => Some((SensitivityUnit::DbSplPerMw, u)),
+                other => {
+                    self.report(
+                        Pos::of_value(u),
+                        format!(
+                            "product.sensitivity_unit: expected db_spl_per_v or db_spl_per_mw, \
+                             found {}",
+                            raw::found_scalar(other)
+                        ),
+                    );
+                    None
+                }
+            });
+        let tolerance_db = self
+            .required(sec, &p.tolerance_db, "product", "tolerance_db")
+            .and_then(|v| self.in_range(v, "product.tolerance_db", 0.0, 20.0, " dB"));
+        let response_peak_db = self
+            .required(sec, &p.response_peak_db, "product", "response_peak_db")
+            .and_then(|v| self.in_range(v, "product.response_peak_db", 0.0, 40.0, " dB"));
+        let (unit, unit_pos) = unit?;
+        let value = value?;
+        let per_v = match unit {
+            SensitivityUnit::DbSplPerMw => match self.nominal_impedance_ohm {
+                Some(r) => value - 10.0 * (r / 1000.0).log10(),
+                None => {
+                    self.report(
+                        Pos::of_value(unit_pos),
+                        "product.sensitivity_unit: db_spl_per_mw needs the plan's \
+                         `nominal_impedance_ohm` (the earphone's declared impedance), found none"
+                            .into(),
+                    );
+                    return None;
+                }
+            },
+            _ => value,
+        };
+        Some(ProductSpec {
+            sensitivity_db: value,
+            sensitivity_unit: unit,
+            tolerance_db: tolerance_db?,
+            response_peak_db: response_peak_db?,
+            sensitivity_db_spl_per_v: per_v,
+        })
+    }
+
     /// `level_unit:`, or the default: dB SPL/V when a check is written in dB SPL, else dB
     /// FS/FS. A plan that declares digital levels cannot also hold a dB SPL check.
     fn level_unit(
@@ -477,6 +533,10 @@ impl Validator {
         });
 
         let level_unit = self.level_unit(t.level_unit.as_ref(), checks.as_deref());
+        let product = match &raw.product {
+            None => Some(None),
+            Some(p) => self.product(p).map(Some),
+        };
 
         corrections?;
         let mut plan = Plan {
@@ -493,6 +553,7 @@ impl Validator {
             checks: checks?,
             nominal_impedance_ohm: nominal_impedance_ohm?,
             level_unit: level_unit?,
+            product: product?,
         };
         plan.sha256 = super::hash::plan_sha256(&plan);
         Some(plan)

@@ -50,6 +50,7 @@ pub fn plan(channels: &[&str], checks: Vec<CheckSpec>) -> Plan {
         checks,
         nominal_impedance_ohm: None,
         level_unit: tragus::plan::LevelUnit::DbFsPerFs,
+        product: None,
     }
 }
 

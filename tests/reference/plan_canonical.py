@@ -351,6 +351,15 @@ def canonical(path):
     )
     if plan.get("level_unit", "db_spl_per_v" if spl_check else "db_fs_per_fs") == "db_spl_per_v":
         doc["level_unit"] = "db_spl_per_v"
+    # Present only when declared, with the values as written (hash contract).
+    if "product" in plan:
+        pr = plan["product"]
+        doc["product"] = {
+            "response_peak_db": real(pr["response_peak_db"]),
+            "sensitivity_db": real(pr["sensitivity_db"]),
+            "sensitivity_unit": pr["sensitivity_unit"],
+            "tolerance_db": real(pr["tolerance_db"]),
+        }
     return dump(doc)
 
 
