@@ -127,7 +127,7 @@ caps:
         at(text, "max_spl_mic:"),
         &[
             "caps: unknown key `max_spl_mic`",
-            "did you mean `max_spl_mic_db`?",
+            "did you mean `max_spl_mic_dba`?",
         ],
     );
     // The loopback input 1 is also channel left's input: the loopback would be recorded

@@ -34,12 +34,13 @@ const AUDIO_KEYS: [&str; 6] = [
     "loopback",
     "max_clock_drift_ppm",
 ];
-const CAPS_KEYS: [&str; 6] = [
+const CAPS_KEYS: [&str; 7] = [
     "max_drive_v_rms",
     "max_drive_v_peak",
     "max_digital_dbfs",
-    "max_spl_mic_db",
-    "max_spl_reference_db",
+    "max_spl_mic_peak_db",
+    "max_spl_mic_dba",
+    "max_spl_reference_peak_db",
     "max_spl_reference_dba",
 ];
 /// Sound pressure levels a cap may name, dB SPL: above 0 and below 194 dB, where the
@@ -527,9 +528,16 @@ impl Reader {
             max_drive_v_rms: get(self, 0, d.max_drive_v_rms, DRIVE_RANGE_V, " V")?,
             max_drive_v_peak: get(self, 1, d.max_drive_v_peak, DRIVE_RANGE_V, " V")?,
             max_digital_dbfs: get(self, 2, d.max_digital_dbfs, DIGITAL_RANGE_DBFS, " dBFS")?,
-            max_spl_mic_db: get(self, 3, d.max_spl_mic_db, SPL_RANGE_DB, " dB SPL")?,
-            max_spl_reference_db: get(self, 4, d.max_spl_reference_db, SPL_RANGE_DB, " dB SPL")?,
-            max_spl_reference_dba: get(self, 5, d.max_spl_reference_dba, SPL_RANGE_DB, " dB(A)")?,
+            max_spl_mic_peak_db: get(self, 3, d.max_spl_mic_peak_db, SPL_RANGE_DB, " dB SPL")?,
+            max_spl_mic_dba: get(self, 4, d.max_spl_mic_dba, SPL_RANGE_DB, " dB(A)")?,
+            max_spl_reference_peak_db: get(
+                self,
+                5,
+                d.max_spl_reference_peak_db,
+                SPL_RANGE_DB,
+                " dB SPL",
+            )?,
+            max_spl_reference_dba: get(self, 6, d.max_spl_reference_dba, SPL_RANGE_DB, " dB(A)")?,
         };
         // A signal's peak is never below its rms value (crest factor ≥ 1), so such caps
         // contradict each other.
@@ -545,20 +553,26 @@ impl Reader {
             );
             return None;
         }
-        // An A-weighted level above the unweighted cap can only be a typo: A-weighting
-        // adds at most about 1.3 dB (at 2.5 kHz; IEC 61672-1 table, from memory).
-        if caps.max_spl_reference_dba > caps.max_spl_reference_db + 1.3 {
-            let at = f[5].or(f[4]).map_or(Pos::default(), pos);
-            self.v.report(
-                at,
-                format!(
-                    "caps.max_spl_reference_dba: expected at most max_spl_reference_db + 1.3 dB \
-                     ({} dB(A); A-weighting adds at most 1.3 dB), found {} dB(A)",
-                    caps.max_spl_reference_db + 1.3,
-                    caps.max_spl_reference_dba
-                ),
-            );
-            return None;
+        // An A-weighted level more than 1.3 dB above the peak cap can only be a typo: an rms
+        // level never exceeds the peak, and A-weighting adds at most 1.3 dB (IEC 61672-1
+        // Table 2, +1.3 dB at 2.5 kHz).
+        for (a, peak, name) in [(4, 3, "max_spl_mic"), (6, 5, "max_spl_reference")] {
+            let (la, lp) = match a {
+                4 => (caps.max_spl_mic_dba, caps.max_spl_mic_peak_db),
+                _ => (caps.max_spl_reference_dba, caps.max_spl_reference_peak_db),
+            };
+            if la > lp + 1.3 {
+                let at = f[a].or(f[peak]).map_or(Pos::default(), pos);
+                self.v.report(
+                    at,
+                    format!(
+                        "caps.{name}_dba: expected at most {name}_peak_db + 1.3 dB ({} dB(A); \
+                         A-weighting adds at most 1.3 dB), found {la} dB(A)",
+                        lp + 1.3
+                    ),
+                );
+                return None;
+            }
         }
         Some(caps)
     }

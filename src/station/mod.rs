@@ -37,8 +37,9 @@
 //!   max_drive_v_rms: 0.5
 //!   max_drive_v_peak: 0.8
 //!   max_digital_dbfs: -1
-//!   max_spl_mic_db: 140
-//!   max_spl_reference_db: 125
+//!   max_spl_mic_peak_db: 140
+//!   max_spl_mic_dba: 130
+//!   max_spl_reference_peak_db: 125
 //!   max_spl_reference_dba: 115
 //! ```
 //!
@@ -126,7 +127,8 @@ pub struct StationFixture {
     pub tap: Option<String>,
 }
 
-/// Hardware caps (issue 5 enforces them; here they are read and checked for sense).
+/// Hardware caps: levels that no plan, calibration or fault may exceed on this bench
+/// (`src/safety` enforces them before and while playing).
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 pub struct Caps {
     /// Highest rms drive voltage at the earphone terminals, V.
@@ -135,28 +137,39 @@ pub struct Caps {
     pub max_drive_v_peak: f64,
     /// Highest digital peak level of the stimulus, dBFS.
     pub max_digital_dbfs: f64,
-    /// Highest sound pressure level at the fixture microphone, dB SPL re 20 µPa.
-    pub max_spl_mic_db: f64,
-    /// Highest sound pressure level in the reference coupler (ear-equivalent), dB SPL.
-    pub max_spl_reference_db: f64,
-    /// Highest A-weighted level in the reference coupler, dB(A).
+    /// Highest peak sound pressure level at the fixture microphone, dB SPL re 20 µPa.
+    pub max_spl_mic_peak_db: f64,
+    /// Highest A-weighted (equivalent, over one step) level at the fixture microphone, dB(A).
+    pub max_spl_mic_dba: f64,
+    /// Highest peak sound pressure level at the reference (ear-equivalent) position, dB SPL.
+    pub max_spl_reference_peak_db: f64,
+    /// Highest A-weighted (equivalent, over one step) level at the reference position, dB(A).
     pub max_spl_reference_dba: f64,
 }
 
 impl Default for Caps {
-    /// Conservative defaults for an earphone line (common practice, from memory; issue 5
-    /// reviews them): 0.5 V rms / 0.8 V peak is tens of milliwatts into a 16–32 Ω earbud,
-    /// far above what a sweep at −18 dBFS needs; −1 dBFS leaves headroom for inter-sample
-    /// peaks; 140 dB SPL is within the range of a ¼-inch measurement microphone; 125 dB SPL
-    /// peak and 115 dB(A) in the ear-equivalent coupler bound a short test signal that a
-    /// person might hear if a unit is taken out while playing.
+    /// Defaults for an earphone line, and where they come from:
+    /// - 0.5 V rms / 0.8 V peak drive: some 8–16 mW into a 16–32 Ω earbud, far above what a
+    ///   test sweep needs (common practice);
+    /// - −1 dBFS: headroom for inter-sample peaks in the converter (common practice);
+    /// - 140 dB SPL peak at the microphone: the peak limit for impulsive noise of NIOSH
+    ///   (1998) and of the EU directive 2003/10/EC (exposure limit value, 140 dB(C) peak)
+    ///   (both from memory) — people stand next to an open fixture;
+    /// - 130 dB(A) at the microphone: 10 dB under that peak limit (common practice);
+    /// - 125 dB SPL peak at the reference position: 10 dB under the directive's lower
+    ///   exposure action value of 135 dB(C) peak (from memory), for a unit that is in an ear
+    ///   when it should not be;
+    /// - 115 dB(A) at the reference position: the highest steady level OSHA 29 CFR 1910.95
+    ///   Table G-16 permits at all (15 min a day; from memory); NIOSH's REL allows it for
+    ///   28 s a day, so a 2 s sweep is at most 7 % of a daily dose.
     fn default() -> Self {
         Caps {
             max_drive_v_rms: 0.5,
             max_drive_v_peak: 0.8,
             max_digital_dbfs: -1.0,
-            max_spl_mic_db: 140.0,
-            max_spl_reference_db: 125.0,
+            max_spl_mic_peak_db: 140.0,
+            max_spl_mic_dba: 130.0,
+            max_spl_reference_peak_db: 125.0,
             max_spl_reference_dba: 115.0,
         }
     }
