@@ -11,4 +11,5 @@
 //! These pieces do not make the station a hearing-protection device; they limit what the
 //! station itself plays.
 
+pub mod dose;
 pub mod weighting;
