@@ -12,4 +12,6 @@
 //! station itself plays.
 
 pub mod dose;
+pub mod pilot;
+pub mod ramp;
 pub mod weighting;
