@@ -16,6 +16,9 @@ pub mod plan;
 pub mod report;
 pub mod result;
 pub mod rig;
+/// Hearing safety: frequency weighting, exposure dose, the guard's fade and level watch, the
+/// pilot tone (issue 5).
+pub mod safety;
 pub mod station;
 pub mod store;
 pub mod wav;
