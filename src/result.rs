@@ -136,6 +136,10 @@ pub struct UnitResult {
     pub checks: Vec<CheckResult>,
     /// Calibration and mode of the test.
     pub calibration: CalibrationInfo,
+    /// What hearing safety did (caps, budget, pilot, scale-down, guard trip, events);
+    /// absent for `analyze`, which plays nothing.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub safety: Option<crate::safety::station::UnitSafety>,
 }
 
 /// Current UTC time in RFC 3339 with millisecond precision.

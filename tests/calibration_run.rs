@@ -15,7 +15,7 @@ const EXAMPLE: &str = "tests/data/calibration/example.yaml";
 fn plan_text(checks: &str, extra: &str) -> String {
     format!(
         "plan: cal-test\nrevision: 1\nsample_rate_hz: 48000\n{extra}stimulus:\n  start_hz: 50\n  \
-         stop_hz: 10000\n  duration_s: 0.5\n  level_dbfs: -12\nchannels:\n  - {{name: left, \
+         stop_hz: 10000\n  duration_s: 0.5\n  level_dbfs: -24\nchannels:\n  - {{name: left, \
          output: 1, input: 1}}\nrig: {{kind: simulated, seed: 1}}\nchecks:\n{checks}"
     )
 }
@@ -199,6 +199,10 @@ fn calibrated_response_is_the_digital_one_plus_the_analytic_offset() {
     // = 26.0206 − 6.0206 + 93.9794 = 113.9794 dB, written out here independently.
     let offset = 26.020599913279625 - 6.020599913279624 + 93.97940008672037;
     assert!((offset - response_offset_db(0.05, 2.0)).abs() < 1e-9);
+    // Both sweeps played as planned (no hearing-safety scale-down), so the captures are the
+    // same.
+    assert_eq!(digital["safety"]["sweep_gain_db"], 0.0);
+    assert_eq!(spl["safety"]["sweep_gain_db"], 0.0);
     let a = digital["channels"][0]["response_db"].as_array().unwrap();
     let b = spl["channels"][0]["response_db"].as_array().unwrap();
     assert_eq!(a.len(), b.len());

@@ -29,6 +29,7 @@ fn result(verdict: Verdict, checks: Vec<CheckResult>) -> UnitResult {
         ],
         checks,
         calibration: CalibrationInfo::uncalibrated(),
+        safety: None,
     }
 }
 

@@ -246,6 +246,14 @@ pub const UNIT_DB_SPL_PER_V: &str = "dB SPL/V";
 /// before correction, and the fine spectrum that smoothing and point levels read — and set
 /// the unit. Relative quantities (harmonics, THD, rub and buzz, phase) do not change.
 pub fn apply_offset(m: &mut crate::analysis::ChannelMeasurement, offset_db: f64) {
+    shift_levels_db(m, offset_db);
+    m.unit = UNIT_DB_SPL_PER_V.to_string();
+}
+
+/// Add `offset_db` to every absolute level of a measurement (response, fixture response, fine
+/// power spectrum), leaving its unit and every relative quantity (harmonics, rub and buzz,
+/// SNR) as they are.
+pub fn shift_levels_db(m: &mut crate::analysis::ChannelMeasurement, offset_db: f64) {
     for r in &mut m.response_db {
         *r += offset_db;
     }
@@ -259,5 +267,4 @@ pub fn apply_offset(m: &mut crate::analysis::ChannelMeasurement, offset_db: f64)
         *p *= power_gain;
     }
     m.fine.rebuild_cumulative();
-    m.unit = UNIT_DB_SPL_PER_V.to_string();
 }

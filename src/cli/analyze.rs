@@ -33,7 +33,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
     let capture = rig
         .play_and_capture(&prep.stimulus, prep.plan.n_inputs())
         .map_err(Exit::from_rig)?;
-    let result = pipeline::judge_capture(&mut prep, &capture, &args.serial, rig.name(), None)?;
+    let result = pipeline::judge_capture(&mut prep, &capture, &args.serial, rig.name(), None, &[])?;
     if let Some(j) = &args.json {
         j.write(&result).map_err(Exit::bad_input)?;
     }

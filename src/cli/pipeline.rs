@@ -123,18 +123,27 @@ pub(crate) fn plan_needs_calibration(plan: &Plan) -> Option<String> {
         .map(|c| c.id.clone())
 }
 
-/// Analyse a capture and judge it.
+/// Analyse a capture and judge it. `drive_gain_db` (per plan channel, or empty) is the gain
+/// the sweep was played at relative to the plan (a hearing-safety scale-down): the capture is
+/// analysed as recorded (clipping and noise are what they were) and its levels are then
+/// brought back to the plan's.
 pub(crate) fn judge_capture(
     prep: &mut Prepared,
     capture: &Capture,
     serial: &str,
     rig: &str,
     simulated_unit: Option<String>,
+    drive_gain_db: &[f64],
 ) -> Result<UnitResult, Exit> {
     let mut channels = prep
         .analyzer
         .analyze(capture, &prep.plan.channels)
         .map_err(Exit::bad_input)?;
+    for (m, &g) in channels.iter_mut().zip(drive_gain_db) {
+        if g != 0.0 {
+            crate::calibration::shift_levels_db(m, -g);
+        }
+    }
     prep.corrections.apply(&mut channels);
     if let Some(offsets) = &prep.calibration_offsets_db {
         for (m, &o) in channels.iter_mut().zip(offsets) {
@@ -165,5 +174,33 @@ pub(crate) fn judge_capture(
         channels,
         checks,
         calibration: prep.calibration.clone(),
+        safety: None,
     })
+}
+
+/// The result of a unit that was not measured (the sweep was abandoned for safety): verdict
+/// retest, the reason in words, no measurement and no check.
+pub(crate) fn unjudged(
+    prep: &Prepared,
+    serial: &str,
+    rig: &str,
+    simulated_unit: Option<String>,
+    reason: String,
+) -> UnitResult {
+    UnitResult {
+        tool: ToolInfo::default(),
+        plan: PlanInfo::from(&prep.plan),
+        serial: serial.to_string(),
+        verdict: Verdict::Retest,
+        time_utc: now_utc_rfc3339(),
+        rig: rig.to_string(),
+        simulated_unit,
+        station: None,
+        device_latency_samples: None,
+        retest_reasons: vec![reason],
+        channels: Vec::new(),
+        checks: Vec::new(),
+        calibration: prep.calibration.clone(),
+        safety: None,
+    }
 }

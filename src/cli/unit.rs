@@ -6,6 +6,7 @@ use super::{pipeline, Exit};
 use crate::plan::RigSpec;
 use crate::rig::simulated::{SimUnit, SimulatedRig, UnitKind};
 use crate::rig::Rig;
+use crate::safety::station::{SafeOutcome, SafePath, SafetySetup};
 use crate::station::{Mode, Station, StationInfo, StationRig};
 use crate::store::{NewRecord, Store, StoredRecord};
 use anyhow::Context;
@@ -60,6 +61,8 @@ pub(crate) struct Bench {
     // Read only by the sound-card rig, which a build without the feature does not have.
     #[cfg_attr(not(feature = "soundcard"), allow(dead_code))]
     soundcard: crate::rig::SoundcardSpec,
+    /// Hearing safety on this bench for this plan (caps, gains, budget).
+    pub safety: SafetySetup,
 }
 
 /// What the simulated rig is told to put in the fixture.
@@ -114,13 +117,15 @@ impl Bench {
         };
         let non_production =
             o.non_production || o.station.is_some_and(|s| s.mode == Mode::Engineering);
-        use_calibration(
+        let cal = use_calibration(
             &mut prep,
             calibration,
             non_production,
             rig,
             crate::calibration::Calibration::today_utc(),
         )?;
+        let caps = o.station.map(|s| s.caps).unwrap_or_default();
+        let safety = safety_setup(&prep, caps, cal.as_ref(), rig, non_production)?;
         // Refused before anything is tested, rather than at the first unit.
         #[cfg(not(feature = "soundcard"))]
         if rig == RigChoice::Soundcard {
@@ -160,6 +165,7 @@ impl Bench {
             seed,
             rig,
             soundcard: o.soundcard,
+            safety,
         })
     }
 
@@ -244,20 +250,47 @@ impl Bench {
         let mut rig = self.make_rig(serial, sim)?;
         tracing::info!(serial = %serial, rig = rig.name(), "playing the stimulus");
         let started = std::time::Instant::now();
-        let capture = rig
-            .play_and_capture(&self.prep.stimulus, self.prep.plan.n_inputs())
+        let outcome = self
+            .safety
+            .run(rig.as_mut(), &self.prep.stimulus, self.prep.plan.n_inputs())
             .map_err(Exit::from_rig)?;
         if self.pace_realtime {
             let play = std::time::Duration::from_secs_f64(self.stimulus_duration_s());
             std::thread::sleep(play.saturating_sub(started.elapsed()));
         }
-        let mut result = pipeline::judge_capture(
-            &mut self.prep,
-            &capture,
-            serial,
-            rig.name(),
-            (self.rig == RigChoice::Simulated).then(|| sim.label.clone()),
-        )?;
+        let simulated_unit = (self.rig == RigChoice::Simulated).then(|| sim.label.clone());
+        let (capture, result) = match outcome {
+            SafeOutcome::Swept {
+                capture,
+                drive_gain_db,
+                safety,
+            } => {
+                let mut result = pipeline::judge_capture(
+                    &mut self.prep,
+                    &capture,
+                    serial,
+                    rig.name(),
+                    simulated_unit,
+                    &drive_gain_db,
+                )?;
+                if safety.guard_trip.is_some() {
+                    result.verdict = crate::Verdict::Retest;
+                }
+                result.safety = Some(safety);
+                (capture, result)
+            }
+            SafeOutcome::Abandoned {
+                capture,
+                reason,
+                safety,
+            } => {
+                let mut result =
+                    pipeline::unjudged(&self.prep, serial, rig.name(), simulated_unit, reason);
+                result.safety = Some(safety);
+                (capture, result)
+            }
+        };
+        let mut result = result;
         result.station = Some(self.station.clone());
         result.device_latency_samples = capture.device_latency_samples;
 
@@ -331,7 +364,7 @@ pub(crate) fn use_calibration(
     non_production: bool,
     rig: RigChoice,
     today: time::Date,
-) -> Result<(), Exit> {
+) -> Result<Option<crate::calibration::Calibration>, Exit> {
     use crate::calibration::{load_calibration, CalibrationError};
     use crate::plan::LevelUnit;
     use crate::result::CalibrationInfo;
@@ -362,12 +395,24 @@ pub(crate) fn use_calibration(
                 plan.id
             )));
         }
-        if let CalibrationSource::Station(path) = source {
-            tracing::info!(
-                calibration = %path.display(),
-                "the plan's levels are dB FS/FS: the station's calibration is not applied"
-            );
-        }
+        // Not applied to the results, but the bench's gains still bound the levels.
+        let for_safety = match source {
+            CalibrationSource::Station(path) => {
+                tracing::info!(
+                    calibration = %path.display(),
+                    "the plan's levels are dB FS/FS: the station's calibration is not applied \
+                     to the results (its gains still bound the sound levels)"
+                );
+                match load_calibration(path) {
+                    Ok(c) => Some(c),
+                    Err(e) => {
+                        tracing::warn!("{e}: the sound levels are bounded without it");
+                        None
+                    }
+                }
+            }
+            _ => None,
+        };
         prep.calibration = CalibrationInfo {
             mode: if non_production {
                 "non-production".into()
@@ -379,7 +424,7 @@ pub(crate) fn use_calibration(
             level_unit: level_unit.name().into(),
         };
         prep.calibration_offsets_db = None;
-        return Ok(());
+        return Ok(for_safety);
     }
 
     let path = match source {
@@ -426,7 +471,7 @@ pub(crate) fn use_calibration(
         level_unit: level_unit.name().into(),
     };
     prep.calibration_offsets_db = Some(offsets);
-    Ok(())
+    Ok(Some(cal))
 }
 
 impl Bench {
@@ -489,5 +534,128 @@ pub(crate) fn load_station(path: &Path) -> Result<Station, Exit> {
             Exit::problems("station file", &problems)
         }
         other => Exit::bad_input(other),
+    })
+}
+
+/// Hearing safety for this plan on this bench: the bench's gains (the calibration, or the
+/// simulated rig's own constants), the correction's range per channel, and the sweep's
+/// plan-time budget, which refuses (exit 2, with the numbers) a plan that could exceed a cap.
+/// A production station needs the plan's declared product sensitivity to bound the level
+/// before playing.
+pub(crate) fn safety_setup(
+    prep: &pipeline::Prepared,
+    caps: crate::station::Caps,
+    cal: Option<&crate::calibration::Calibration>,
+    rig: RigChoice,
+    non_production: bool,
+) -> Result<SafetySetup, Exit> {
+    use crate::rig::simulated::{DRIVE_V_PER_FS, MIC_FS_PER_PA};
+    use crate::safety::budget::{sine_budget, ChannelPath};
+    use crate::safety::station::{ASSUMED_RESPONSE_PEAK_DB, PILOT_FREQ_HZ};
+    let plan = &prep.plan;
+    let (gains_source, sim_constants) = match (cal, rig) {
+        (Some(c), _) => (format!("calibration {}", c.sha256()), false),
+        (None, RigChoice::Simulated) => ("simulated rig constants".to_string(), true),
+        (None, RigChoice::Soundcard) => ("none".to_string(), false),
+    };
+    let grid = prep.analyzer.grid_hz();
+    let paths: Vec<SafePath> = plan
+        .channels
+        .iter()
+        .enumerate()
+        .map(|(i, c)| {
+            let (drive, mic) = match cal {
+                Some(cal) => (
+                    cal.drive.get(&(c.output + 1)).map(|d| d.volts_peak_per_fs),
+                    cal.microphone.get(&(c.input + 1)).map(|m| m.fs_per_pa),
+                ),
+                None if sim_constants => (Some(DRIVE_V_PER_FS), Some(MIC_FS_PER_PA)),
+                None => (None, None),
+            };
+            let band = (plan.stimulus.start_hz, plan.stimulus.stop_hz);
+            let curve: Option<Vec<(f64, f64)>> = prep.corrections.channel(i).map(|cc| {
+                grid.iter()
+                    .zip(cc.grid_gain_db())
+                    .filter(|(f, _)| (band.0..=band.1).contains(*f))
+                    .map(|(&f, &g)| (f, g))
+                    .collect()
+            });
+            let range = curve.as_ref().map(|pts| {
+                pts.iter()
+                    .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &(_, x)| {
+                        (lo.min(x), hi.max(x))
+                    })
+            });
+            // The grid is log-spaced and sorted; the nearest point above is close enough for
+            // a level bound (24 or more points per octave: within 3 % of the frequency).
+            let at_pilot = curve.as_ref().map_or(0.0, |pts| {
+                pts.iter()
+                    .find(|(f, _)| *f >= PILOT_FREQ_HZ)
+                    .or(pts.last())
+                    .map_or(0.0, |&(_, g)| g)
+            });
+            SafePath {
+                channel: c.name.clone(),
+                output: c.output,
+                input: c.input,
+                drive_v_peak_per_fs: drive,
+                mic_fs_per_pa: mic,
+                correction_db: curve,
+                correction_db_range: range,
+                correction_at_pilot_db: at_pilot,
+            }
+        })
+        .collect();
+    let band_hz = (plan.stimulus.start_hz, plan.stimulus.stop_hz);
+    let budget_paths: Vec<ChannelPath> = paths
+        .iter()
+        .map(|p| ChannelPath {
+            channel: p.channel.clone(),
+            drive_v_peak_per_fs: p.drive_v_peak_per_fs,
+            correction_db: p.correction_db.clone(),
+        })
+        .collect();
+    let budget = sine_budget(
+        "the sweep",
+        plan.stimulus.level_dbfs,
+        band_hz,
+        plan.product.as_ref(),
+        &budget_paths,
+        &caps,
+    );
+    if let Some(refusal) = budget.refusal() {
+        return Err(Exit::bad_input(anyhow::anyhow!(
+            "hearing safety: plan `{}`: {refusal}",
+            plan.id
+        )));
+    }
+    if rig == RigChoice::Soundcard && !non_production && !budget.unchecked.is_empty() {
+        return Err(Exit::bad_input(anyhow::anyhow!(
+            "hearing safety: plan `{}`: production needs every sound level bounded before \
+             playing, but {}; declare the product's sensitivity (`product:` in the plan) and \
+             calibrate every drive output; nothing was played",
+            plan.id,
+            budget.unchecked.join("; ")
+        )));
+    }
+    for u in &budget.unchecked {
+        tracing::warn!("hearing safety: not bounded before playing: {u}");
+    }
+    Ok(SafetySetup {
+        caps,
+        gains_source,
+        paths,
+        budget,
+        sweep_dbfs: plan.stimulus.level_dbfs,
+        band_hz,
+        response_peak_db: plan
+            .product
+            .map_or(ASSUMED_RESPONSE_PEAK_DB, |p| p.response_peak_db),
+        max_latency_s: match rig {
+            RigChoice::Simulated => crate::safety::pilot::DEFAULT_MAX_LATENCY_S,
+            // Through a sound server the latency is tens of milliseconds and moves between
+            // runs (measured 53–75 ms through PulseAudio here).
+            RigChoice::Soundcard => 0.3,
+        },
     })
 }

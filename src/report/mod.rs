@@ -163,6 +163,55 @@ pub fn render_human(result: &UnitResult, color: bool) -> String {
             out.push_str(&format!("  {:<8}{line}\n", m.name));
         }
     }
+    if let Some(s) = &result.safety {
+        out.push_str(&safety_block(s));
+    }
+    out
+}
+
+/// The hearing-safety block: where the gains came from, the closest cap of the plan-time
+/// budget, the pilot's reading per channel and every event in words.
+fn safety_block(s: &crate::safety::station::UnitSafety) -> String {
+    let mut out = String::from("\nhearing safety\n");
+    out.push_str(&format!("  gains   {}\n", s.gains_source));
+    if let Some(item) = s
+        .budget
+        .items
+        .iter()
+        .max_by(|a, b| a.excess_db().total_cmp(&b.excess_db()))
+    {
+        out.push_str(&format!(
+            "  budget  closest cap: {} ({:.1} dB under it)\n",
+            item.describe(),
+            -item.excess_db()
+        ));
+    }
+    if let Some(p) = &s.pilot {
+        for c in &p.channels {
+            let level = match (c.spl_db, c.sensitivity_db_spl_per_v) {
+                (Some(l), Some(sv)) => {
+                    format!("{l:.1} dB SPL at the microphone ({sv:.1} dB SPL/V)")
+                }
+                (Some(l), None) => format!("{l:.1} dB SPL at the microphone"),
+                _ => format!("{:.1} dBFS", c.reading.level_dbfs),
+            };
+            out.push_str(&format!(
+                "  pilot   {:<8}{} Hz at {:.0} dBFS: {level}, SNR {:.0} dB\n",
+                c.channel, p.spec.freq_hz, p.spec.level_dbfs, c.reading.snr_db
+            ));
+        }
+    }
+    out.push_str(&format!(
+        "  sweep   {}\n",
+        if s.sweep_gain_db < 0.0 {
+            format!("scaled down by {:.1} dB", -s.sweep_gain_db)
+        } else {
+            "as planned".to_string()
+        }
+    ));
+    for e in &s.events {
+        out.push_str(&format!("  note    {e}\n"));
+    }
     out
 }
 

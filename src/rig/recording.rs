@@ -89,6 +89,23 @@ impl Rig for RecordingRig {
             xruns: 0,
             faults,
             device_latency_samples: None,
+            guard_trip: None,
         })
     }
+
+    fn play_raw(
+        &mut self,
+        _outputs: &[Vec<f32>],
+        _sample_rate_hz: u32,
+        _n_inputs: usize,
+    ) -> Result<Capture, RigError> {
+        Err(self.bad(
+            "expected a rig that plays (simulated or sound card): a recorded capture cannot \
+             play a pilot tone"
+                .into(),
+        ))
+    }
+
+    /// A recording plays nothing, so there is nothing to guard.
+    fn arm_guard(&mut self, _guard: Option<super::Guard>) {}
 }

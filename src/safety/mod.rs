@@ -12,7 +12,11 @@
 //! These pieces do not make the station a hearing-protection device; they limit what the
 //! station itself plays.
 
+/// The plan-time level budget against the station caps.
+pub mod budget;
 pub mod dose;
 pub mod pilot;
 pub mod ramp;
+/// Hearing safety on one bench per unit: pilot, decision, guarded sweep.
+pub mod station;
 pub mod weighting;

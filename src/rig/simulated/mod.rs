@@ -32,7 +32,7 @@ pub use physical::{
 };
 pub use population::{physical_unit_params, PhysicalPopulation, PhysicalSpread, PHYSICAL_SPREAD};
 
-use super::{Capture, Rig, RigError};
+use super::{Capture, Guard, Rig, RigError};
 use crate::dsp::sweep::Stimulus;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha20Rng;
@@ -274,6 +274,10 @@ pub struct SimulatedRig {
     latency_samples: usize,
     noise_rms_dbfs: Option<f64>,
     n_runs: u64,
+    /// The run-time guard, when armed.
+    guard: Option<Guard>,
+    /// The outputs as last played (after any guard fade), for inspection.
+    last_played: Vec<Vec<f32>>,
 }
 
 impl SimulatedRig {
@@ -308,6 +312,8 @@ impl SimulatedRig {
             latency_samples: DEFAULT_LATENCY_SAMPLES,
             noise_rms_dbfs: Some(DEFAULT_NOISE_RMS_DBFS),
             n_runs: 0,
+            guard: None,
+            last_played: Vec::new(),
         }
     }
 
@@ -329,6 +335,8 @@ impl SimulatedRig {
             latency_samples: DEFAULT_LATENCY_SAMPLES,
             noise_rms_dbfs: Some(DEFAULT_NOISE_RMS_DBFS),
             n_runs: 0,
+            guard: None,
+            last_played: Vec::new(),
         }
     }
 
@@ -405,6 +413,8 @@ impl SimulatedRig {
             latency_samples: DEFAULT_LATENCY_SAMPLES,
             noise_rms_dbfs: Some(DEFAULT_NOISE_RMS_DBFS),
             n_runs: 0,
+            guard: None,
+            last_played: Vec::new(),
         }
     }
 
@@ -432,6 +442,51 @@ impl Rig for SimulatedRig {
         stimulus: &Stimulus,
         n_inputs: usize,
     ) -> Result<Capture, RigError> {
+        self.play_guarded(&stimulus.channels, stimulus.sample_rate_hz, n_inputs)
+    }
+
+    fn play_raw(
+        &mut self,
+        outputs: &[Vec<f32>],
+        sample_rate_hz: u32,
+        n_inputs: usize,
+    ) -> Result<Capture, RigError> {
+        self.play_guarded(outputs, sample_rate_hz, n_inputs)
+    }
+
+    fn arm_guard(&mut self, guard: Option<Guard>) {
+        self.guard = guard;
+    }
+}
+
+impl SimulatedRig {
+    /// The outputs as last played, after any fade the guard applied (one per output).
+    pub fn last_played(&self) -> &[Vec<f32>] {
+        &self.last_played
+    }
+
+    /// Play through the guard when one is armed ([`Guard::play_offline`]).
+    fn play_guarded(
+        &mut self,
+        outputs: &[Vec<f32>],
+        fs: u32,
+        n_inputs: usize,
+    ) -> Result<Capture, RigError> {
+        let (capture, played) = match self.guard.clone() {
+            Some(g) => g.play_offline(outputs, |o| self.simulate(o, fs, n_inputs))?,
+            None => (self.simulate(outputs, fs, n_inputs)?, outputs.to_vec()),
+        };
+        self.last_played = played;
+        Ok(capture)
+    }
+
+    /// The unit's response to `outputs`, as the inputs capture it.
+    fn simulate(
+        &mut self,
+        outputs: &[Vec<f32>],
+        fs: u32,
+        n_inputs: usize,
+    ) -> Result<Capture, RigError> {
         if let Some(unit) = &self.unit {
             if matches!(unit.kind, UnitKind::Defect(_)) && unit.defect_channel >= self.routes.len()
             {
@@ -442,15 +497,14 @@ impl Rig for SimulatedRig {
                 )));
             }
         }
-        let n_outputs = stimulus.channels.len();
+        let n_outputs = outputs.len();
         if let Some(&(o, _)) = self.routes.iter().find(|(o, _)| *o >= n_outputs) {
             return Err(Self::bad(format!(
                 "expected output channels below {n_outputs} (the stimulus has {n_outputs}), \
                  found a route from output {o}"
             )));
         }
-        let fs = stimulus.sample_rate_hz;
-        let n = stimulus.n_samples();
+        let n = outputs.iter().map(Vec::len).min().unwrap_or(0);
         let n_channels = self
             .routes
             .iter()
@@ -461,7 +515,7 @@ impl Rig for SimulatedRig {
         let mut acoustic = vec![vec![0.0f64; n]; n_channels];
         let mut faults = Vec::new();
         for (c, (&(o, i), dut)) in self.routes.iter().zip(&self.duts).enumerate() {
-            let drive: Vec<f64> = stimulus.channels[o].iter().map(|&v| f64::from(v)).collect();
+            let drive: Vec<f64> = outputs[o][..n].iter().map(|&v| f64::from(v)).collect();
             let (out, dut_faults) = dut.respond_with_faults(&drive, fs);
             faults.extend(
                 dut_faults
@@ -506,6 +560,7 @@ impl Rig for SimulatedRig {
             xruns: 0,
             faults,
             device_latency_samples: None,
+            guard_trip: None,
         })
     }
 }

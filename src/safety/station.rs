@@ -1,0 +1,548 @@
+//! Hearing safety on one bench, per unit: the plan-time budget, the pilot tone before the
+//! sweep and the decision it leads to, and the guard armed while the sweep plays.
+//!
+//! [`SafetySetup`] is built once per plan on a station from the caps, the bench's gains (the
+//! calibration, or the simulated rig's own constants) and the plan; [`SafetySetup::run`]
+//! then tests one unit through any [`Rig`]:
+//!
+//! 1. the pilot ([`pilot`]) on every driven output at once, [`pilot::DEFAULT_BELOW_SWEEP_DB`]
+//!    below the sweep, guarded like the sweep;
+//! 2. per channel, the pilot's level at the microphone gives the unit's real sensitivity at
+//!    the pilot frequency; the sweep's worst level at the microphone and at the reference
+//!    position is extrapolated from it (plus the declared response peak above the
+//!    sensitivity and the correction's range) and the sweep is played as planned, scaled
+//!    down, or abandoned ([`pilot::decide_sweep`]; never scaled up);
+//! 3. the sweep plays with the guard armed: a watched input over its limit fades every output
+//!    to silence ([`crate::rig::Guard`]).
+
+use super::budget::{max_a_weighting_db, Budget, SINE_CREST_DB};
+use super::pilot::{self, PilotReading, PilotSpec, ReadSettings, SweepDecision, SweepLimits};
+use super::weighting::a_weighting_db;
+use crate::dsp::sweep::Stimulus;
+use crate::rig::{Capture, Guard, GuardTrip, Rig, RigError};
+use crate::station::Caps;
+
+/// The pilot frequency, Hz: inside every earphone's band, where A-weighting is 0 dB and
+/// where declared sensitivities are usually given (common practice).
+pub const PILOT_FREQ_HZ: f64 = 1000.0;
+/// Margin kept under a cap when a sweep is scaled down, dB (covers the pilot's reading error
+/// and a unit's small nonlinearity between the pilot and the sweep level).
+pub const SCALE_MARGIN_DB: f64 = 1.0;
+/// A sweep scaled down by more than this is abandoned: its signal-to-noise ratio would no
+/// longer support a verdict, and a unit that much louder than declared is suspect anyway.
+pub const MAX_SCALE_DOWN_DB: f64 = 20.0;
+/// Response peak above the sensitivity assumed when the plan declares no product: earphone
+/// responses in an ear simulator rise some 10–15 dB at the ear-canal resonance (from
+/// memory); the larger value is taken.
+pub const ASSUMED_RESPONSE_PEAK_DB: f64 = 15.0;
+/// Guard watch block, s: the level is checked once per block of about 5 ms.
+pub const GUARD_BLOCK_S: f64 = 256.0 / 48_000.0;
+/// Pre-roll before the pilot, s: the pilot reading takes its noise from it and needs at least
+/// one analysis window (the pilot's steady part, 80 ms).
+pub const PILOT_PRE_ROLL_S: f64 = 0.1;
+
+/// One plan channel's path on the bench, as far as safety needs it.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct SafePath {
+    /// Plan channel name.
+    pub channel: String,
+    /// Device output (0-based).
+    pub output: usize,
+    /// Device input (0-based).
+    pub input: usize,
+    /// Volts peak per full scale of the output, when known.
+    pub drive_v_peak_per_fs: Option<f64>,
+    /// Full scale per pascal of the input's microphone, when known.
+    pub mic_fs_per_pa: Option<f64>,
+    /// The fixture→reference correction over the sweep band as (frequency Hz, 20·lg|C| dB)
+    /// points; `None` = not corrected (the fixture is taken as the reference).
+    #[serde(skip)]
+    pub correction_db: Option<Vec<(f64, f64)>>,
+    /// 20·lg|C| over the sweep band, (min, max); `None` = not corrected.
+    pub correction_db_range: Option<(f64, f64)>,
+    /// 20·lg|C| at the pilot frequency (0 when not corrected).
+    pub correction_at_pilot_db: f64,
+}
+
+/// Everything fixed per plan on a bench.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct SafetySetup {
+    /// The station's caps.
+    pub caps: Caps,
+    /// Where the gains come from (`calibration <sha256>`, `simulated rig constants`, or
+    /// `none`).
+    pub gains_source: String,
+    /// Per plan channel.
+    pub paths: Vec<SafePath>,
+    /// The sweep's plan-time budget.
+    pub budget: Budget,
+    /// Planned sweep level, dBFS.
+    pub sweep_dbfs: f64,
+    /// Sweep band, Hz.
+    pub band_hz: (f64, f64),
+    /// The declared response peak above the sensitivity (or [`ASSUMED_RESPONSE_PEAK_DB`]).
+    pub response_peak_db: f64,
+    /// Largest rig latency the pilot reading searches, s.
+    pub max_latency_s: f64,
+}
+
+/// The pilot's reading on one channel and what it implies.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct PilotChannel {
+    /// Plan channel.
+    pub channel: String,
+    /// The reading (level in dBFS at the input, SNR, presence, clipping).
+    pub reading: PilotReading,
+    /// Rms level at the microphone, dB SPL (with a microphone calibration).
+    pub spl_db: Option<f64>,
+    /// The unit's sensitivity at the pilot frequency at the microphone, dB SPL/V (with both
+    /// calibrations).
+    pub sensitivity_db_spl_per_v: Option<f64>,
+    /// What this channel alone would allow.
+    pub decision: SweepDecision,
+}
+
+/// The pilot step of one unit.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct PilotReport {
+    /// The tone played.
+    pub spec: PilotSpec,
+    /// Per channel.
+    pub channels: Vec<PilotChannel>,
+    /// The unit's decision: the most restrictive channel's.
+    pub decision: SweepDecision,
+}
+
+/// What safety did for one unit (the `safety` section of the result JSON).
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct UnitSafety {
+    /// Where the gains came from.
+    pub gains_source: String,
+    /// The station's caps.
+    pub caps: Caps,
+    /// The sweep's plan-time budget.
+    pub budget: Budget,
+    /// The pilot, when one was played (needs a microphone calibration).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub pilot: Option<PilotReport>,
+    /// Lowest gain applied to the planned sweep on any output, dB (0 = as planned; negative
+    /// = scaled down; each output's own gain is in the events).
+    pub sweep_gain_db: f64,
+    /// Per input channel watched, the guard's lowest limit during the sweep, full scale.
+    pub guard_limits_fs: Vec<Option<f64>>,
+    /// The guard's trip, if it tripped.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub guard_trip: Option<GuardTrip>,
+    /// Every refusal, scale-down, trip and warning, in words.
+    pub events: Vec<String>,
+}
+
+/// How one unit's safe run ended.
+pub enum SafeOutcome {
+    /// The sweep played (possibly scaled down, possibly tripped: see the safety report).
+    Swept {
+        /// Capture of the sweep, as recorded.
+        capture: Capture,
+        /// Per plan channel, the gain its output played at relative to the plan, dB (0 = as
+        /// planned): the analysis adds it back to the levels.
+        drive_gain_db: Vec<f64>,
+        /// What safety did.
+        safety: UnitSafety,
+    },
+    /// The sweep was not played (verdict retest); the capture is the pilot's.
+    Abandoned {
+        /// The pilot capture.
+        capture: Capture,
+        /// Why, in words.
+        reason: String,
+        /// What safety did.
+        safety: UnitSafety,
+    },
+}
+
+impl SafetySetup {
+    /// The guard for these paths while a signal plays whose frequency in watch block `b`
+    /// lies in `band_of_block(b)` (Hz, low and high). Each microphone input is watched
+    /// against the lower of the microphone's peak cap and the reference position's peak cap
+    /// brought to the microphone at those frequencies (p_ref = C·p_mic, so p_mic ≤ cap_ref /
+    /// max|C| over them), and never above the input's clipping point (a clipped input no
+    /// longer says how loud it is). Harmonics of the signal lie at other frequencies; they
+    /// are some 40 dB down in a unit that passes and are not counted.
+    fn guard_with(
+        &self,
+        sample_rate_hz: u32,
+        n_blocks: usize,
+        band_of_block: impl Fn(usize) -> (f64, f64),
+    ) -> Guard {
+        let n_in = self.paths.iter().map(|p| p.input + 1).max().unwrap_or(0);
+        let mut limits_fs: Vec<Option<Vec<f64>>> = vec![None; n_in];
+        let clip = f64::from(pilot::CLIP_FS);
+        for p in &self.paths {
+            let per_block: Vec<f64> = match p.mic_fs_per_pa {
+                // Uncalibrated: at least an input that clips trips the guard.
+                None => vec![clip],
+                Some(fs_per_pa) => (0..n_blocks.max(1))
+                    .map(|b| {
+                        let (lo, hi) = band_of_block(b);
+                        let c_max = max_correction_db(p, lo, hi);
+                        let cap_db = self
+                            .caps
+                            .max_spl_mic_peak_db
+                            .min(self.caps.max_spl_reference_peak_db - c_max);
+                        let p_peak_pa = crate::calibration::P_REF_PA * 10f64.powf(cap_db / 20.0);
+                        (p_peak_pa * fs_per_pa).min(clip)
+                    })
+                    .collect(),
+            };
+            limits_fs[p.input] = Some(match limits_fs[p.input].take() {
+                // Two channels on one input: the lower limit block by block.
+                Some(old) => (0..old.len().max(per_block.len()))
+                    .map(|b| {
+                        let a = old.get(b).or(old.last()).copied().unwrap_or(clip);
+                        let c = per_block
+                            .get(b)
+                            .or(per_block.last())
+                            .copied()
+                            .unwrap_or(clip);
+                        a.min(c)
+                    })
+                    .collect(),
+                None => per_block,
+            });
+        }
+        let fs = f64::from(sample_rate_hz);
+        Guard {
+            limits_fs,
+            block_frames: self.block_frames(sample_rate_hz),
+            fade_frames: ((super::ramp::DEFAULT_FADE_S * fs).round() as usize).max(1),
+        }
+    }
+
+    fn block_frames(&self, sample_rate_hz: u32) -> usize {
+        ((GUARD_BLOCK_S * f64::from(sample_rate_hz)).round() as usize).max(1)
+    }
+
+    /// The guard while a tone at `freq_hz` plays (the pilot).
+    pub fn guard_for_tone(&self, sample_rate_hz: u32, freq_hz: f64) -> Guard {
+        self.guard_with(sample_rate_hz, 1, |_| (freq_hz, freq_hz))
+    }
+
+    /// The guard while the plan's sweep plays: block by block, the frequencies the sweep can
+    /// be at given a device latency of up to [`SafetySetup::max_latency_s`] (an exponential
+    /// sweep is at f1·exp(t/L) at time t into the sweep; Farina 2000).
+    pub fn guard_for_sweep(&self, stimulus: &Stimulus) -> Guard {
+        let sw = &stimulus.sweep;
+        let fs = f64::from(stimulus.sample_rate_hz);
+        let block = self.block_frames(stimulus.sample_rate_hz);
+        let n = stimulus.channels.iter().map(Vec::len).max().unwrap_or(0);
+        let n_blocks = n.div_ceil(block) + 1;
+        let lat = (self.max_latency_s * fs).ceil() as usize;
+        let start = sw.start_sample;
+        let end = start + sw.n_sweep_samples.saturating_sub(1);
+        let f_at = move |k: usize| -> f64 {
+            let t = (k.clamp(start, end) - start) as f64 / fs;
+            (sw.f1_hz * (t / sw.l_s).exp()).min(sw.f2_hz)
+        };
+        self.guard_with(stimulus.sample_rate_hz, n_blocks, move |b| {
+            // Capture block b holds what was sent up to `lat` samples earlier.
+            let first = (b * block).saturating_sub(lat);
+            let last = (b + 1) * block;
+            (f_at(first), f_at(last))
+        })
+    }
+
+    /// The limits a channel's sweep must keep, in dB SPL rms at the microphone at the pilot
+    /// frequency as the pilot measures it: each cap brought back to that point.
+    fn pilot_cap_db(&self, p: &SafePath) -> f64 {
+        let c = &self.caps;
+        let peak = self.response_peak_db;
+        let max_a = max_a_weighting_db(self.band_hz);
+        let c_p = p.correction_at_pilot_db;
+        let (c_min, mic_a) = match &p.correction_db {
+            Some(points) if !points.is_empty() => points
+                .iter()
+                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, a), &(f, c)| {
+                    (lo.min(c), a.max(a_weighting_db(f) - c))
+                }),
+            _ => (0.0, max_a),
+        };
+        // Reference position: L_ref = L_mic(pilot f) + C(pilot f) + response peak; at the
+        // microphone the worst point is where C is smallest: L_mic,worst = L_ref − C_min, and
+        // its A-weighted level at most L_ref + max[A(f) − C(f)] (module budget).
+        [
+            c.max_spl_reference_peak_db - (c_p + peak + SINE_CREST_DB),
+            c.max_spl_reference_dba - (c_p + peak + max_a),
+            c.max_spl_mic_peak_db - (c_p - c_min + peak + SINE_CREST_DB),
+            c.max_spl_mic_dba - (c_p + peak + mic_a),
+        ]
+        .into_iter()
+        .fold(f64::INFINITY, f64::min)
+    }
+
+    /// Test one unit safely: pilot, decision, guarded sweep. `stimulus` is the plan's.
+    pub fn run(
+        &self,
+        rig: &mut dyn Rig,
+        stimulus: &Stimulus,
+        n_inputs: usize,
+    ) -> Result<SafeOutcome, RigError> {
+        let guard = self.guard_for_sweep(stimulus);
+        rig.arm_guard(Some(
+            self.guard_for_tone(stimulus.sample_rate_hz, PILOT_FREQ_HZ),
+        ));
+        let mut safety = UnitSafety {
+            gains_source: self.gains_source.clone(),
+            caps: self.caps,
+            budget: self.budget.clone(),
+            pilot: None,
+            sweep_gain_db: 0.0,
+            guard_limits_fs: guard
+                .limits_fs
+                .iter()
+                .map(|l| l.as_ref().and_then(|v| v.iter().copied().reduce(f64::min)))
+                .collect(),
+            guard_trip: None,
+            events: self
+                .budget
+                .unchecked
+                .iter()
+                .map(|u| format!("not bounded before playing: {u}"))
+                .collect(),
+        };
+        let calibrated = self.paths.iter().all(|p| p.mic_fs_per_pa.is_some());
+        let mut gain_db = 0.0;
+        let mut output_gains_db = vec![0.0f64; stimulus.channels.len()];
+        if calibrated {
+            let (report, pilot_capture) = self.pilot(rig, stimulus, n_inputs)?;
+            let decision = report.decision;
+            safety.pilot = Some(report);
+            if let Some(trip) = pilot_capture.guard_trip.clone() {
+                let reason = format!(
+                    "hearing-safety guard tripped during the pilot tone (input {} at {:.3} FS, \
+                     limit {:.3} FS); the unit was not swept",
+                    trip.input + 1,
+                    trip.peak_fs,
+                    trip.limit_fs
+                );
+                safety.events.push(reason.clone());
+                safety.guard_trip = Some(trip);
+                return Ok(SafeOutcome::Abandoned {
+                    capture: pilot_capture,
+                    reason,
+                    safety,
+                });
+            }
+            match decision {
+                SweepDecision::Proceed { .. } => {}
+                SweepDecision::ScaleDown { gain_db: g, .. } => {
+                    gain_db = g;
+                    // Each output by its own channels' decisions: a loud left bud does not
+                    // make the right one quieter.
+                    let report = safety.pilot.as_ref().map_or(&[][..], |r| &r.channels[..]);
+                    for (p, c) in self.paths.iter().zip(report) {
+                        if let SweepDecision::ScaleDown {
+                            gain_db: g,
+                            expected_db,
+                            planned_expected_db,
+                            ..
+                        } = c.decision
+                        {
+                            output_gains_db[p.output] = output_gains_db[p.output].min(g);
+                            safety.events.push(format!(
+                                "channel {}: sweep scaled down by {:.1} dB: the pilot says the \
+                                 planned sweep would reach {planned_expected_db:.1} dB SPL at the \
+                                 microphone at {} Hz, over the level the caps allow there; \
+                                 played for {expected_db:.1} dB SPL",
+                                p.channel, -g, PILOT_FREQ_HZ
+                            ));
+                        }
+                    }
+                }
+                SweepDecision::Abandon { reason } => {
+                    // Name the channel that stopped it, as every channel-level reason does.
+                    let who = safety
+                        .pilot
+                        .as_ref()
+                        .and_then(|r| {
+                            r.channels
+                                .iter()
+                                .find(|c| matches!(c.decision, SweepDecision::Abandon { .. }))
+                        })
+                        .map_or(String::new(), |c| format!("{}: ", c.channel));
+                    let reason = format!("{who}sweep abandoned: {reason}");
+                    safety.events.push(reason.clone());
+                    return Ok(SafeOutcome::Abandoned {
+                        capture: pilot_capture,
+                        reason,
+                        safety,
+                    });
+                }
+            }
+        } else {
+            safety.events.push(
+                "no pilot tone: without a microphone calibration its level cannot be judged; \
+                 the guard watches the inputs for clipping only"
+                    .into(),
+            );
+        }
+        safety.sweep_gain_db = gain_db;
+        rig.arm_guard(Some(guard));
+        let mut capture = if output_gains_db.iter().all(|&g| g == 0.0) {
+            rig.play_and_capture(stimulus, n_inputs)?
+        } else {
+            let mut scaled = stimulus.clone();
+            for (ch, &g_db) in scaled.channels.iter_mut().zip(&output_gains_db) {
+                let g = 10f64.powf(g_db / 20.0);
+                for s in ch.iter_mut() {
+                    *s = (f64::from(*s) * g) as f32;
+                }
+            }
+            rig.play_and_capture(&scaled, n_inputs)?
+        };
+        if let Some(trip) = capture.guard_trip.clone() {
+            let ms = |n: usize| n as f64 * 1e3 / f64::from(stimulus.sample_rate_hz);
+            let event = format!(
+                "hearing-safety guard tripped: input {} reached {:.3} FS (limit {:.3} FS) at \
+                 {:.1} ms; output faded to silence by {:.1} ms",
+                trip.input + 1,
+                trip.peak_fs,
+                trip.limit_fs,
+                ms(trip.first_over_sample),
+                ms(trip.silent_from_sample)
+            );
+            safety.events.push(event.clone());
+            capture.faults.push(event);
+            safety.guard_trip = Some(trip);
+        }
+        let drive_gain_db = self
+            .paths
+            .iter()
+            .map(|p| output_gains_db[p.output])
+            .collect();
+        Ok(SafeOutcome::Swept {
+            capture,
+            drive_gain_db,
+            safety,
+        })
+    }
+
+    /// Play the pilot on every driven output and read it on every channel.
+    fn pilot(
+        &self,
+        rig: &mut dyn Rig,
+        stimulus: &Stimulus,
+        n_inputs: usize,
+    ) -> Result<(PilotReport, Capture), RigError> {
+        let fs = stimulus.sample_rate_hz;
+        let spec = PilotSpec::below_sweep(PILOT_FREQ_HZ, self.sweep_dbfs);
+        let tone = pilot::generate_pilot(&spec, fs).map_err(|e| RigError::Fault(e.to_string()))?;
+        let pre = (PILOT_PRE_ROLL_S * f64::from(fs)).round() as usize;
+        let tail = (self.max_latency_s * f64::from(fs)).ceil() as usize + pre / 2;
+        let n = pre + tone.len() + tail;
+        let mut outputs = vec![vec![0.0f32; n]; stimulus.channels.len()];
+        for &o in &stimulus.driven_outputs {
+            outputs[o][pre..pre + tone.len()].copy_from_slice(&tone);
+        }
+        let capture = rig.play_raw(&outputs, fs, n_inputs)?;
+        let settings = ReadSettings {
+            tone_start: pre,
+            max_latency_s: self.max_latency_s,
+            min_snr_db: pilot::MIN_SNR_DB,
+        };
+        let mut channels = Vec::new();
+        for p in &self.paths {
+            let samples = capture.channels.get(p.input).map_or(&[][..], Vec::as_slice);
+            let reading = pilot::read_pilot(samples, fs, &spec, &settings)
+                .map_err(|e| RigError::Fault(format!("pilot tone, channel {}: {e}", p.channel)))?;
+            let spl_db = p.mic_fs_per_pa.map(|m| reading.spl_db(m));
+            let sensitivity_db_spl_per_v = match (spl_db, p.drive_v_peak_per_fs) {
+                (Some(l), Some(v)) => {
+                    let v_rms = 10f64.powf(spec.level_dbfs / 20.0) * v / std::f64::consts::SQRT_2;
+                    Some(l - 20.0 * v_rms.log10())
+                }
+                _ => None,
+            };
+            let limits = SweepLimits {
+                cap_db: self.pilot_cap_db(p),
+                margin_db: SCALE_MARGIN_DB,
+                min_sweep_dbfs: self.sweep_dbfs - MAX_SCALE_DOWN_DB,
+            };
+            let decision = pilot::decide_sweep(
+                &reading,
+                spl_db.unwrap_or(reading.level_dbfs),
+                spec.level_dbfs,
+                self.sweep_dbfs,
+                &limits,
+            )
+            .map_err(|e| RigError::Fault(format!("pilot tone, channel {}: {e}", p.channel)))?;
+            channels.push(PilotChannel {
+                channel: p.channel.clone(),
+                reading,
+                spl_db,
+                sensitivity_db_spl_per_v,
+                decision,
+            });
+        }
+        let decision = most_restrictive(channels.iter().map(|c| c.decision));
+        Ok((
+            PilotReport {
+                spec,
+                channels,
+                decision,
+            },
+            capture,
+        ))
+    }
+}
+
+/// The largest 20·lg|C| of a path's correction between `lo_hz` and `hi_hz` (widened by 3 %
+/// either side, the grid's spacing); 0 dB when not corrected; the nearest point when none
+/// lies in between.
+fn max_correction_db(p: &SafePath, lo_hz: f64, hi_hz: f64) -> f64 {
+    let Some(points) = p.correction_db.as_ref().filter(|v| !v.is_empty()) else {
+        return 0.0;
+    };
+    let (lo, hi) = (lo_hz.min(hi_hz) / 1.03, lo_hz.max(hi_hz) * 1.03);
+    let inside = points
+        .iter()
+        .filter(|(f, _)| (lo..=hi).contains(f))
+        .map(|&(_, c)| c)
+        .reduce(f64::max);
+    inside.unwrap_or_else(|| {
+        let mid = (lo * hi).sqrt();
+        points
+            .iter()
+            .min_by(|a, b| (a.0 / mid).ln().abs().total_cmp(&(b.0 / mid).ln().abs()))
+            .map_or(0.0, |&(_, c)| c)
+    })
+}
+
+/// The unit's decision from its channels': any abandon abandons; else the lowest gain.
+fn most_restrictive(decisions: impl Iterator<Item = SweepDecision>) -> SweepDecision {
+    let mut out: Option<SweepDecision> = None;
+    for d in decisions {
+        out = Some(match (out, d) {
+            (None, d) => d,
+            (Some(a @ SweepDecision::Abandon { .. }), _) => a,
+            (_, d @ SweepDecision::Abandon { .. }) => d,
+            (Some(a), d) => {
+                if gain_of(&d) < gain_of(&a) {
+                    d
+                } else {
+                    a
+                }
+            }
+        });
+    }
+    out.unwrap_or(SweepDecision::Proceed {
+        sweep_dbfs: 0.0,
+        expected_db: f64::NEG_INFINITY,
+    })
+}
+
+fn gain_of(d: &SweepDecision) -> f64 {
+    match d {
+        SweepDecision::ScaleDown { gain_db, .. } => *gain_db,
+        _ => 0.0,
+    }
+}
