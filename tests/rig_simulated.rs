@@ -514,7 +514,8 @@ fn defect_names_are_kebab_case_and_round_trip() {
             "seal-leak",
             "blocked-damper",
             "weak-motor",
-            "rub"
+            "rub",
+            "too-loud"
         ]
     );
     for d in Defect::ALL {

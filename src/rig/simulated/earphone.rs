@@ -140,6 +140,7 @@ impl EarphoneParams {
             Defect::LowSensitivity => self.gain_db -= 6.0,
             Defect::ResonanceShift => self.resonance_hz *= 0.75,
             Defect::Clipping => self.gain_db += 30.0,
+            Defect::TooLoud => self.gain_db += 30.0,
             Defect::HeavyDistortion => {
                 self.nonlinearity.a2 *= 40.0;
                 self.nonlinearity.a3 *= 40.0;

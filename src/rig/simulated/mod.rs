@@ -99,11 +99,15 @@ pub enum Defect {
     WeakMotor,
     /// The voice coil rubs in the gap at large excursion (impulsive distortion).
     Rub,
+    /// 30 dB more sensitive than its design and than the plan declares, with no other
+    /// change (a far more efficient driver fitted by mistake): what the hearing-safety pilot
+    /// and guard exist for.
+    TooLoud,
 }
 
 impl Defect {
     /// Every defect, in a fixed order.
-    pub const ALL: [Defect; 10] = [
+    pub const ALL: [Defect; 11] = [
         Defect::ReversedPolarity,
         Defect::DeadChannel,
         Defect::LowSensitivity,
@@ -114,6 +118,7 @@ impl Defect {
         Defect::BlockedDamper,
         Defect::WeakMotor,
         Defect::Rub,
+        Defect::TooLoud,
     ];
 
     /// The kebab-case name used on the command line and in records.
@@ -129,6 +134,7 @@ impl Defect {
             Defect::BlockedDamper => "blocked-damper",
             Defect::WeakMotor => "weak-motor",
             Defect::Rub => "rub",
+            Defect::TooLoud => "too-loud",
         }
     }
 }

@@ -71,6 +71,9 @@ pub struct PhysicalParams {
     pub drive_v_per_fs: f64,
     /// Microphone and converter, full scale per Pa.
     pub mic_fs_per_pa: f64,
+    /// Sound pressure of this earpiece relative to its design, linear (1 = as designed): a
+    /// defect that makes a unit louder without changing anything else.
+    pub acoustic_gain: f64,
     /// Voice-coil leads swapped: the drive reaches the coil inverted.
     pub inverted: bool,
     /// Open voice coil: no sound at all.
@@ -109,6 +112,7 @@ impl PhysicalParams {
             rub: None,
             drive_v_per_fs: DRIVE_V_PER_FS,
             mic_fs_per_pa: MIC_FS_PER_PA,
+            acoustic_gain: 1.0,
             inverted: false,
             dead: false,
             seal_leak: false,
@@ -116,9 +120,9 @@ impl PhysicalParams {
     }
 
     /// Full-scale gain of the chain ahead of the driver and after the microphone, with
-    /// polarity: drive_v_per_fs·mic_fs_per_pa·(±1).
+    /// polarity: drive_v_per_fs·mic_fs_per_pa·acoustic_gain·(±1).
     pub fn converter_gain(&self) -> f64 {
-        let g = self.drive_v_per_fs * self.mic_fs_per_pa;
+        let g = self.drive_v_per_fs * self.mic_fs_per_pa * self.acoustic_gain;
         if self.inverted {
             -g
         } else {
@@ -544,7 +548,7 @@ impl PhysicalEarphone {
 
         // Back to the base rate: keep the base band (an ideal decimation filter).
         let mut out_spec = tables.base_inv.make_input_vec();
-        let g = p.mic_fs_per_pa;
+        let g = p.mic_fs_per_pa * p.acoustic_gain;
         for (o, s) in out_spec.iter_mut().zip(&p_spec[..n_base / 2]) {
             *o = s * g;
         }

@@ -88,6 +88,9 @@ pub const CLIPPING_DRIVE_FACTOR: f64 = 10.0;
 /// centre and a stiff, uneven surround).
 pub const HEAVY_DISTORTION_FACTOR: f64 = 40.0;
 
+/// The `too-loud` defect's sound pressure gain: +30 dB (the unit of issue 5's guard check).
+pub const TOO_LOUD_GAIN: f64 = 31.622_776_601_683_793;
+
 /// The rub of the `rub` defect (invented): a coil sitting off centre touches beyond
 /// ±0.35 µm (the nominal unit's excursion at the demo level, −18 dBFS, grows from ≈ 0.25 µm
 /// below 300 Hz to ≈ 0.5 µm at 1 kHz, towards its in-fixture resonance) with 0.065 mN of
@@ -103,7 +106,8 @@ impl PhysicalParams {
     /// damper → damper resistance ×10; weak motor → Bl ×0.7; rub → [`DEFECT_RUB`]; reversed
     /// polarity → the coil driven inverted; dead channel → open coil, silent; clipping →
     /// amplifier +14 dB, so the input converter clips; low sensitivity → Re ×2; resonance
-    /// shift → Mms ×1.78; heavy distortion → nonlinear coefficients ×6.
+    /// shift → Mms ×1.78; heavy distortion → nonlinear coefficients ×6; too loud → sound
+    /// pressure ×[`TOO_LOUD_GAIN`] (+30 dB).
     pub fn with_defect(mut self, defect: Defect) -> Self {
         match defect {
             Defect::SealLeak => self.seal_leak = true,
@@ -120,6 +124,7 @@ impl PhysicalParams {
             Defect::HeavyDistortion => {
                 self.nonlinearity = self.nonlinearity.scaled(HEAVY_DISTORTION_FACTOR);
             }
+            Defect::TooLoud => self.acoustic_gain *= TOO_LOUD_GAIN,
         }
         self
     }
