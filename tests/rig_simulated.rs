@@ -531,7 +531,7 @@ fn defect_names_are_kebab_case_and_round_trip() {
     assert_eq!(
         "dead-chanel".parse::<Defect>().unwrap_err().to_string(),
         "expected one of reversed-polarity, dead-channel, low-sensitivity, resonance-shift, \
-         clipping, heavy-distortion, seal-leak, blocked-damper, weak-motor, rub, \
+         clipping, heavy-distortion, seal-leak, blocked-damper, weak-motor, rub, too-loud, \
          found \"dead-chanel\" (did you mean \"dead-channel\"?)"
     );
     assert_eq!(
