@@ -538,6 +538,6 @@ fn defect_names_are_kebab_case_and_round_trip() {
         "golden".parse::<UnitKind>().unwrap_err().to_string(),
         "expected one of nominal, design, reversed-polarity, dead-channel, low-sensitivity, \
          resonance-shift, clipping, heavy-distortion, seal-leak, blocked-damper, weak-motor, \
-         rub, found \"golden\""
+         rub, too-loud, found \"golden\""
     );
 }
