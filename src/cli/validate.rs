@@ -2,6 +2,11 @@
 //! `PATH:LINE:COL: message` line per problem. Station files are named by `--station`
 //! rather than guessed from their content, so a plan with a typo in its top key is never
 //! checked against the wrong schema.
+//!
+//! With plans and stations both given, every plan is also checked on every station as a run
+//! would set it up — calibration, level unit and mode, and the hearing-safety budget of its
+//! sweep against the station's caps — so a plan that would be refused is refused here,
+//! before any unit is seated.
 
 use super::{Exit, EXIT_BAD_INPUT, EXIT_PASS};
 use crate::plan::{load_plan, PlanError};
@@ -66,5 +71,73 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
             }
         }
     }
+    if code == EXIT_PASS && !args.plans.is_empty() {
+        for station_path in &args.station {
+            let Ok(station) = crate::station::load_station(station_path) else {
+                continue;
+            };
+            for plan in &args.plans {
+                code = code.max(on_station(plan, station_path, &station));
+            }
+        }
+    }
     Ok(code)
+}
+
+/// Set the plan up on the station as `run` would (nothing is played) and say whether it may
+/// run there, with the closest cap of its sweep.
+fn on_station(
+    plan: &std::path::Path,
+    station_path: &std::path::Path,
+    station: &crate::station::Station,
+) -> i32 {
+    let bench = super::unit::Bench::new(super::unit::BenchOptions {
+        plan,
+        station: Some(station),
+        fixture: None,
+        rig: None,
+        store: None,
+        station_id: None,
+        operator: None,
+        calibration: None,
+        non_production: false,
+        soundcard: station.soundcard.clone(),
+    });
+    match bench {
+        Ok(b) => {
+            let closest = b
+                .safety
+                .budget
+                .items
+                .iter()
+                .max_by(|x, y| x.excess_db().total_cmp(&y.excess_db()))
+                .map(|i| {
+                    format!(
+                        "; closest cap: {} ({:.1} dB under it)",
+                        i.describe(),
+                        -i.excess_db()
+                    )
+                })
+                .unwrap_or_default();
+            println!(
+                "{} on {}: ok ({}){closest}",
+                plan.display(),
+                station_path.display(),
+                b.station.mode.as_str()
+            );
+            for u in &b.safety.budget.unchecked {
+                println!("  not bounded before playing: {u}");
+            }
+            EXIT_PASS
+        }
+        Err(e) => {
+            println!(
+                "{} on {}: refused: {:#}",
+                plan.display(),
+                station_path.display(),
+                e.error
+            );
+            e.code
+        }
+    }
 }
