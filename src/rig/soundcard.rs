@@ -10,6 +10,16 @@
 //! atomic counters. A full input ring, and every cpal xrun or stream error, is counted and
 //! makes the measurement a retest ([`Capture::xruns`], [`Capture::faults`]).
 //!
+//! A sound server hides its own underruns unless its client library passes them on: through
+//! ALSA's `pulse` plugin a server-side underrun reaches cpal as an xrun only while the
+//! plugin's `handle_underrun` option is on (its default in the plugin versions read; the
+//! test server's ALSA configuration sets it explicitly, and a station should too).
+//!
+//! # Recording without a sweep
+//! [`SoundcardRig::play_and_record`] plays given buffers (silence for a sound calibrator,
+//! a tone for a drive reading) and records every input through the same streams and
+//! callbacks; a recording with any xrun or fault is an error there, never a reading.
+//!
 //! # Alignment (what is removed from the recording)
 //! The input starts before the output, so the recording holds some silence, then the
 //! stimulus delayed by the device path. The capture handed on starts at the recording
@@ -563,6 +573,23 @@ where
     )
 }
 
+/// A stream error as the retest reason shows it: an xrun says what it means for the
+/// measurement (samples lost) and where to look; other errors keep cpal's kind and text
+/// (once: an xrun's text repeats its kind).
+fn error_text(e: &cpal::Error) -> String {
+    if e.kind() == ErrorKind::Xrun {
+        return "xrun: samples were lost (a buffer underrun or overrun in the device or the \
+                sound server)"
+            .into();
+    }
+    let (kind, text) = (e.kind().to_string(), e.to_string());
+    if text.contains(&kind) {
+        format!("stream error: {text}")
+    } else {
+        format!("stream error: {kind}: {text}")
+    }
+}
+
 /// Error callback body: counters and a ring push only (the callback may run on the audio
 /// thread).
 fn note_error(shared: &Shared, errors: &mut rtrb::Producer<cpal::Error>, error: cpal::Error) {
@@ -598,24 +625,120 @@ macro_rules! by_format {
     };
 }
 
-/// What one run recorded, before alignment.
-struct Recording {
+/// What one run recorded, before alignment, with what went wrong while recording.
+struct RawRecording {
     /// Per input channel.
     channels: Vec<Vec<f32>>,
+    /// cpal xruns and input-ring overruns.
     xruns: u32,
     faults: Vec<String>,
 }
 
+/// A clean recording made by [`SoundcardRig::play_and_record`]: every input channel of
+/// the input device, from the input's first sample (before the output started) to the
+/// tail after the last output sample. Not aligned: the device latency is in it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Recording {
+    /// Sample rate, Hz (the rate the devices were opened at).
+    pub sample_rate_hz: u32,
+    /// Per device input channel (0-based), full scale ±1.0.
+    pub channels: Vec<Vec<f32>>,
+}
+
+/// Longest buffer [`SoundcardRig::play_and_record`] plays, s: ten minutes of a 64-channel
+/// float buffer is 7 GB at 48 kHz; a calibration reading needs seconds.
+pub const MAX_PLAY_S: f64 = 600.0;
+
 impl SoundcardRig {
-    /// Render, play, record; no alignment yet.
-    fn record(&self, stimulus: &Stimulus) -> Result<Recording, RigError> {
+    /// Play `outputs` (one buffer per device output channel from output 1, all of the same
+    /// length, full scale ±1.0; device channels past the last buffer play silence) and
+    /// record every input channel for as long, plus the device latencies and a tail.
+    ///
+    /// The same streams, real-time-safe callbacks and fault counting as a measurement
+    /// ([`Rig::play_and_capture`]). For readings made outside a sweep, such as a sound
+    /// calibrator on a microphone (`outputs` silent) or a calibration tone played through
+    /// a known input.
+    ///
+    /// # Errors
+    /// [`RigError::BadInput`] when the buffers are empty, of different lengths, longer
+    /// than [`MAX_PLAY_S`], hold a non-finite sample, or are more than the device's
+    /// outputs; [`RigError::Fault`] when the devices cannot be started, or when the
+    /// recording had an xrun, a dropped buffer or a stream error: nothing may be read
+    /// from a broken recording, so none is returned.
+    pub fn play_and_record(&mut self, outputs: &[Vec<f32>]) -> Result<Recording, RigError> {
+        let n_out = usize::from(self.output.config.channels);
+        let n_frames = outputs.first().map_or(0, Vec::len);
+        if n_frames == 0 {
+            return Err(bad(
+                "outputs",
+                "expected at least one output buffer of at least one sample, found none",
+            ));
+        }
+        if outputs.len() > n_out {
+            return Err(bad(
+                format!("output device {}", self.output.name),
+                format!(
+                    "expected at most {n_out} output buffers (the stream's channels), found {}",
+                    outputs.len()
+                ),
+            ));
+        }
+        if let Some((k, b)) = outputs
+            .iter()
+            .enumerate()
+            .find(|(_, b)| b.len() != n_frames)
+        {
+            return Err(bad(
+                format!("output {}", k + 1),
+                format!(
+                    "expected {n_frames} samples like output 1, found {}",
+                    b.len()
+                ),
+            ));
+        }
+        let max_frames = (MAX_PLAY_S * f64::from(self.sample_rate_hz)) as usize;
+        if n_frames > max_frames {
+            return Err(bad(
+                "outputs",
+                format!("expected at most {MAX_PLAY_S} s ({max_frames} samples), found {n_frames}"),
+            ));
+        }
+        for (k, b) in outputs.iter().enumerate() {
+            if let Some(i) = b.iter().position(|v| !v.is_finite()) {
+                return Err(bad(
+                    format!("output {}", k + 1),
+                    format!("expected finite samples, found {} at sample {i}", b[i]),
+                ));
+            }
+        }
+        let raw = self.record_raw(outputs, n_frames)?;
+        if raw.xruns > 0 || !raw.faults.is_empty() {
+            let mut why = raw.faults;
+            if raw.xruns > 0 && why.is_empty() {
+                why.push(format!("{} xrun(s)", raw.xruns));
+            }
+            return Err(RigError::Fault(format!(
+                "the recording is not usable, so nothing was read from it: {}",
+                why.join("; ")
+            )));
+        }
+        Ok(Recording {
+            sample_rate_hz: self.sample_rate_hz,
+            channels: raw.channels,
+        })
+    }
+
+    /// Render `outputs` (device channel order, `n_frames` each; buffers past the device's
+    /// channels are not played), play, record; no alignment. Faults and xruns are
+    /// reported in the result, not as an error, so a measurement can record them.
+    fn record_raw(&self, outputs: &[Vec<f32>], n_frames: usize) -> Result<RawRecording, RigError> {
         let fs = f64::from(self.sample_rate_hz);
-        let n_stim = stimulus.n_samples();
+        let n_stim = n_frames;
         let n_out = usize::from(self.output.config.channels);
         let n_in = usize::from(self.input.config.channels);
         let mut rendered = vec![0.0f32; n_stim * n_out];
-        for (d, ch) in stimulus.channels.iter().enumerate().take(n_out) {
-            for (k, &v) in ch.iter().enumerate() {
+        for (d, ch) in outputs.iter().enumerate().take(n_out) {
+            for (k, &v) in ch.iter().enumerate().take(n_stim) {
                 rendered[k * n_out + d] = v;
             }
         }
@@ -672,7 +795,8 @@ impl SoundcardRig {
                     kinds.push(kind.to_string());
                 }
                 return Err(RigError::Fault(format!(
-                    "{in_label}: the input delivered no samples within {STALL_S} s of starting                      (device lost or sound server stopped){}",
+                    "{in_label}: the input delivered no samples within {STALL_S} s of starting \
+                     (device lost or sound server stopped){}",
                     if kinds.is_empty() {
                         String::new()
                     } else {
@@ -751,14 +875,14 @@ impl SoundcardRig {
         for (label, errors) in [(&in_label, &mut in_err_c), (&out_label, &mut out_err_c)] {
             let mut kinds: Vec<(String, u32)> = Vec::new();
             while let Ok(e) = errors.pop() {
-                let kind = format!("{}: {e}", e.kind());
+                let kind = error_text(&e);
                 match kinds.iter_mut().find(|(k, _)| *k == kind) {
                     Some((_, n)) => *n += 1,
                     None => kinds.push((kind, 1)),
                 }
             }
             for (kind, n) in kinds {
-                faults.push(format!("{label}: stream error ({n}×): {kind}"));
+                faults.push(format!("{label}: {kind} ({n}×)"));
             }
         }
         let overruns = shared.ring_overruns.load(Ordering::Relaxed);
@@ -779,7 +903,7 @@ impl SoundcardRig {
         let channels = (0..n_in)
             .map(|c| (0..n_frames).map(|k| interleaved[k * n_in + c]).collect())
             .collect();
-        Ok(Recording {
+        Ok(RawRecording {
             channels,
             xruns,
             faults,
@@ -787,7 +911,7 @@ impl SoundcardRig {
     }
 
     /// The recording lag of stimulus sample 0 (see the module doc), or a fault message.
-    fn align(&self, stimulus: &Stimulus, rec: &Recording) -> Result<i64, String> {
+    fn align(&self, stimulus: &Stimulus, rec: &RawRecording) -> Result<i64, String> {
         let n_stim = stimulus.n_samples();
         let n_rec = rec.channels.first().map_or(0, Vec::len);
         let max_lag = n_rec.saturating_sub(n_stim / 2);
@@ -907,7 +1031,8 @@ impl SoundcardRig {
                 Some(d) if hz(a) >= DRIFT_FROM_HZ => points.push(((a + b) as f64 / 2.0, *d)),
                 Some(_) => {}
                 None => faults.push(format!(
-                    "loopback input {}: the sweep from {:.0} to {:.0} Hz did not arrive intact                      (a dropout or glitch in the device or sound server)",
+                    "loopback input {}: the sweep from {:.0} to {:.0} Hz did not arrive intact \
+                     (a dropout or glitch in the device or sound server)",
                     self.spec.loopback_input.map_or(0, |i| i + 1),
                     hz(a),
                     hz(b)
@@ -925,12 +1050,14 @@ impl SoundcardRig {
             );
             if residual > MAX_LOOPBACK_RESIDUAL_SAMPLES {
                 faults.push(format!(
-                    "loopback delay jumped by {residual:.1} samples during the sweep (samples                      lost or repeated)"
+                    "loopback delay jumped by {residual:.1} samples during the sweep (samples \
+                     lost or repeated)"
                 ));
             }
             if self.separate_devices() && ppm.abs() > self.spec.max_clock_drift_ppm {
                 faults.push(format!(
-                    "clock drift between output {} and input {} is {ppm:.1} ppm, above the                      bound of {} ppm",
+                    "clock drift between output {} and input {} is {ppm:.1} ppm, above the \
+                     bound of {} ppm",
                     self.output.name, self.input.name, self.spec.max_clock_drift_ppm
                 ));
             }
@@ -992,7 +1119,7 @@ impl Rig for SoundcardRig {
                 format!("expected {n_inputs} input channels, the stream has {n_in}"),
             ));
         }
-        let rec = self.record(stimulus)?;
+        let rec = self.record_raw(&stimulus.channels, stimulus.n_samples())?;
         let n_stim = stimulus.n_samples();
         let mut faults = rec.faults.clone();
         let lag = if faults.is_empty() && rec.xruns == 0 {
