@@ -35,7 +35,7 @@ fn mic(dir: &Path, wav: &Path, extra: &[&str]) -> std::process::Output {
             "Fernhill SC-2 class 1",
             "--calibrator-serial",
             "FH-40117",
-            "--station",
+            "--station-id",
             "larkspur-line3-st1",
             "--operator",
             "j.okafor",
@@ -173,4 +173,185 @@ fn drive_through_a_calibrated_input() {
     let g = cal.drive[&1].volts_peak_per_fs;
     // 0.02 dB, the same acceptance as a microphone reading (band-pass level of a sine).
     assert!((20.0 * (g / 3.0).log10()).abs() < 0.02, "{g}");
+}
+
+#[test]
+fn station_file_names_the_station_and_the_calibration_file() {
+    // `--station FILE` as `run` takes it: the calibration gets the file's station id and
+    // is written where the station's `calibration:` points (relative to the station file).
+    let dir = tempfile::tempdir().unwrap();
+    let wav = dir.path().join("cal-tone.wav");
+    calibrator_wav(&wav, 1000.0, 0.04);
+    std::fs::create_dir(dir.path().join("cal")).unwrap();
+    let station = dir.path().join("st.yaml");
+    std::fs::write(
+        &station,
+        "station: larkspur-line3-st9\nmode: production\ncalibration: cal/st9.yaml\n",
+    )
+    .unwrap();
+    // The station loader wants its calibration file to exist, so the first reading names
+    // the file and the id; the next ones come from the station file.
+    let out = tragus()
+        .args([
+            "calibrate",
+            "drive",
+            "--output",
+            "1",
+            "--measured-v-rms",
+            "0.2",
+        ])
+        .args(["--meter-model", "m", "--meter-serial", "s", "--station-id"])
+        .arg("larkspur-line3-st9")
+        .arg("--out")
+        .arg(dir.path().join("cal/st9.yaml"))
+        .output()
+        .unwrap();
+    assert_exit(&out, 0);
+    let out = tragus()
+        .args(["calibrate", "mic", "--capture"])
+        .arg(&wav)
+        .args([
+            "--input",
+            "2",
+            "--calibrator-model",
+            "m",
+            "--calibrator-serial",
+            "s",
+        ])
+        .arg("--station")
+        .arg(&station)
+        .output()
+        .unwrap();
+    assert_exit(&out, 0);
+    let cal = load_calibration(&dir.path().join("cal/st9.yaml")).unwrap();
+    assert_eq!(cal.station, "larkspur-line3-st9");
+    // Both readings are in the station's file: the default --out was that file.
+    assert!(cal.microphone.contains_key(&2) && cal.drive.contains_key(&1));
+    // A calibration of another station is not overwritten through this station's file.
+    let other = dir.path().join("other.yaml");
+    std::fs::write(
+        &other,
+        "station: larkspur-line3-st8\nmode: production\ncalibration: cal/st9.yaml\n",
+    )
+    .unwrap();
+    let out = tragus()
+        .args(["calibrate", "mic", "--capture"])
+        .arg(&wav)
+        .args([
+            "--input",
+            "2",
+            "--calibrator-model",
+            "m",
+            "--calibrator-serial",
+            "s",
+        ])
+        .arg("--station")
+        .arg(&other)
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("belongs to station `larkspur-line3-st9`"),
+        "{err}"
+    );
+    // A station file and a bare id together are a contradiction (clap refuses: exit 2).
+    let out = tragus()
+        .args(["calibrate", "mic", "--capture"])
+        .arg(&wav)
+        .args([
+            "--input",
+            "2",
+            "--calibrator-model",
+            "m",
+            "--calibrator-serial",
+            "s",
+        ])
+        .arg("--station")
+        .arg(&station)
+        .args(["--station-id", "other"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("--station-id") && err.contains("cannot be used with"),
+        "{err}"
+    );
+    // A station without `calibration:` and no --out: told what is missing, nothing written.
+    let bare = dir.path().join("bare.yaml");
+    std::fs::write(&bare, "station: bench-7\nmode: engineering\n").unwrap();
+    let out = tragus()
+        .args(["calibrate", "mic", "--capture"])
+        .arg(&wav)
+        .args([
+            "--input",
+            "2",
+            "--calibrator-model",
+            "m",
+            "--calibrator-serial",
+            "s",
+        ])
+        .arg("--station")
+        .arg(&bare)
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("names no `calibration:`"), "{err}");
+}
+
+#[test]
+fn record_and_capture_are_one_or_the_other() {
+    let dir = tempfile::tempdir().unwrap();
+    let wav = dir.path().join("cal-tone.wav");
+    calibrator_wav(&wav, 1000.0, 0.04);
+    let out = mic(dir.path(), &wav, &["--record", "3"]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("--record") && err.contains("cannot be used with"),
+        "{err}"
+    );
+    assert!(!dir.path().join("cal.yaml").exists());
+    // Neither: clap names what is required.
+    let out = tragus()
+        .args([
+            "calibrate",
+            "mic",
+            "--input",
+            "1",
+            "--calibrator-model",
+            "m",
+        ])
+        .args(["--calibrator-serial", "s", "--out"])
+        .arg(dir.path().join("cal.yaml"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("--capture"));
+}
+
+/// Without the `soundcard` feature `--record` says how to get a build that can record
+/// (the README's set-up commands build without it).
+#[cfg(not(feature = "soundcard"))]
+#[test]
+fn record_without_the_feature_says_how_to_get_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = tragus()
+        .args(["calibrate", "mic", "--record", "3", "--input", "1"])
+        .args([
+            "--calibrator-model",
+            "m",
+            "--calibrator-serial",
+            "s",
+            "--out",
+        ])
+        .arg(dir.path().join("cal.yaml"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("--features soundcard"), "{err}");
+    assert!(!dir.path().join("cal.yaml").exists());
 }

@@ -1,11 +1,19 @@
 //! `tragus calibrate mic|drive|tone`: make or update the station's calibration file.
 //!
-//! A reading updates one channel's entry of the file named by `--out` (created when missing,
-//! or anew with `--fresh`), written atomically. The file's date becomes now; its due date
+//! A reading comes from a WAV file (`--capture`) or is recorded through the sound card
+//! (`--record SECONDS`, feature `soundcard`): the calibrator on a microphone input, or the
+//! calibration tone played on a drive output and recorded through an input of known volts
+//! per full scale. A recording with an xrun or a stream fault is refused (exit 3) and a
+//! reading that is not a clean tone is refused (exit 2); either way nothing is written.
+//!
+//! A reading updates one channel's entry of the file named by `--out` (default: the
+//! `calibration:` of the `--station FILE`; created when missing, or anew with `--fresh`),
+//! written atomically. The file's date becomes now; its due date
 //! becomes today + `--due-days` (default [`DEFAULT_DUE_DAYS`]), but never later than the due
 //! date it already had unless `--fresh` starts it over: a new microphone reading does not
 //! make an old drive reading younger.
 
+use super::soundcard_args::SoundcardArgs;
 use super::{write_atomic, Exit};
 use crate::calibration::{
     calibrate_microphone, drive_from_input, drive_from_meter, format_date, load_calibration,
@@ -37,29 +45,45 @@ pub enum What {
 /// Options every reading shares.
 #[derive(Debug, clap::Args)]
 pub struct Common {
-    /// The calibration file to create or update.
+    /// The calibration file to create or update; default: the station file's
+    /// `calibration:`.
     #[arg(long, value_name = "CAL.yaml")]
-    pub out: PathBuf,
+    pub out: Option<PathBuf>,
     /// Start the file anew instead of updating it.
     #[arg(long)]
     pub fresh: bool,
-    /// Station the calibration belongs to (default: the file's, else `bench-1`).
-    #[arg(long)]
-    pub station: Option<String>,
+    /// Station file: the calibration belongs to its station id, `--record` uses its audio
+    /// settings, and `--out` defaults to its `calibration:` path.
+    #[arg(long, value_name = "FILE")]
+    pub station: Option<PathBuf>,
+    /// Station id the calibration belongs to when no station file is given (default: the
+    /// file's, else `bench-1`).
+    #[arg(long, value_name = "ID", conflicts_with = "station")]
+    pub station_id: Option<String>,
     /// Who calibrates (defaults to $USER).
     #[arg(long)]
     pub operator: Option<String>,
     /// Days until the calibration is due.
     #[arg(long, default_value_t = DEFAULT_DUE_DAYS, value_name = "DAYS")]
     pub due_days: u32,
+    /// Sound-card options for `--record` (override the station's `audio:` settings).
+    #[command(flatten)]
+    pub soundcard: SoundcardArgs,
 }
 
 /// Arguments of `calibrate mic`.
 #[derive(Debug, clap::Args)]
 pub struct MicArgs {
     /// Recording of the calibrator tone (WAV; other channels are ignored).
-    #[arg(long, value_name = "FILE.wav")]
-    pub capture: PathBuf,
+    #[arg(long, value_name = "FILE.wav", required_unless_present = "record")]
+    pub capture: Option<PathBuf>,
+    /// Record the calibrator through the sound card for this long instead (the outputs
+    /// play silence meanwhile), s.
+    #[arg(long, value_name = "SECONDS", conflicts_with = "capture")]
+    pub record: Option<f64>,
+    /// Sample rate of `--record`, Hz.
+    #[arg(long, default_value_t = 48_000, value_name = "HZ", requires = "record")]
+    pub rate_hz: u32,
     /// Input channel (1-based) the microphone is on; also its channel in the WAV.
     #[arg(long, value_name = "N")]
     pub input: usize,
@@ -104,6 +128,18 @@ pub struct DriveArgs {
     /// Input method: the recording of the output through a calibrated input (WAV).
     #[arg(long, value_name = "FILE.wav", requires_all = ["input", "input_volts_peak_per_fs"])]
     pub capture: Option<PathBuf>,
+    /// Input method through the sound card: play the sine (`--tone-dbfs`, `--freq-hz`) on
+    /// `--output` for this long while recording `--input`, s.
+    #[arg(
+        long,
+        value_name = "SECONDS",
+        conflicts_with_all = ["capture", "measured_v_rms"],
+        requires_all = ["input", "input_volts_peak_per_fs"]
+    )]
+    pub record: Option<f64>,
+    /// Sample rate of `--record`, Hz.
+    #[arg(long, default_value_t = 48_000, value_name = "HZ", requires = "record")]
+    pub rate_hz: u32,
     /// Input method: the input channel (1-based) that recorded the output.
     #[arg(long, value_name = "N")]
     pub input: Option<usize>,
@@ -174,8 +210,37 @@ fn wav_channel(path: &Path, channel: usize, what: &str) -> Result<(u32, Vec<f32>
     Ok((data.sample_rate_hz, channels.swap_remove(channel - 1)))
 }
 
-/// The file to update (or a new one), with date, due date, operator and station set.
-fn start(common: &Common) -> Result<Calibration, Exit> {
+/// The station file of `--station`, if given.
+fn load_station(common: &Common) -> Result<Option<crate::station::Station>, Exit> {
+    common
+        .station
+        .as_deref()
+        .map(super::unit::load_station)
+        .transpose()
+}
+
+/// The file to update (or a new one), with date, due date, operator and station set. The
+/// station id comes from the station file, else `--station-id`, else the file's own.
+fn start(common: &Common, station: Option<&crate::station::Station>) -> Result<Calibration, Exit> {
+    let out = match (&common.out, station) {
+        (Some(p), _) => p.clone(),
+        (None, Some(st)) => st.calibration.clone().ok_or_else(|| {
+            Exit::bad_input(anyhow::anyhow!(
+                "--out: expected a calibration file to write; the station file {} names no \
+                 `calibration:`",
+                st.source.display()
+            ))
+        })?,
+        (None, None) => {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "--out: expected a calibration file to write (or --station FILE whose \
+                 `calibration:` names one)"
+            )))
+        }
+    };
+    let station_id = station
+        .map(|s| s.id.clone())
+        .or_else(|| common.station_id.clone());
     let today = Calibration::today_utc();
     let due = today
         .checked_add(time::Duration::days(i64::from(common.due_days)))
@@ -185,8 +250,8 @@ fn start(common: &Common) -> Result<Calibration, Exit> {
         .clone()
         .or_else(|| std::env::var("USER").ok())
         .unwrap_or_else(|| "unknown".into());
-    let existing = if !common.fresh && common.out.exists() {
-        Some(load_calibration(&common.out).map_err(|e| match e {
+    let existing = if !common.fresh && out.exists() {
+        Some(load_calibration(&out).map_err(|e| match e {
             CalibrationError::Invalid(p) => Exit::problems("calibration", &p),
             other => Exit::bad_input(other),
         })?)
@@ -195,12 +260,12 @@ fn start(common: &Common) -> Result<Calibration, Exit> {
     };
     let mut cal = match existing {
         Some(mut c) => {
-            if let Some(s) = &common.station {
+            if let Some(s) = &station_id {
                 if *s != c.station {
                     return Err(Exit::bad_input(anyhow::anyhow!(
-                        "--station {s}: {} belongs to station `{}`; use --fresh to start a \
+                        "station `{s}`: {} belongs to station `{}`; use --fresh to start a \
                          calibration for `{s}`",
-                        common.out.display(),
+                        out.display(),
                         c.station
                     )));
                 }
@@ -209,14 +274,14 @@ fn start(common: &Common) -> Result<Calibration, Exit> {
             c
         }
         None => Calibration {
-            station: common.station.clone().unwrap_or_else(|| "bench-1".into()),
+            station: station_id.unwrap_or_else(|| "bench-1".into()),
             date_utc: String::new(),
             due_date: due,
             operator: String::new(),
             instruments: Vec::new(),
             microphone: BTreeMap::new(),
             drive: BTreeMap::new(),
-            source: common.out.clone(),
+            source: out,
         },
     };
     cal.date_utc = Calibration::now_utc();
@@ -248,6 +313,30 @@ fn finish(cal: &Calibration, what: &str) -> Result<i32, Exit> {
     Ok(super::EXIT_PASS)
 }
 
+/// Where a reading's samples come from, for messages: the WAV's path or the sound card.
+fn source_label(capture: Option<&Path>) -> String {
+    capture.map_or_else(|| "sound card".into(), |p| p.display().to_string())
+}
+
+/// `--record SECONDS` checked: long enough for a tone reading, short enough to hold.
+fn record_samples(seconds: f64, rate_hz: u32) -> Result<usize, Exit> {
+    use crate::calibration::tone::MIN_DURATION_S;
+    // The tone reading judges the middle 80 % of what it is given (tone.rs); a drive
+    // recording is cut to the tone's own length, so the tone itself must be long enough.
+    let max_s = 600.0;
+    if !(seconds.is_finite() && (MIN_DURATION_S..=max_s).contains(&seconds)) {
+        return Err(Exit::bad_input(anyhow::anyhow!(
+            "--record: expected {MIN_DURATION_S} to {max_s} s, found {seconds}"
+        )));
+    }
+    if !(8_000..=384_000).contains(&rate_hz) {
+        return Err(Exit::bad_input(anyhow::anyhow!(
+            "--rate-hz: expected 8000 to 384000 Hz, found {rate_hz}"
+        )));
+    }
+    Ok((seconds * f64::from(rate_hz)).round() as usize)
+}
+
 fn mic(a: MicArgs) -> Result<i32, Exit> {
     let input = one_based("--input", a.input)?;
     let ok = a.freq_hz > 0.0 && a.level_db > 0.0 && a.level_db < 200.0;
@@ -259,14 +348,32 @@ fn mic(a: MicArgs) -> Result<i32, Exit> {
             a.level_db
         )));
     }
-    let (rate, samples) = wav_channel(&a.capture, input, "--input")?;
+    let station = load_station(&a.common)?;
+    // The file is checked before anything is recorded: a reading is not thrown away for a
+    // file problem found afterwards.
+    let mut cal = start(&a.common, station.as_ref())?;
+    let (rate, samples) = match (&a.capture, a.record) {
+        (Some(path), _) => wav_channel(path, input, "--input")?,
+        (None, Some(seconds)) => {
+            let n = record_samples(seconds, a.rate_hz)?;
+            let spec = a.common.soundcard.spec_for(station.as_ref());
+            // Silence on output 1 (every station has one): the recording primitive plays
+            // and records together, and silence disturbs no calibrator.
+            let rec = record_through_soundcard(spec, (0, input - 1), a.rate_hz, &[vec![0.0; n]])?;
+            (a.rate_hz, rec)
+        }
+        (None, None) => {
+            return Err(Exit::bad_input(anyhow::anyhow!(
+                "calibrate mic: expected --capture FILE.wav or --record SECONDS"
+            )))
+        }
+    };
     let m = calibrate_microphone(&samples, rate, a.level_db, a.freq_hz).map_err(|e| {
         Exit::bad_input(anyhow::anyhow!(
             "{} input {input}: {e}; nothing was written",
-            a.capture.display()
+            source_label(a.capture.as_deref())
         ))
     })?;
-    let mut cal = start(&a.common)?;
     add_instrument(
         &mut cal,
         "calibrator",
@@ -288,8 +395,10 @@ fn mic(a: MicArgs) -> Result<i32, Exit> {
 
 fn drive(a: DriveArgs) -> Result<i32, Exit> {
     let output = one_based("--output", a.output)?;
-    let (d, instrument) = match (a.measured_v_rms, &a.capture) {
-        (Some(v), None) => {
+    let station = load_station(&a.common)?;
+    let mut cal = start(&a.common, station.as_ref())?;
+    let (d, instrument) = match (a.measured_v_rms, &a.capture, a.record) {
+        (Some(v), None, None) => {
             let d = drive_from_meter(v, a.tone_dbfs, a.freq_hz).map_err(Exit::bad_input)?;
             let inst = match (&a.meter_model, &a.meter_serial) {
                 (Some(m), Some(s)) => Some((m.clone(), s.clone())),
@@ -302,27 +411,35 @@ fn drive(a: DriveArgs) -> Result<i32, Exit> {
             };
             (d, inst)
         }
-        (None, Some(path)) => {
+        (None, Some(_), None) | (None, None, Some(_)) => {
             let input = one_based("--input", a.input.unwrap_or(0))?;
             let gain = a.input_volts_peak_per_fs.unwrap_or(f64::NAN);
-            let (rate, samples) = wav_channel(path, input, "--input")?;
+            let (rate, samples) = match (&a.capture, a.record) {
+                (Some(path), _) => wav_channel(path, input, "--input")?,
+                (None, seconds) => {
+                    let seconds = seconds.unwrap_or(f64::NAN);
+                    (
+                        a.rate_hz,
+                        record_drive_tone(&a, station.as_ref(), output, input, seconds, gain)?,
+                    )
+                }
+            };
             let d =
                 drive_from_input(&samples, rate, gain, a.tone_dbfs, a.freq_hz).map_err(|e| {
                     Exit::bad_input(anyhow::anyhow!(
                         "{} input {input}: {e}; nothing was written",
-                        path.display()
+                        source_label(a.capture.as_deref())
                     ))
                 })?;
             (d, None)
         }
         _ => {
             return Err(Exit::bad_input(anyhow::anyhow!(
-                "calibrate drive: expected --measured-v-rms V (meter) or --capture FILE.wav \
-                 --input N --input-volts-peak-per-fs V (calibrated input)"
+                "calibrate drive: expected --measured-v-rms V (meter), or --capture FILE.wav or \
+                 --record SECONDS with --input N --input-volts-peak-per-fs V (calibrated input)"
             )))
         }
     };
-    let mut cal = start(&a.common)?;
     if let Some((m, s)) = instrument {
         add_instrument(&mut cal, "meter", &m, &s);
     }
@@ -333,6 +450,116 @@ fn drive(a: DriveArgs) -> Result<i32, Exit> {
     );
     cal.drive.insert(output, d);
     finish(&cal, &what)
+}
+
+/// Fade at each end of the tone `calibrate drive --record` plays, s: a hard start clicks
+/// in the transducer; the reading judges only the middle 80 % of the tone anyway.
+const DRIVE_FADE_S: f64 = 0.01;
+
+/// `amp · sin(2π f k / fs)` for `k = 0..n`, computed in f64.
+fn sine(amp: f64, freq_hz: f64, rate_hz: u32, n: usize) -> Vec<f32> {
+    let w = 2.0 * std::f64::consts::PI * freq_hz / f64::from(rate_hz);
+    (0..n)
+        .map(|i| (amp * (w * i as f64).sin()) as f32)
+        .collect()
+}
+
+/// Play the calibration sine on `output` and return the part of `input`'s recording that
+/// holds it (found by cross-correlation, never by an assumed latency).
+fn record_drive_tone(
+    a: &DriveArgs,
+    station: Option<&crate::station::Station>,
+    output: usize,
+    input: usize,
+    seconds: f64,
+    gain: f64,
+) -> Result<Vec<f32>, Exit> {
+    let n = record_samples(seconds, a.rate_hz)?;
+    // Checked before playing: nothing out of range reaches the output.
+    let ok = gain > 0.0
+        && (-60.0..=0.0).contains(&a.tone_dbfs)
+        && a.freq_hz > 0.0
+        && a.freq_hz < f64::from(a.rate_hz) / 2.0;
+    if !ok {
+        return Err(Exit::bad_input(anyhow::anyhow!(
+            "calibrate drive --record: expected --input-volts-peak-per-fs above 0, --tone-dbfs \
+             from -60 to 0 and 0 < --freq-hz < rate/2, found {gain} V, {} dBFS, {} Hz",
+            a.tone_dbfs,
+            a.freq_hz
+        )));
+    }
+    let amp = 10f64.powf(a.tone_dbfs / 20.0);
+    let mut tone = sine(amp, a.freq_hz, a.rate_hz, n);
+    let fade = ((DRIVE_FADE_S * f64::from(a.rate_hz)) as usize).min(n / 2);
+    for k in 0..fade {
+        // Raised-cosine ramp, 0 at the first sample.
+        let g = (0.5 - 0.5 * (std::f64::consts::PI * k as f64 / fade as f64).cos()) as f32;
+        tone[k] *= g;
+        tone[n - 1 - k] *= g;
+    }
+    let mut outputs = vec![vec![0.0f32; n]; output];
+    outputs[output - 1] = tone;
+    let spec = a.common.soundcard.spec_for(station);
+    let rec = record_through_soundcard(spec, (output - 1, input - 1), a.rate_hz, &outputs)?;
+    let max_lag = rec.len().saturating_sub(n);
+    let found = crate::rig::align::find_delay(&outputs[output - 1], &rec, max_lag)
+        .filter(|d| d.is_confident())
+        .ok_or_else(|| {
+            Exit::bad_input(anyhow::anyhow!(
+                "sound card input {input}: the tone played on output {output} is not in the \
+                 recording (check the wiring, the channel numbers and the levels); nothing was \
+                 written"
+            ))
+        })?;
+    let start = usize::try_from(found.lag_samples).unwrap_or(0).min(max_lag);
+    tracing::info!(lag_samples = start, "drive tone found in the recording");
+    Ok(rec[start..start + n].to_vec())
+}
+
+/// Play `outputs` and record through the sound card; the samples of device input
+/// `route.1` (0-based). `route` is the output and input the reading uses, so the devices
+/// are opened with enough channels for both.
+#[cfg(feature = "soundcard")]
+fn record_through_soundcard(
+    spec: crate::rig::SoundcardSpec,
+    route: (usize, usize),
+    rate_hz: u32,
+    outputs: &[Vec<f32>],
+) -> Result<Vec<f32>, Exit> {
+    let nothing = |e: crate::rig::RigError| {
+        let exit = Exit::from_rig(e);
+        Exit {
+            code: exit.code,
+            error: exit.error.context("nothing was written"),
+        }
+    };
+    let mut rig =
+        crate::rig::soundcard::SoundcardRig::open(spec, vec![route], rate_hz).map_err(nothing)?;
+    let rec = rig.play_and_record(outputs).map_err(nothing)?;
+    let mut channels = rec.channels;
+    // `open` made sure the input stream has this channel; kept total all the same.
+    if route.1 >= channels.len() {
+        return Err(Exit::bad_input(anyhow::anyhow!(
+            "--input {}: expected an input channel of the device, which has {}; nothing was \
+             written",
+            route.1 + 1,
+            channels.len()
+        )));
+    }
+    Ok(channels.swap_remove(route.1))
+}
+
+#[cfg(not(feature = "soundcard"))]
+fn record_through_soundcard(
+    _spec: crate::rig::SoundcardSpec,
+    _route: (usize, usize),
+    _rate_hz: u32,
+    _outputs: &[Vec<f32>],
+) -> Result<Vec<f32>, Exit> {
+    Err(Exit::bad_input(anyhow::anyhow!(
+        "--record: {}",
+        super::devices::NOT_BUILT
+    )))
 }
 
 fn tone(a: ToneArgs) -> Result<i32, Exit> {
@@ -352,11 +579,8 @@ fn tone(a: ToneArgs) -> Result<i32, Exit> {
     }
     let amp = 10f64.powf(a.tone_dbfs / 20.0);
     let n = (a.duration_s * f64::from(a.rate_hz)).round() as usize;
-    let w = 2.0 * std::f64::consts::PI * a.freq_hz / f64::from(a.rate_hz);
     let mut channels = vec![vec![0.0f32; n]; n_ch];
-    for (i, s) in channels[output - 1].iter_mut().enumerate() {
-        *s = (amp * (w * i as f64).sin()) as f32;
-    }
+    channels[output - 1] = sine(amp, a.freq_hz, a.rate_hz, n);
     let bytes = crate::wav::encode_wav_f32(a.rate_hz, &channels).map_err(Exit::bad_input)?;
     write_atomic(&a.out, &bytes).map_err(Exit::bad_input)?;
     println!(

@@ -12,6 +12,7 @@ mod devices;
 mod pipeline;
 mod records;
 mod run;
+mod soundcard_args;
 mod station;
 mod stimulus;
 mod unit;

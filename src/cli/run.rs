@@ -1,9 +1,9 @@
 //! `tragus run PLAN --serial SN [--station FILE] [--rig simulated|soundcard] [--store DIR]
 //! [--json OUT]`: one unit end to end ([`super::unit`]), then the human report or JSON.
 
+use super::soundcard_args::SoundcardArgs;
 use super::unit::{self, Bench, BenchOptions, UnitStop};
 use super::{Exit, JsonOut, Output};
-use crate::rig::SoundcardSpec;
 use std::path::PathBuf;
 
 pub use super::unit::RigChoice;
@@ -46,26 +46,6 @@ pub struct Args {
     /// file's `fixture`.
     #[arg(long, value_name = "MODEL.yaml")]
     pub fixture: Option<PathBuf>,
-    /// Sound-card rig: cpal host (`alsa`, `jack`, ...); default: the default host.
-    #[arg(long, value_name = "HOST")]
-    pub host: Option<String>,
-    /// Sound-card rig: output device (id or name, see `tragus devices`); default: the
-    /// host's default output.
-    #[arg(long, value_name = "DEVICE")]
-    pub output_device: Option<String>,
-    /// Sound-card rig: input device; default: the host's default input.
-    #[arg(long, value_name = "DEVICE")]
-    pub input_device: Option<String>,
-    /// Sound-card rig: buffer size, frames; default: the device's.
-    #[arg(long, value_name = "FRAMES")]
-    pub buffer_frames: Option<u32>,
-    /// Sound-card rig: input channel (1-based) wired back from `--loopback-output`
-    /// (latency and clock reference).
-    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u16).range(1..), requires = "loopback_output")]
-    pub loopback_input: Option<u16>,
-    /// Sound-card rig: output channel (1-based) the loopback input replays.
-    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u16).range(1..), requires = "loopback_input")]
-    pub loopback_output: Option<u16>,
     /// Write the result JSON here (`-` for stdout: human output then goes nowhere).
     #[arg(long, value_name = "OUT")]
     pub json: Option<JsonOut>,
@@ -78,29 +58,10 @@ pub struct Args {
     /// calibration; every record then says `non-production`.
     #[arg(long)]
     pub non_production: bool,
-}
-
-/// The sound-card settings: the station's, with any option given on the command line
-/// winning.
-fn soundcard_spec(args: &Args, station: Option<&crate::station::Station>) -> SoundcardSpec {
-    let mut spec = station.map(|s| s.soundcard.clone()).unwrap_or_default();
-    if let Some(h) = &args.host {
-        spec.host = Some(h.clone());
-    }
-    if let Some(d) = &args.output_device {
-        spec.output_device = Some(d.clone());
-    }
-    if let Some(d) = &args.input_device {
-        spec.input_device = Some(d.clone());
-    }
-    if let Some(b) = args.buffer_frames {
-        spec.buffer_frames = Some(b);
-    }
-    if let (Some(i), Some(o)) = (args.loopback_input, args.loopback_output) {
-        spec.loopback_input = Some(usize::from(i) - 1);
-        spec.loopback_output = Some(usize::from(o) - 1);
-    }
-    spec
+    // Last: clap puts every option after a flattened heading under that heading.
+    /// Sound-card options (override the station's `audio:` settings).
+    #[command(flatten)]
+    pub soundcard: SoundcardArgs,
 }
 
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
@@ -119,7 +80,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         operator: args.operator.clone(),
         calibration: args.calibration.as_deref(),
         non_production: args.non_production,
-        soundcard: soundcard_spec(&args, station.as_ref()),
+        soundcard: args.soundcard.spec_for(station.as_ref()),
     })?;
     let sim = bench.sim_choice(&args.sim_unit, args.sim_channel.as_deref())?;
     let tested = match bench.test_unit(&args.serial, &sim, &|| false) {

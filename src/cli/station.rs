@@ -16,6 +16,7 @@
 //! `--json OUT` writes JSON Lines: one `{"kind":"unit",...}` line per recorded unit, then one
 //! `{"kind":"summary",...}` line. With `--json -` the operator screen goes to stderr.
 
+use super::soundcard_args::SoundcardArgs;
 use super::unit::{self, Bench, BenchOptions, SimChoice, Tested, UnitStop};
 use super::{Exit, JsonOut, Output, EXIT_PASS};
 use crate::station::tally::{check_serial, Counts, Tally};
@@ -54,6 +55,9 @@ pub struct Args {
     /// (operator training; tests use it to press Ctrl-C during a unit).
     #[arg(long)]
     pub sim_realtime: bool,
+    /// Sound-card options (override the station's `audio:` settings).
+    #[command(flatten)]
+    pub soundcard: SoundcardArgs,
 }
 
 /// Why the loop stopped.
@@ -172,7 +176,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         operator: args.operator.clone(),
         calibration: None,
         non_production: false,
-        soundcard: station.soundcard.clone(),
+        soundcard: args.soundcard.spec_for(Some(&station)),
     })?;
     bench.pace_realtime = args.sim_realtime;
     let sims = parse_sim_units(&bench, &args.sim_unit)?;

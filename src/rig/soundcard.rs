@@ -10,6 +10,16 @@
 //! atomic counters. A full input ring, and every cpal xrun or stream error, is counted and
 //! makes the measurement a retest ([`Capture::xruns`], [`Capture::faults`]).
 //!
+//! A sound server hides its own underruns unless its client library passes them on: through
+//! ALSA's `pulse` plugin a server-side underrun reaches cpal as an xrun only while the
+//! plugin's `handle_underrun` option is on (its default in the plugin versions read; the
+//! test server's ALSA configuration sets it explicitly, and a station should too).
+//!
+//! # Recording without a sweep
+//! [`SoundcardRig::play_and_record`] plays given buffers (silence for a sound calibrator,
+//! a tone for a drive reading) and records every input through the same streams and
+//! callbacks; a recording with any xrun or fault is an error there, never a reading.
+//!
 //! # Alignment (what is removed from the recording)
 //! The input starts before the output, so the recording holds some silence, then the
 //! stimulus delayed by the device path. The capture handed on starts at the recording
@@ -34,7 +44,7 @@
 
 use super::align;
 use super::soundcard_spec::SoundcardSpec;
-use super::{Capture, Rig, RigError};
+use super::{Capture, Guard, GuardTrip, Rig, RigError};
 use crate::dsp::sweep::Stimulus;
 use cpal::traits::{DeviceTrait, HostTrait, StreamTrait};
 use cpal::{
@@ -132,6 +142,8 @@ pub struct SoundcardRig {
     sample_rate_hz: u32,
     output: Endpoint,
     input: Endpoint,
+    /// The hearing-safety guard the callbacks run, when armed.
+    guard: Option<Guard>,
 }
 
 impl std::fmt::Debug for SoundcardRig {
@@ -425,6 +437,7 @@ impl SoundcardRig {
             sample_rate_hz,
             output,
             input,
+            guard: None,
         })
     }
 
@@ -459,6 +472,63 @@ struct Shared {
     output_latency_ns: AtomicU64,
     /// Largest input latency the callbacks reported (callback − capture time), ns.
     input_latency_ns: AtomicU64,
+    /// The run-time guard (read only in the callbacks; its vectors are built beforehand).
+    guard: Option<Guard>,
+    /// The input callback saw a watched input over its limit.
+    guard_tripped: AtomicBool,
+    /// Which input (0-based).
+    guard_input: AtomicUsize,
+    /// Input frame (from the input's first frame) of the first sample over the limit.
+    guard_first_frame: AtomicUsize,
+    /// Its magnitude and the limit, f64 bits.
+    guard_peak_bits: AtomicU64,
+    guard_limit_bits: AtomicU64,
+    /// Output frame at which the output callback began the fade; `usize::MAX` = none.
+    fade_start_frame: AtomicUsize,
+}
+
+impl Shared {
+    fn new(guard: Option<Guard>) -> Shared {
+        Shared {
+            frames_played: AtomicUsize::new(0),
+            output_done: AtomicBool::new(false),
+            ring_overruns: AtomicU32::new(0),
+            xruns: AtomicU32::new(0),
+            stream_errors: AtomicU32::new(0),
+            output_latency_ns: AtomicU64::new(0),
+            input_latency_ns: AtomicU64::new(0),
+            guard,
+            guard_tripped: AtomicBool::new(false),
+            guard_input: AtomicUsize::new(0),
+            guard_first_frame: AtomicUsize::new(0),
+            guard_peak_bits: AtomicU64::new(0),
+            guard_limit_bits: AtomicU64::new(0),
+            fade_start_frame: AtomicUsize::new(usize::MAX),
+        }
+    }
+
+    /// What the guard saw and did, once the streams have stopped.
+    fn guard_trip(&self) -> Option<GuardTrip> {
+        if !self.guard_tripped.load(Ordering::Acquire) {
+            return None;
+        }
+        let fade_frames = self.guard.as_ref().map_or(1, |g| g.fade_frames.max(1));
+        let fade_start = self.fade_start_frame.load(Ordering::Acquire);
+        // The output may have finished before the trip was seen: nothing was left to fade.
+        let fade_start = if fade_start == usize::MAX {
+            self.frames_played.load(Ordering::Acquire)
+        } else {
+            fade_start
+        };
+        Some(GuardTrip {
+            input: self.guard_input.load(Ordering::Acquire),
+            first_over_sample: self.guard_first_frame.load(Ordering::Acquire),
+            peak_fs: f64::from_bits(self.guard_peak_bits.load(Ordering::Acquire)),
+            limit_fs: f64::from_bits(self.guard_limit_bits.load(Ordering::Acquire)),
+            fade_start_sample: fade_start,
+            silent_from_sample: fade_start + fade_frames - 1,
+        })
+    }
 }
 
 /// Map a cpal build/play error: a busy or vanished device is worth a retry (fault), a
@@ -494,6 +564,8 @@ where
 {
     let channels = usize::from(config.channels);
     let mut cursor = 0usize;
+    let mut fade_at: Option<usize> = None;
+    let fade_frames = shared.guard.as_ref().map_or(1, |g| g.fade_frames.max(1));
     device.build_output_stream::<T, _, _>(
         *config,
         move |data: &mut [T], info: &cpal::OutputCallbackInfo| {
@@ -503,8 +575,36 @@ where
                 .output_latency_ns
                 .fetch_max(latency.as_nanos() as u64, Ordering::Relaxed);
             let n = data.len().min(rendered.len().saturating_sub(cursor));
-            for (d, &s) in data[..n].iter_mut().zip(&rendered[cursor..cursor + n]) {
-                *d = T::from_sample(s);
+            // Hearing-safety guard: once the input callback saw a level over its limit,
+            // every frame from here on is faded to silence (raised cosine, all channels
+            // alike; src/safety/ramp.rs). Arithmetic only: no allocation, no lock.
+            if fade_at.is_none() && shared.guard_tripped.load(Ordering::Acquire) {
+                let frame = cursor / channels.max(1);
+                fade_at = Some(frame);
+                shared.fade_start_frame.store(frame, Ordering::Release);
+            }
+            match fade_at {
+                None => {
+                    for (d, &s) in data[..n].iter_mut().zip(&rendered[cursor..cursor + n]) {
+                        *d = T::from_sample(s);
+                    }
+                }
+                Some(start) => {
+                    for (i, (d, &s)) in data[..n]
+                        .iter_mut()
+                        .zip(&rendered[cursor..cursor + n])
+                        .enumerate()
+                    {
+                        let frame = (cursor + i) / channels.max(1);
+                        let k = frame - start + 1;
+                        let g = if k >= fade_frames {
+                            0.0
+                        } else {
+                            crate::safety::ramp::fade_gain(k, fade_frames)
+                        };
+                        *d = T::from_sample((f64::from(s) * g) as f32);
+                    }
+                }
             }
             for d in &mut data[n..] {
                 *d = T::EQUILIBRIUM;
@@ -534,6 +634,8 @@ where
     T: SizedSample,
     f32: FromSample<T>,
 {
+    let channels = usize::from(config.channels);
+    let mut frames_seen = 0usize;
     device.build_input_stream::<T, _, _>(
         *config,
         move |data: &[T], info: &cpal::InputCallbackInfo| {
@@ -546,6 +648,12 @@ where
             if n < data.len() {
                 shared.ring_overruns.fetch_add(1, Ordering::Relaxed);
             }
+            if let Some(g) = &shared.guard {
+                if !shared.guard_tripped.load(Ordering::Relaxed) {
+                    watch(g, &shared, data, channels, frames_seen);
+                }
+            }
+            frames_seen += data.len() / channels.max(1);
             if let Ok(mut chunk) = ring.write_chunk(n) {
                 let (a, b) = chunk.as_mut_slices();
                 let split = a.len();
@@ -561,6 +669,51 @@ where
         move |e| note_error(&err_shared, &mut errors, e),
         None,
     )
+}
+
+/// The guard's level watch over one input callback's interleaved block, from input frame
+/// `first_frame` on: the first watched sample over its block's limit (or not finite) trips
+/// the guard. Arithmetic only: no allocation, no lock.
+fn watch<T>(g: &Guard, shared: &Shared, data: &[T], channels: usize, first_frame: usize)
+where
+    T: SizedSample,
+    f32: FromSample<T>,
+{
+    let block = g.block_frames.max(1);
+    for (f, frame) in data.chunks(channels.max(1)).enumerate() {
+        let k = first_frame + f;
+        for (c, limits) in g.limits_fs.iter().enumerate().take(frame.len()) {
+            let Some(limits) = limits else { continue };
+            let Some(&last) = limits.last() else { continue };
+            let limit = limits.get(k / block).copied().unwrap_or(last);
+            let x = f64::from(f32::from_sample(frame[c]));
+            if !x.is_finite() || x.abs() > limit {
+                shared.guard_input.store(c, Ordering::Relaxed);
+                shared.guard_first_frame.store(k, Ordering::Relaxed);
+                shared.guard_peak_bits.store(x.abs().to_bits(), Ordering::Relaxed);
+                shared.guard_limit_bits.store(limit.to_bits(), Ordering::Relaxed);
+                shared.guard_tripped.store(true, Ordering::Release);
+                return;
+            }
+        }
+    }
+}
+
+/// A stream error as the retest reason shows it: an xrun says what it means for the
+/// measurement (samples lost) and where to look; other errors keep cpal's kind and text
+/// (once: an xrun's text repeats its kind).
+fn error_text(e: &cpal::Error) -> String {
+    if e.kind() == ErrorKind::Xrun {
+        return "xrun: samples were lost (a buffer underrun or overrun in the device or the \
+                sound server)"
+            .into();
+    }
+    let (kind, text) = (e.kind().to_string(), e.to_string());
+    if text.contains(&kind) {
+        format!("stream error: {text}")
+    } else {
+        format!("stream error: {kind}: {text}")
+    }
 }
 
 /// Error callback body: counters and a ring push only (the callback may run on the audio
@@ -598,36 +751,126 @@ macro_rules! by_format {
     };
 }
 
-/// What one run recorded, before alignment.
-struct Recording {
+/// What one run recorded, before alignment, with what went wrong while recording.
+struct RawRecording {
     /// Per input channel.
     channels: Vec<Vec<f32>>,
+    /// cpal xruns and input-ring overruns.
     xruns: u32,
     faults: Vec<String>,
+    /// The guard's trip, in input and output frames from each stream's first frame.
+    guard_trip: Option<GuardTrip>,
 }
 
+/// A clean recording made by [`SoundcardRig::play_and_record`]: every input channel of
+/// the input device, from the input's first sample (before the output started) to the
+/// tail after the last output sample. Not aligned: the device latency is in it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Recording {
+    /// Sample rate, Hz (the rate the devices were opened at).
+    pub sample_rate_hz: u32,
+    /// Per device input channel (0-based), full scale ±1.0.
+    pub channels: Vec<Vec<f32>>,
+}
+
+/// Longest buffer [`SoundcardRig::play_and_record`] plays, s: ten minutes of a 64-channel
+/// float buffer is 7 GB at 48 kHz; a calibration reading needs seconds.
+pub const MAX_PLAY_S: f64 = 600.0;
+
 impl SoundcardRig {
-    /// Render, play, record; no alignment yet.
-    fn record(&self, stimulus: &Stimulus) -> Result<Recording, RigError> {
+    /// Play `outputs` (one buffer per device output channel from output 1, all of the same
+    /// length, full scale ±1.0; device channels past the last buffer play silence) and
+    /// record every input channel for as long, plus the device latencies and a tail.
+    ///
+    /// The same streams, real-time-safe callbacks and fault counting as a measurement
+    /// ([`Rig::play_and_capture`]). For readings made outside a sweep, such as a sound
+    /// calibrator on a microphone (`outputs` silent) or a calibration tone played through
+    /// a known input.
+    ///
+    /// # Errors
+    /// [`RigError::BadInput`] when the buffers are empty, of different lengths, longer
+    /// than [`MAX_PLAY_S`], hold a non-finite sample, or are more than the device's
+    /// outputs; [`RigError::Fault`] when the devices cannot be started, or when the
+    /// recording had an xrun, a dropped buffer or a stream error: nothing may be read
+    /// from a broken recording, so none is returned.
+    pub fn play_and_record(&mut self, outputs: &[Vec<f32>]) -> Result<Recording, RigError> {
+        let n_out = usize::from(self.output.config.channels);
+        let n_frames = outputs.first().map_or(0, Vec::len);
+        if n_frames == 0 {
+            return Err(bad(
+                "outputs",
+                "expected at least one output buffer of at least one sample, found none",
+            ));
+        }
+        if outputs.len() > n_out {
+            return Err(bad(
+                format!("output device {}", self.output.name),
+                format!(
+                    "expected at most {n_out} output buffers (the stream's channels), found {}",
+                    outputs.len()
+                ),
+            ));
+        }
+        if let Some((k, b)) = outputs
+            .iter()
+            .enumerate()
+            .find(|(_, b)| b.len() != n_frames)
+        {
+            return Err(bad(
+                format!("output {}", k + 1),
+                format!(
+                    "expected {n_frames} samples like output 1, found {}",
+                    b.len()
+                ),
+            ));
+        }
+        let max_frames = (MAX_PLAY_S * f64::from(self.sample_rate_hz)) as usize;
+        if n_frames > max_frames {
+            return Err(bad(
+                "outputs",
+                format!("expected at most {MAX_PLAY_S} s ({max_frames} samples), found {n_frames}"),
+            ));
+        }
+        for (k, b) in outputs.iter().enumerate() {
+            if let Some(i) = b.iter().position(|v| !v.is_finite()) {
+                return Err(bad(
+                    format!("output {}", k + 1),
+                    format!("expected finite samples, found {} at sample {i}", b[i]),
+                ));
+            }
+        }
+        let raw = self.record_raw(outputs, n_frames)?;
+        if raw.xruns > 0 || !raw.faults.is_empty() {
+            let mut why = raw.faults;
+            if raw.xruns > 0 && why.is_empty() {
+                why.push(format!("{} xrun(s)", raw.xruns));
+            }
+            return Err(RigError::Fault(format!(
+                "the recording is not usable, so nothing was read from it: {}",
+                why.join("; ")
+            )));
+        }
+        Ok(Recording {
+            sample_rate_hz: self.sample_rate_hz,
+            channels: raw.channels,
+        })
+    }
+
+    /// Render `outputs` (device channel order, `n_frames` each; buffers past the device's
+    /// channels are not played), play, record; no alignment. Faults and xruns are
+    /// reported in the result, not as an error, so a measurement can record them.
+    fn record_raw(&self, outputs: &[Vec<f32>], n_frames: usize) -> Result<RawRecording, RigError> {
         let fs = f64::from(self.sample_rate_hz);
-        let n_stim = stimulus.n_samples();
+        let n_stim = n_frames;
         let n_out = usize::from(self.output.config.channels);
         let n_in = usize::from(self.input.config.channels);
         let mut rendered = vec![0.0f32; n_stim * n_out];
-        for (d, ch) in stimulus.channels.iter().enumerate().take(n_out) {
-            for (k, &v) in ch.iter().enumerate() {
+        for (d, ch) in outputs.iter().enumerate().take(n_out) {
+            for (k, &v) in ch.iter().enumerate().take(n_stim) {
                 rendered[k * n_out + d] = v;
             }
         }
-        let shared = Arc::new(Shared {
-            frames_played: AtomicUsize::new(0),
-            output_done: AtomicBool::new(false),
-            ring_overruns: AtomicU32::new(0),
-            xruns: AtomicU32::new(0),
-            stream_errors: AtomicU32::new(0),
-            output_latency_ns: AtomicU64::new(0),
-            input_latency_ns: AtomicU64::new(0),
-        });
+        let shared = Arc::new(Shared::new(self.guard.clone()));
         let ring_len = ((RING_S * fs) as usize).max(4096) * n_in;
         let (producer, mut consumer) = rtrb::RingBuffer::<f32>::new(ring_len);
         let (in_err_p, mut in_err_c) = rtrb::RingBuffer::<cpal::Error>::new(64);
@@ -672,7 +915,8 @@ impl SoundcardRig {
                     kinds.push(kind.to_string());
                 }
                 return Err(RigError::Fault(format!(
-                    "{in_label}: the input delivered no samples within {STALL_S} s of starting                      (device lost or sound server stopped){}",
+                    "{in_label}: the input delivered no samples within {STALL_S} s of starting \
+                     (device lost or sound server stopped){}",
                     if kinds.is_empty() {
                         String::new()
                     } else {
@@ -751,14 +995,14 @@ impl SoundcardRig {
         for (label, errors) in [(&in_label, &mut in_err_c), (&out_label, &mut out_err_c)] {
             let mut kinds: Vec<(String, u32)> = Vec::new();
             while let Ok(e) = errors.pop() {
-                let kind = format!("{}: {e}", e.kind());
+                let kind = error_text(&e);
                 match kinds.iter_mut().find(|(k, _)| *k == kind) {
                     Some((_, n)) => *n += 1,
                     None => kinds.push((kind, 1)),
                 }
             }
             for (kind, n) in kinds {
-                faults.push(format!("{label}: stream error ({n}×): {kind}"));
+                faults.push(format!("{label}: {kind} ({n}×)"));
             }
         }
         let overruns = shared.ring_overruns.load(Ordering::Relaxed);
@@ -779,15 +1023,16 @@ impl SoundcardRig {
         let channels = (0..n_in)
             .map(|c| (0..n_frames).map(|k| interleaved[k * n_in + c]).collect())
             .collect();
-        Ok(Recording {
+        Ok(RawRecording {
             channels,
             xruns,
             faults,
+            guard_trip: shared.guard_trip(),
         })
     }
 
     /// The recording lag of stimulus sample 0 (see the module doc), or a fault message.
-    fn align(&self, stimulus: &Stimulus, rec: &Recording) -> Result<i64, String> {
+    fn align(&self, stimulus: &Stimulus, rec: &RawRecording) -> Result<i64, String> {
         let n_stim = stimulus.n_samples();
         let n_rec = rec.channels.first().map_or(0, Vec::len);
         let max_lag = n_rec.saturating_sub(n_stim / 2);
@@ -907,7 +1152,8 @@ impl SoundcardRig {
                 Some(d) if hz(a) >= DRIFT_FROM_HZ => points.push(((a + b) as f64 / 2.0, *d)),
                 Some(_) => {}
                 None => faults.push(format!(
-                    "loopback input {}: the sweep from {:.0} to {:.0} Hz did not arrive intact                      (a dropout or glitch in the device or sound server)",
+                    "loopback input {}: the sweep from {:.0} to {:.0} Hz did not arrive intact \
+                     (a dropout or glitch in the device or sound server)",
                     self.spec.loopback_input.map_or(0, |i| i + 1),
                     hz(a),
                     hz(b)
@@ -925,12 +1171,14 @@ impl SoundcardRig {
             );
             if residual > MAX_LOOPBACK_RESIDUAL_SAMPLES {
                 faults.push(format!(
-                    "loopback delay jumped by {residual:.1} samples during the sweep (samples                      lost or repeated)"
+                    "loopback delay jumped by {residual:.1} samples during the sweep (samples \
+                     lost or repeated)"
                 ));
             }
             if self.separate_devices() && ppm.abs() > self.spec.max_clock_drift_ppm {
                 faults.push(format!(
-                    "clock drift between output {} and input {} is {ppm:.1} ppm, above the                      bound of {} ppm",
+                    "clock drift between output {} and input {} is {ppm:.1} ppm, above the \
+                     bound of {} ppm",
                     self.output.name, self.input.name, self.spec.max_clock_drift_ppm
                 ));
             }
@@ -992,7 +1240,7 @@ impl Rig for SoundcardRig {
                 format!("expected {n_inputs} input channels, the stream has {n_in}"),
             ));
         }
-        let rec = self.record(stimulus)?;
+        let rec = self.record_raw(&stimulus.channels, stimulus.n_samples())?;
         let n_stim = stimulus.n_samples();
         let mut faults = rec.faults.clone();
         let lag = if faults.is_empty() && rec.xruns == 0 {
@@ -1035,13 +1283,57 @@ impl Rig for SoundcardRig {
                 "aligned"
             );
         }
+        // In capture samples: the input frame less the samples removed by the alignment.
+        let guard_trip = rec.guard_trip.clone().map(|mut t| {
+            t.first_over_sample = t.first_over_sample.saturating_sub(start);
+            t
+        });
         Ok(Capture {
             sample_rate_hz: self.sample_rate_hz,
             channels,
             xruns: rec.xruns,
             faults,
             device_latency_samples: lag,
+            guard_trip,
         })
+    }
+
+    fn play_raw(
+        &mut self,
+        outputs: &[Vec<f32>],
+        sample_rate_hz: u32,
+        n_inputs: usize,
+    ) -> Result<Capture, RigError> {
+        if sample_rate_hz != self.sample_rate_hz {
+            return Err(bad(
+                "outputs",
+                format!(
+                    "expected the rate the devices were opened at ({} Hz), found {sample_rate_hz} Hz",
+                    self.sample_rate_hz
+                ),
+            ));
+        }
+        let n_in = usize::from(self.input.config.channels);
+        if n_inputs > n_in {
+            return Err(bad(
+                format!("input device {}", self.input.name),
+                format!("expected {n_inputs} input channels, the stream has {n_in}"),
+            ));
+        }
+        let n_frames = outputs.iter().map(Vec::len).max().unwrap_or(0);
+        let rec = self.record_raw(outputs, n_frames)?;
+        Ok(Capture {
+            sample_rate_hz: self.sample_rate_hz,
+            channels: rec.channels,
+            xruns: rec.xruns,
+            faults: rec.faults,
+            device_latency_samples: None,
+            guard_trip: rec.guard_trip,
+        })
+    }
+
+    fn arm_guard(&mut self, guard: Option<Guard>) {
+        self.guard = guard;
     }
 }
 

@@ -316,6 +316,23 @@ impl SafetySetup {
             let (report, pilot_capture) = self.pilot(rig, stimulus, n_inputs)?;
             let decision = report.decision;
             safety.pilot = Some(report);
+            if pilot_capture.xruns > 0 || !pilot_capture.faults.is_empty() {
+                let reason = format!(
+                    "sweep abandoned: the pilot tone's recording is not usable ({}); its level \
+                     is unknown, so the unit was not swept",
+                    if pilot_capture.faults.is_empty() {
+                        format!("{} xrun(s)", pilot_capture.xruns)
+                    } else {
+                        pilot_capture.faults.join("; ")
+                    }
+                );
+                safety.events.push(reason.clone());
+                return Ok(SafeOutcome::Abandoned {
+                    capture: pilot_capture,
+                    reason,
+                    safety,
+                });
+            }
             if let Some(trip) = pilot_capture.guard_trip.clone() {
                 let reason = format!(
                     "hearing-safety guard tripped during the pilot tone (input {} at {:.3} FS, \

@@ -40,13 +40,30 @@ avoid-resampling = yes
 flat-volumes = no
 PA
     # ALSA's `default` → PulseAudio (libasound2-plugins' `pulse` plugin), via our own config
-    # file so the machine's /etc/asound.conf stays untouched.
+    # file so the machine's /etc/asound.conf stays untouched. `handle_underrun true`: a
+    # server-side underrun (the server ran out of our samples: samples lost) reaches the
+    # client as an xrun (EPIPE → cpal ErrorKind::Xrun) only with this option on. It is the
+    # plugin's default in alsa-plugins 1.2.7 (read in its source and its binary), but set
+    # here so that a lossy stall is an xrun whatever the installed version says.
     cat >"$dir/asound.conf" <<PA
-pcm.!default { type pulse server "unix:$sock" }
+pcm.!default { type pulse server "unix:$sock" handle_underrun true }
 ctl.!default { type pulse server "unix:$sock" }
 PA
+    # Loaded by a hook of our own that runs after alsa.conf's: alsa.conf's hook loads
+    # /etc/alsa/conf.d, whose 99-pulse.conf (pulseaudio package) loads pulse-alsa.conf's
+    # `pcm.!default { type pulse }` after every file on ALSA_CONFIG_PATH, so a definition
+    # merely appended there is overridden (seen: an invalid option in it was never read)
+    # and the plugin found the server through PULSE_SERVER alone. Hooks run in index order
+    # and alsa.conf has one (index 0).
     alsa_conf="$dir/alsa-all.conf"
-    printf '</usr/share/alsa/alsa.conf>\n<%s>\n' "$dir/asound.conf" >"$alsa_conf"
+    cat >"$alsa_conf" <<PA
+</usr/share/alsa/alsa.conf>
+@hooks.1 {
+	func load
+	files [ "$dir/asound.conf" ]
+	errors true
+}
+PA
     export PULSE_RUNTIME_PATH="$dir/runtime" PULSE_STATE_PATH="$dir/state"
     mkdir -p "$PULSE_RUNTIME_PATH" "$PULSE_STATE_PATH"
     "$0" stop >/dev/null 2>&1 || true
