@@ -690,8 +690,12 @@ where
             if !x.is_finite() || x.abs() > limit {
                 shared.guard_input.store(c, Ordering::Relaxed);
                 shared.guard_first_frame.store(k, Ordering::Relaxed);
-                shared.guard_peak_bits.store(x.abs().to_bits(), Ordering::Relaxed);
-                shared.guard_limit_bits.store(limit.to_bits(), Ordering::Relaxed);
+                shared
+                    .guard_peak_bits
+                    .store(x.abs().to_bits(), Ordering::Relaxed);
+                shared
+                    .guard_limit_bits
+                    .store(limit.to_bits(), Ordering::Relaxed);
                 shared.guard_tripped.store(true, Ordering::Release);
                 return;
             }
