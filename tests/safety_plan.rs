@@ -186,3 +186,30 @@ fn a_plan_over_a_station_cap_is_refused_by_validate_and_run_before_anything_play
     // Refused before the bench was set up: no store, no record.
     assert!(!store.exists());
 }
+
+#[test]
+fn the_cautions_are_shown_on_a_stores_first_run_only() {
+    // Issue 5 point 7: what the caps protect and what they do not, on first run.
+    let dir = tempfile::tempdir().unwrap();
+    let run = || {
+        tragus()
+            .arg("run")
+            .arg(root().join("plans/demo-earbud.yaml"))
+            .args(["--serial", "E2-000960", "--sim-unit", "design", "--store"])
+            .arg(dir.path().join("store"))
+            .output()
+            .unwrap()
+    };
+    let first = run();
+    assert_eq!(first.status.code(), Some(0));
+    let err = String::from_utf8_lossy(&first.stderr);
+    assert!(err.contains("CAUTION — sound levels"), "{err}");
+    assert!(err.contains("It is no hearing-protection device"), "{err}");
+    assert!(
+        err.contains("Never put a unit under test in or near an ear"),
+        "{err}"
+    );
+    let second = run();
+    assert_eq!(second.status.code(), Some(0));
+    assert!(!String::from_utf8_lossy(&second.stderr).contains("CAUTION"));
+}

@@ -35,7 +35,7 @@ pub struct Args {
     pub operator: Option<String>,
     /// Simulated rig: which unit to simulate: `nominal` (a good unit with manufacturing
     /// spread), `design` (the nominal design, no spread) or a defect (reversed-polarity, dead-channel, low-sensitivity, resonance-shift, clipping,
-    /// heavy-distortion, seal-leak, blocked-damper, weak-motor, rub).
+    /// heavy-distortion, seal-leak, blocked-damper, weak-motor, rub, too-loud).
     #[arg(long, default_value = "nominal", value_name = "UNIT")]
     pub sim_unit: String,
     /// Simulated rig: the plan channel that carries the defect (default: the first).
@@ -83,6 +83,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         soundcard: args.soundcard.spec_for(station.as_ref()),
     })?;
     let sim = bench.sim_choice(&args.sim_unit, args.sim_channel.as_deref())?;
+    bench.show_cautions_if_new();
     let tested = match bench.test_unit(&args.serial, &sim, &|| false) {
         Ok(t) => t,
         Err(UnitStop::Error(e)) => return Err(e),

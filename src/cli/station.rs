@@ -179,6 +179,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         soundcard: args.soundcard.spec_for(Some(&station)),
     })?;
     bench.pace_realtime = args.sim_realtime;
+    bench.show_cautions_if_new();
     let sims = parse_sim_units(&bench, &args.sim_unit)?;
     let nominal = bench.sim_choice("nominal", None)?;
     let mut lines = args.json.as_ref().map(Lines::open).transpose()?;

@@ -138,6 +138,7 @@ impl Bench {
             .store
             .or_else(|| o.station.and_then(|s| s.store.clone()))
             .unwrap_or_else(|| PathBuf::from(DEFAULT_STORE));
+
         let station = match o.station {
             Some(s) => s.info(),
             None => StationInfo {
@@ -167,6 +168,14 @@ impl Bench {
             soundcard: o.soundcard,
             safety,
         })
+    }
+
+    /// On the first run on a store (a new station), the cautions, once, before anything
+    /// plays (on stderr, so JSON on stdout stays clean).
+    pub fn show_cautions_if_new(&self) {
+        if !self.store.join(crate::store::DB_FILE).exists() {
+            eprint!("{}", crate::safety::CAUTIONS);
+        }
     }
 
     /// Parse `--sim-unit` / `--sim-channel` against this plan.

@@ -20,3 +20,20 @@ pub mod ramp;
 /// Hearing safety on one bench per unit: pilot, decision, guarded sweep.
 pub mod station;
 pub mod weighting;
+
+/// The cautions shown on a station's first run (a store that does not exist yet) and in the
+/// README: what the caps protect and what they do not.
+pub const CAUTIONS: &str = "\
+CAUTION — sound levels
+  tragus caps what the station itself plays: the drive voltage, the digital level and the
+  sound level at the fixture microphone and at the ear-equivalent position, checked before
+  anything plays (the plan's declared sensitivity and the calibration), by a pilot tone
+  before every sweep, and by a guard that fades the output to silence when a level passes
+  its cap while playing.
+  It is no hearing-protection device. The caps rest on the calibration and on the plan's
+  declaration being right; a guard trip still lets a few milliseconds (simulated rig) to a
+  few hundred milliseconds (sound card, its buffers) of sound through.
+  Never put a unit under test in or near an ear while a plan runs. Follow your local
+  occupational-noise regulations and your site's safety officer; where they and tragus
+  differ, they win.
+";
