@@ -184,11 +184,7 @@ impl SafetySetup {
                 Some(fs_per_pa) => (0..n_blocks.max(1))
                     .map(|b| {
                         let (lo, hi) = band_of_block(b);
-                        let c_max = max_correction_db(p, lo, hi);
-                        let cap_db = self
-                            .caps
-                            .max_spl_mic_peak_db
-                            .min(self.caps.max_spl_reference_peak_db - c_max);
+                        let cap_db = self.mic_peak_limit_db(p, lo, hi);
                         let p_peak_pa = crate::calibration::P_REF_PA * 10f64.powf(cap_db / 20.0);
                         (p_peak_pa * fs_per_pa).min(clip)
                     })
@@ -216,6 +212,49 @@ impl SafetySetup {
             block_frames: self.block_frames(sample_rate_hz),
             fade_frames: ((super::ramp::DEFAULT_FADE_S * fs).round() as usize).max(1),
         }
+    }
+
+    /// The highest peak level at the microphone, dB SPL, while the signal is between
+    /// `lo_hz` and `hi_hz`: the lowest of
+    /// - the microphone's peak cap;
+    /// - the reference position's peak cap less the largest correction there (p_ref = C·p);
+    /// - each A-weighted cap plus a sine's crest factor less the largest A-weighting (and,
+    ///   for the reference position, correction) there: a sine held at that peak has an
+    ///   A-weighted level at the cap, so the A-weighted level of a whole sweep, an average
+    ///   of such moments, stays under it.
+    fn mic_peak_limit_db(&self, p: &SafePath, lo_hz: f64, hi_hz: f64) -> f64 {
+        let c = &self.caps;
+        let (lo, hi) = (lo_hz.min(hi_hz) / 1.03, lo_hz.max(hi_hz) * 1.03);
+        // A(f) and A(f) + C(f) over the frequencies in between: the correction's points
+        // there, the ends, and a fine log grid (A-weighting is smooth).
+        let mut freqs: Vec<f64> = (0..=16)
+            .map(|k| lo * (hi / lo).powf(f64::from(k) / 16.0))
+            .collect();
+        if let Some(points) = &p.correction_db {
+            freqs.extend(
+                points
+                    .iter()
+                    .map(|&(f, _)| f)
+                    .filter(|f| (lo..=hi).contains(f)),
+            );
+        }
+        let a_max = freqs
+            .iter()
+            .map(|&f| a_weighting_db(f))
+            .fold(f64::NEG_INFINITY, f64::max);
+        let ac_max = freqs
+            .iter()
+            .map(|&f| a_weighting_db(f) + correction_at(p, f))
+            .fold(f64::NEG_INFINITY, f64::max);
+        let c_max = max_correction_db(p, lo_hz, hi_hz);
+        [
+            c.max_spl_mic_peak_db,
+            c.max_spl_reference_peak_db - c_max,
+            c.max_spl_mic_dba + SINE_CREST_DB - a_max,
+            c.max_spl_reference_dba + SINE_CREST_DB - ac_max,
+        ]
+        .into_iter()
+        .fold(f64::INFINITY, f64::min)
     }
 
     fn block_frames(&self, sample_rate_hz: u32) -> usize {
@@ -532,6 +571,24 @@ fn max_correction_db(p: &SafePath, lo_hz: f64, hi_hz: f64) -> f64 {
             .min_by(|a, b| (a.0 / mid).ln().abs().total_cmp(&(b.0 / mid).ln().abs()))
             .map_or(0.0, |&(_, c)| c)
     })
+}
+
+/// 20·lg|C| of a path's correction at `freq_hz` (linear in log frequency between its
+/// points, held at the ends); 0 dB when not corrected.
+fn correction_at(p: &SafePath, freq_hz: f64) -> f64 {
+    let Some(points) = p.correction_db.as_ref().filter(|v| !v.is_empty()) else {
+        return 0.0;
+    };
+    let k = points.partition_point(|&(f, _)| f < freq_hz);
+    if k == 0 {
+        return points[0].1;
+    }
+    if k >= points.len() {
+        return points[points.len() - 1].1;
+    }
+    let ((f0, c0), (f1, c1)) = (points[k - 1], points[k]);
+    let t = (freq_hz / f0).ln() / (f1 / f0).ln();
+    c0 + t * (c1 - c0)
 }
 
 /// The unit's decision from its channels': any abandon abandons; else the lowest gain.
