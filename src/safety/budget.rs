@@ -180,6 +180,21 @@ impl Budget {
     }
 }
 
+/// Over a fixture→reference correction's (Hz, 20·lg|C| dB) points: the smallest correction
+/// and the largest A(f) − C(f), dB — what the microphone's peak and A-weighted levels exceed
+/// the reference position's by at worst. Without points (no correction): 0 dB and
+/// `max_a_db`.
+pub fn correction_extremes(points: Option<&[(f64, f64)]>, max_a_db: f64) -> (f64, f64) {
+    match points {
+        Some(points) if !points.is_empty() => points
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, a), &(f, c)| {
+                (lo.min(c), a.max(a_weighting_db(f) - c))
+            }),
+        _ => (0.0, max_a_db),
+    }
+}
+
 /// The largest IEC 61672-1 A-weighting gain over a band, dB (at most +1.27 dB, near
 /// 2.5 kHz), found on a fine log grid plus the band edges.
 pub fn max_a_weighting_db(band_hz: (f64, f64)) -> f64 {
@@ -237,14 +252,7 @@ pub fn sine_budget(
         let ref_rms = product.worst_case_db_spl_per_v() + 20.0 * v_rms.log10();
         // The unit's response may peak anywhere in the band, so each position takes the
         // worst frequency of what lies between the reference and it.
-        let (c_min, mic_a_db) = match &p.correction_db {
-            Some(points) if !points.is_empty() => points
-                .iter()
-                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, a), &(f, c)| {
-                    (lo.min(c), a.max(a_weighting_db(f) - c))
-                }),
-            _ => (0.0, max_a_db),
-        };
+        let (c_min, mic_a_db) = correction_extremes(p.correction_db.as_deref(), max_a_db);
         let mic_rms = ref_rms - c_min;
         items.push(item(
             Quantity::ReferencePeak,

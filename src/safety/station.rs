@@ -15,7 +15,7 @@
 //! 3. the sweep plays with the guard armed: a watched input over its limit fades every output
 //!    to silence ([`crate::rig::Guard`]).
 
-use super::budget::{max_a_weighting_db, Budget, SINE_CREST_DB};
+use super::budget::{correction_extremes, max_a_weighting_db, Budget, SINE_CREST_DB};
 use super::pilot::{self, PilotReading, PilotSpec, ReadSettings, SweepDecision, SweepLimits};
 use super::weighting::a_weighting_db;
 use crate::dsp::sweep::Stimulus;
@@ -297,14 +297,7 @@ impl SafetySetup {
         let peak = self.response_peak_db;
         let max_a = max_a_weighting_db(self.band_hz);
         let c_p = p.correction_at_pilot_db;
-        let (c_min, mic_a) = match &p.correction_db {
-            Some(points) if !points.is_empty() => points
-                .iter()
-                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, a), &(f, c)| {
-                    (lo.min(c), a.max(a_weighting_db(f) - c))
-                }),
-            _ => (0.0, max_a),
-        };
+        let (c_min, mic_a) = correction_extremes(p.correction_db.as_deref(), max_a);
         // Reference position: L_ref = L_mic(pilot f) + C(pilot f) + response peak; at the
         // microphone the worst point is where C is smallest: L_mic,worst = L_ref − C_min, and
         // its A-weighted level at most L_ref + max[A(f) − C(f)] (module budget).
