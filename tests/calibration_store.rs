@@ -64,7 +64,8 @@ fn time_unix_ns(t: &str) -> i64 {
 
 #[test]
 fn v1_store_migrates_and_keeps_verifying() {
-    assert_eq!(SCHEMA_VERSION, 2);
+    // Schema 3 (safety events, exposures) leaves records as schema 2 made them.
+    assert_eq!(SCHEMA_VERSION, 3);
     let reference = reference();
     let tmp = tempfile::tempdir().unwrap();
     std::fs::create_dir_all(tmp.path().join("captures")).unwrap();
@@ -111,7 +112,7 @@ fn v1_store_migrates_and_keeps_verifying() {
         .unwrap()
         .pragma_query_value(None, "user_version", |r| r.get(0))
         .unwrap();
-    assert_eq!(version, 2);
+    assert_eq!(version, SCHEMA_VERSION);
     let old = store.list(&RecordFilter::default()).unwrap();
     assert_eq!(old.len(), 2);
     for (rec, r) in old.iter().zip(reference["records_v1"].as_array().unwrap()) {

@@ -468,13 +468,13 @@ fn store_from_a_newer_tragus_is_refused() {
     let tmp = tempfile::tempdir().unwrap();
     drop(open(tmp.path()));
     raw(tmp.path())
-        .execute_batch("PRAGMA user_version = 3")
+        .execute_batch("PRAGMA user_version = 4")
         .unwrap();
     let err = Store::open(tmp.path()).unwrap_err();
     assert_eq!(
         err.to_string(),
         format!(
-            "{}: store schema version 3 is newer than this tragus supports (2); upgrade tragus",
+            "{}: store schema version 4 is newer than this tragus supports (3); upgrade tragus",
             tmp.path().join(DB_FILE).display()
         )
     );

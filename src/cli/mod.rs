@@ -9,6 +9,7 @@ mod analyze;
 mod calibrate;
 mod coupler;
 mod devices;
+mod exposure;
 mod pipeline;
 mod records;
 mod run;
@@ -82,6 +83,9 @@ pub enum Command {
     Calibrate(calibrate::Args),
     /// List audio hosts and devices: channels, rates, sample formats, defaults.
     Devices(devices::Args),
+    /// An operator's listening dose: NIOSH over the shift (default the last 8 h), WHO/ITU-T
+    /// H.870 over the last 7 days, minutes left at a level.
+    Exposure(exposure::Args),
 }
 
 /// Where a `--json` document goes.
@@ -251,6 +255,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Coupler(a) => coupler::run(a),
         Command::Calibrate(a) => calibrate::run(a),
         Command::Devices(a) => devices::run(a),
+        Command::Exposure(a) => exposure::run(a),
     };
     match result {
         Ok(code) => code,

@@ -92,6 +92,13 @@ pub(crate) fn verify(args: VerifyArgs) -> Result<i32, Exit> {
         "{} record(s), {} capture file(s) rehashed, head hash {}",
         report.n_records, report.n_captures_checked, report.head_hash
     );
+    println!(
+        "{} safety event(s), head hash {}; {} exposure(s), head hash {}",
+        report.n_safety_events,
+        report.safety_events_head_hash,
+        report.n_exposures,
+        report.exposures_head_hash
+    );
     for p in &report.problems {
         println!("PROBLEM {p}");
     }
@@ -99,7 +106,9 @@ pub(crate) fn verify(args: VerifyArgs) -> Result<i32, Exit> {
         println!("notice  {n}");
     }
     if report.is_intact() {
-        println!("INTACT: every record hash, chain link and raw capture checks out");
+        println!(
+            "INTACT: every record hash, chain link and raw capture, and every safety event and exposure hash and link, checks out"
+        );
         Ok(EXIT_PASS)
     } else {
         println!("NOT INTACT: {} problem(s)", report.problems.len());

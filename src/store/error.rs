@@ -94,6 +94,22 @@ pub enum StoreError {
         /// What was found.
         detail: String,
     },
+
+    /// A stored safety event or exposure cannot be read back (wrong type or value in a
+    /// column).
+    #[error(
+        "{table} row {id}: stored field `{column}` is damaged ({detail}); run verify on the store"
+    )]
+    CorruptRow {
+        /// Table name, `safety_events` or `exposures`.
+        table: &'static str,
+        /// Row id.
+        id: i64,
+        /// Column name.
+        column: &'static str,
+        /// What was found.
+        detail: String,
+    },
 }
 
 /// Shorten outside text for an error message so a megabyte of JSON does not end up in a log.

@@ -104,3 +104,66 @@ impl CanonicalFields<'_> {
         sha256_hex(&self.bytes())
     }
 }
+
+/// First line of the canonical form of a safety event (schema 3).
+pub const SAFETY_EVENT_HEADER: &[u8] = b"tragus-safety-event-v1\n";
+
+/// First line of the canonical form of an exposure (schema 3).
+pub const EXPOSURE_HEADER: &[u8] = b"tragus-exposure-v1\n";
+
+/// Hashed columns of a safety event, in canonical order (never reorder).
+pub(crate) const SAFETY_EVENT_FIELDS: [&str; 12] = [
+    "id",
+    "time_utc",
+    "station",
+    "operator",
+    "serial",
+    "plan_id",
+    "plan_sha256",
+    "kind",
+    "message",
+    "detail_json",
+    "record_id",
+    "prev_hash",
+];
+
+/// Hashed columns of an exposure, in canonical order (never reorder).
+pub(crate) const EXPOSURE_FIELDS: [&str; 10] = [
+    "id",
+    "operator",
+    "station",
+    "start_unix_s",
+    "level_dba",
+    "duration_s",
+    "serial",
+    "plan_id",
+    "record_id",
+    "prev_hash",
+];
+
+/// The canonical bytes of a row of the safety-event or exposure chain: `header`, then
+/// `NAME ":" LEN ":" VALUE "\n"` for each `(NAME, VALUE)` in the order given, where each
+/// VALUE is already in its canonical text ([`real_text`] for reals, decimal for integers,
+/// empty for NULL).
+pub(crate) fn chain_row_bytes(header: &[u8], fields: &[(&str, &str)]) -> Vec<u8> {
+    let len: usize = fields.iter().map(|(n, v)| n.len() + v.len() + 24).sum();
+    let mut out = Vec::with_capacity(header.len() + len);
+    out.extend_from_slice(header);
+    for (name, value) in fields {
+        out.extend_from_slice(name.as_bytes());
+        out.push(b':');
+        out.extend_from_slice(value.len().to_string().as_bytes());
+        out.push(b':');
+        out.extend_from_slice(value.as_bytes());
+        out.push(b'\n');
+    }
+    out
+}
+
+/// Canonical text of a finite real: the shortest decimal that reads back as the same `f64`,
+/// positional (never an exponent), no trailing `.0`, `-` only for negative values (the
+/// store stores −0.0 as 0.0). Rust's `Display` for `f64` is exactly this; Python gets it
+/// from `repr` through `Decimal` (`tests/reference/store_safety_hash.py`).
+pub(crate) fn real_text(x: f64) -> String {
+    format!("{x}")
+}

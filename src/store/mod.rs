@@ -13,6 +13,10 @@
 //! DIR/captures/<sha256-hex>.wav      raw captures, named by the SHA-256 of their bytes
 //! ```
 //!
+//! Since schema 3 the store also keeps hearing-safety events and operators' listening
+//! exposures in two more append-only tables, `safety_events` and `exposures`, each its own
+//! hash chain (see "Hearing-safety rows" below).
+//!
 //! Records are append-only: triggers make SQLite refuse any `UPDATE` or `DELETE` on
 //! `records`, and any `INSERT` whose id and `prev_hash` do not continue the chain. Triggers
 //! stop mistakes, not someone with write access to the file; the hash chain is what makes
@@ -93,6 +97,38 @@
 //! lines absent) has `record_hash`
 //! `d43705c5cc69a7d592b5ba63ed20e990f3440f9348a7343bb0754c55bf12bcf6`.
 //!
+//! # Hearing-safety rows
+//!
+//! Schema 3 adds `safety_events` ([`Store::append_safety_event`], [`Store::safety_events`])
+//! and `exposures` ([`Store::append_exposure`], [`Store::exposures_for`]). Each table has
+//! the same three triggers as `records` (no update, no delete, linear chain) and its own
+//! chain from [`GENESIS_PREV_HASH`]: `prev_hash` is the `row_hash` of the row with the id one
+//! less in the same table, `row_hash` the SHA-256 of the row's canonical bytes, built like a
+//! record's (a header line, then `NAME ":" LEN ":" VALUE LF` per field in this order):
+//!
+//! ```text
+//! safety event = "tragus-safety-event-v1" LF field("id") field("time_utc") field("station")
+//!     field("operator") field("serial") field("plan_id") field("plan_sha256") field("kind")
+//!     field("message") field("detail_json") field("record_id") field("prev_hash")
+//! exposure     = "tragus-exposure-v1" LF field("id") field("operator") field("station")
+//!     field("start_unix_s") field("level_dba") field("duration_s") field("serial")
+//!     field("plan_id") field("record_id") field("prev_hash")
+//! ```
+//!
+//! - Text as stored. A NULL (`serial` and `plan_sha256` of an event, `record_id`) is the
+//!   empty value; the store refuses empty text in those fields, so the two never meet.
+//! - Integers (`id`, `record_id`, `start_unix_s`) in decimal ASCII, `-` only when negative.
+//! - Reals (`level_dba`, `duration_s`) as the shortest decimal that reads back as the same
+//!   IEEE 754 double, positional, no exponent, no trailing `.0` (`94`, `30.5`, `0.1`,
+//!   `0.30000000000000004`); −0.0 is stored as 0.0.
+//! - `kind` is a [`SafetyKind`] word (`plan_refused`, `sweep_scaled_down`,
+//!   `sweep_abandoned`, `guard_tripped`, `dose_warning`, `dose_refused`).
+//! - Not hashed: `time_unix_ns` of an event (derived from `time_utc`; verify checks it).
+//!
+//! `tests/reference/store_safety_hash.py` recomputes both forms with Python's `hashlib`;
+//! `tests/store_safety.rs` checks the store against it. A `record_id` must name an existing
+//! record when the row is appended.
+//!
 //! # Crash safety
 //!
 //! A crash must never leave a half record. [`Store::append`] writes the capture to a
@@ -114,6 +150,7 @@ mod capture;
 mod error;
 mod hash;
 mod record;
+mod safety;
 mod schema;
 mod verify;
 
@@ -125,11 +162,15 @@ use rusqlite::{params, Connection, OptionalExtension, Row, TransactionBehavior};
 pub use error::StoreError;
 pub use hash::{sha256_hex, CANONICAL_HEADER, CANONICAL_HEADER_V2, GENESIS_PREV_HASH};
 pub use record::{NewRecord, RecordFilter, StoredRecord};
+pub use safety::{
+    NewExposure, NewSafetyEvent, SafetyEventFilter, SafetyKind, StoredExposure, StoredSafetyEvent,
+};
 pub use schema::SCHEMA_VERSION;
-pub use verify::{Notice, Problem, ProblemKind, VerifyReport};
+pub use verify::{ChainTable, Notice, Problem, ProblemKind, RowProblem, VerifyReport};
 
 use capture::{capture_file, ensure_capture, looks_like_wav, CAPTURE_DIR};
 use hash::is_sha256_hex;
+pub(crate) use record::parse_time_utc;
 use record::{unix_ns, verdict_from_word, verdict_word};
 use schema::{open_database, sqlite_err};
 

@@ -15,7 +15,7 @@ use super::error::StoreError;
 pub(crate) const APPLICATION_ID: i64 = 0x5452_4753;
 
 /// Schema version this build writes and reads.
-pub const SCHEMA_VERSION: i64 = 2;
+pub const SCHEMA_VERSION: i64 = 3;
 
 /// How long an append waits for another process's write to finish before giving up with
 /// [`StoreError::Locked`]. An append holds the lock for one fsync'd transaction
@@ -53,6 +53,64 @@ WHEN NEW.id IS NOT (SELECT COALESCE(MAX(id), 0) + 1 FROM records)
         '0000000000000000000000000000000000000000000000000000000000000000')
 BEGIN
     SELECT RAISE(ABORT, 'tragus store chain: a record must follow the last record');
+END",
+    ),
+];
+
+/// The triggers that make `safety_events` and `exposures` append-only and their chains
+/// linear, as `(name, SQL)`: the same three rules as [`TRIGGERS`], one set per table.
+///
+/// They belong to schema version 3 (created by its migration); verification checks them
+/// like [`TRIGGERS`].
+pub(crate) const SAFETY_TRIGGERS: [(&str, &str); 6] = [
+    (
+        "safety_events_no_update",
+        "CREATE TRIGGER safety_events_no_update BEFORE UPDATE ON safety_events
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store is append-only: safety events cannot be updated');
+END",
+    ),
+    (
+        "safety_events_no_delete",
+        "CREATE TRIGGER safety_events_no_delete BEFORE DELETE ON safety_events
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store is append-only: safety events cannot be deleted');
+END",
+    ),
+    (
+        "safety_events_chain_linear",
+        "CREATE TRIGGER safety_events_chain_linear BEFORE INSERT ON safety_events
+WHEN NEW.id IS NOT (SELECT COALESCE(MAX(id), 0) + 1 FROM safety_events)
+  OR NEW.prev_hash IS NOT COALESCE(
+        (SELECT row_hash FROM safety_events ORDER BY id DESC LIMIT 1),
+        '0000000000000000000000000000000000000000000000000000000000000000')
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store chain: a safety event must follow the last safety event');
+END",
+    ),
+    (
+        "exposures_no_update",
+        "CREATE TRIGGER exposures_no_update BEFORE UPDATE ON exposures
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store is append-only: exposures cannot be updated');
+END",
+    ),
+    (
+        "exposures_no_delete",
+        "CREATE TRIGGER exposures_no_delete BEFORE DELETE ON exposures
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store is append-only: exposures cannot be deleted');
+END",
+    ),
+    (
+        "exposures_chain_linear",
+        "CREATE TRIGGER exposures_chain_linear BEFORE INSERT ON exposures
+WHEN NEW.id IS NOT (SELECT COALESCE(MAX(id), 0) + 1 FROM exposures)
+  OR NEW.prev_hash IS NOT COALESCE(
+        (SELECT row_hash FROM exposures ORDER BY id DESC LIMIT 1),
+        '0000000000000000000000000000000000000000000000000000000000000000')
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store chain: an exposure must follow the last exposure');
 END",
     ),
 ];
@@ -95,6 +153,50 @@ CREATE INDEX records_by_time   ON records (time_unix_ns);
     r#"
 ALTER TABLE records ADD COLUMN calibration_mode   TEXT;
 ALTER TABLE records ADD COLUMN calibration_sha256 TEXT;
+"#,
+    // 2 → 3: hearing-safety events and operators' listening exposures (issue 5), each table
+    // its own hash chain. Records are untouched, so every record keeps verifying. No CHECK
+    // on `kind`: a new kind must not need a table rebuild; the store and verify check it.
+    r#"
+CREATE TABLE safety_events (
+    -- Assigned by the store as the previous id + 1; hashed.
+    id           INTEGER PRIMARY KEY,
+    time_utc     TEXT    NOT NULL,
+    -- Derived from time_utc for the time filter; not hashed, verification recomputes it.
+    time_unix_ns INTEGER NOT NULL,
+    station      TEXT    NOT NULL,
+    operator     TEXT    NOT NULL,
+    -- NULL when there is no unit (a plan refused before any unit was scanned).
+    serial       TEXT,
+    plan_id      TEXT    NOT NULL,
+    plan_sha256  TEXT,
+    kind         TEXT    NOT NULL,
+    message      TEXT    NOT NULL,
+    detail_json  TEXT    NOT NULL,
+    -- The unit record the event belongs to, when there is one.
+    record_id    INTEGER,
+    prev_hash    TEXT    NOT NULL,
+    row_hash     TEXT    NOT NULL
+) STRICT;
+
+CREATE INDEX safety_events_by_time   ON safety_events (time_unix_ns);
+CREATE INDEX safety_events_by_serial ON safety_events (serial);
+
+CREATE TABLE exposures (
+    id           INTEGER PRIMARY KEY,
+    operator     TEXT    NOT NULL,
+    station      TEXT    NOT NULL,
+    start_unix_s INTEGER NOT NULL,
+    level_dba    REAL    NOT NULL,
+    duration_s   REAL    NOT NULL,
+    serial       TEXT    NOT NULL,
+    plan_id      TEXT    NOT NULL,
+    record_id    INTEGER,
+    prev_hash    TEXT    NOT NULL,
+    row_hash     TEXT    NOT NULL
+) STRICT;
+
+CREATE INDEX exposures_by_operator ON exposures (operator, start_unix_s);
 "#,
 ];
 
@@ -237,6 +339,11 @@ fn migrate(path: &Path, conn: &mut Connection) -> Result<(), StoreError> {
         tx.execute_batch(MIGRATIONS[step]).map_err(err)?;
         if step == 0 {
             for (_, sql) in TRIGGERS {
+                tx.execute_batch(sql).map_err(err)?;
+            }
+        }
+        if step == 2 {
+            for (_, sql) in SAFETY_TRIGGERS {
                 tx.execute_batch(sql).map_err(err)?;
             }
         }

@@ -14,9 +14,13 @@ use rusqlite::Row;
 
 use super::capture::{capture_file, hash_file, CAPTURE_EXT, TEMP_PREFIX};
 use super::error::StoreError;
-use super::hash::{is_sha256_hex, CanonicalFields, GENESIS_PREV_HASH};
+use super::hash::{
+    chain_row_bytes, is_sha256_hex, real_text, sha256_hex, CanonicalFields, EXPOSURE_FIELDS,
+    EXPOSURE_HEADER, GENESIS_PREV_HASH, SAFETY_EVENT_FIELDS, SAFETY_EVENT_HEADER,
+};
 use super::record::{parse_time_utc, unix_ns, verdict_from_word};
-use super::schema::{sqlite_err, TRIGGERS};
+use super::safety::SafetyKind;
+use super::schema::{sqlite_err, SAFETY_TRIGGERS, TRIGGERS};
 
 /// What [`Store::verify`](super::Store::verify) found.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -34,6 +38,15 @@ pub struct VerifyReport {
     pub problems: Vec<Problem>,
     /// Things worth knowing that are not tampering, e.g. orphan captures left by a crash.
     pub notices: Vec<Notice>,
+    /// Number of safety events read (schema 3).
+    pub n_safety_events: u64,
+    /// `row_hash` of the last safety event ([`GENESIS_PREV_HASH`] when there is none); keep
+    /// it elsewhere like [`head_hash`](Self::head_hash).
+    pub safety_events_head_hash: String,
+    /// Number of exposures read (schema 3).
+    pub n_exposures: u64,
+    /// `row_hash` of the last exposure ([`GENESIS_PREV_HASH`] when there is none).
+    pub exposures_head_hash: String,
 }
 
 impl VerifyReport {
@@ -47,7 +60,7 @@ impl VerifyReport {
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Problem {
     /// The record concerned; `None` for the store as a whole (a missing trigger, a damaged
-    /// database page).
+    /// database page) and for a row of another chain ([`ProblemKind::ChainRow`] names it).
     pub record_id: Option<i64>,
     /// What is wrong.
     pub kind: ProblemKind,
@@ -99,6 +112,15 @@ pub enum ProblemKind {
         /// SHA-256 of its content now.
         computed: String,
     },
+    /// A row of the safety-event or exposure chain is wrong (schema 3).
+    ChainRow {
+        /// The table.
+        table: ChainTable,
+        /// The row's id.
+        id: i64,
+        /// What is wrong with it.
+        problem: RowProblem,
+    },
     /// An append-only trigger is gone: someone dropped it.
     TriggerMissing {
         /// Trigger name.
@@ -114,6 +136,93 @@ pub enum ProblemKind {
         /// SQLite's message.
         detail: String,
     },
+}
+
+/// The hash chains besides `records` (schema 3).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum ChainTable {
+    /// `safety_events`.
+    SafetyEvents,
+    /// `exposures`.
+    Exposures,
+}
+
+impl ChainTable {
+    /// The table name.
+    pub fn name(self) -> &'static str {
+        match self {
+            ChainTable::SafetyEvents => "safety_events",
+            ChainTable::Exposures => "exposures",
+        }
+    }
+}
+
+impl fmt::Display for ChainTable {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+/// What is wrong with one row of a [`ChainTable`]; `Display` gives a sentence.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum RowProblem {
+    /// The stored `row_hash` is not the hash of the stored fields: a field was edited.
+    HashMismatch {
+        /// `row_hash` as stored.
+        stored: String,
+        /// Hash of the fields as stored now.
+        computed: String,
+    },
+    /// `prev_hash` is not the previous row's `row_hash`.
+    ChainBroken {
+        /// The previous row's `row_hash` (or the genesis value).
+        expected: String,
+        /// This row's `prev_hash`.
+        found: String,
+    },
+    /// Ids `first..=last` are absent before this row: those rows were deleted.
+    RowsMissing {
+        /// First missing id.
+        first: i64,
+        /// Last missing id.
+        last: i64,
+    },
+    /// A column holds a value no row can have.
+    FieldDamaged {
+        /// Column name.
+        column: &'static str,
+        /// What was found.
+        detail: String,
+    },
+    /// The time index column does not match `time_utc`.
+    TimeIndexMismatch,
+}
+
+impl fmt::Display for RowProblem {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            RowProblem::HashMismatch { stored, computed } => write!(
+                f,
+                "row hash does not match its fields (edited after it was written): stored {stored}, computed {computed}"
+            ),
+            RowProblem::ChainBroken { expected, found } => write!(
+                f,
+                "chain broken: prev_hash is {found}, the previous row's hash is {expected} (a row was deleted, inserted or rewritten)"
+            ),
+            RowProblem::RowsMissing { first, last } if first == last => {
+                write!(f, "row {first} is missing (deleted)")
+            }
+            RowProblem::RowsMissing { first, last } => {
+                write!(f, "rows {first} to {last} are missing (deleted)")
+            }
+            RowProblem::FieldDamaged { column, detail } => {
+                write!(f, "field `{column}` is damaged: {detail}")
+            }
+            RowProblem::TimeIndexMismatch => {
+                write!(f, "time index does not match time_utc (edited)")
+            }
+        }
+    }
 }
 
 /// Something verification noticed that is not tampering.
@@ -140,9 +249,12 @@ pub enum Notice {
 
 impl fmt::Display for Problem {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        match self.record_id {
-            Some(id) => write!(f, "record {id}: {}", self.kind),
-            None => write!(f, "store: {}", self.kind),
+        match (&self.kind, self.record_id) {
+            (ProblemKind::ChainRow { table, id, problem }, _) => {
+                write!(f, "{table} row {id}: {problem}")
+            }
+            (_, Some(id)) => write!(f, "record {id}: {}", self.kind),
+            (_, None) => write!(f, "store: {}", self.kind),
         }
     }
 }
@@ -178,6 +290,9 @@ impl fmt::Display for ProblemKind {
                 "capture file altered: {} now hashes to {computed}",
                 path.display()
             ),
+            ProblemKind::ChainRow { table, id, problem } => {
+                write!(f, "{table} row {id}: {problem}")
+            }
             ProblemKind::TriggerMissing { name } => {
                 write!(f, "append-only trigger `{name}` is missing (dropped)")
             }
@@ -351,7 +466,7 @@ pub(crate) fn verify(
         }
     }
 
-    for (name, expected_sql) in TRIGGERS {
+    for (name, expected_sql) in TRIGGERS.into_iter().chain(SAFETY_TRIGGERS) {
         let sql: Option<String> = tx
             .query_row(
                 "SELECT sql FROM sqlite_schema WHERE type = 'trigger' AND name = ?1",
@@ -498,6 +613,10 @@ pub(crate) fn verify(
     drop(stmt);
 
     scan_capture_dir(capture_dir, &referenced, &mut notices)?;
+    let (n_safety_events, safety_events_head_hash) =
+        verify_chain(&tx, &SAFETY_EVENTS_SPEC, &mut problems).map_err(err)?;
+    let (n_exposures, exposures_head_hash) =
+        verify_chain(&tx, &EXPOSURES_SPEC, &mut problems).map_err(err)?;
     tx.finish().map_err(err)?;
 
     Ok(VerifyReport {
@@ -506,6 +625,10 @@ pub(crate) fn verify(
         n_captures_checked: captures.len() as u64,
         problems,
         notices,
+        n_safety_events,
+        safety_events_head_hash,
+        n_exposures,
+        exposures_head_hash,
     })
 }
 
@@ -548,4 +671,200 @@ fn scan_capture_dir(
         }
     }
     Ok(())
+}
+
+/// SQLite type a column of a [`ChainTable`] must hold.
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum ColumnType {
+    Text,
+    OptText,
+    Int,
+    OptInt,
+    Real,
+}
+
+/// How to verify one chain: its table, header, and every column read with its type. The
+/// hashed columns are the header's field list, in canonical order; `row_hash` and
+/// `time_unix_ns` are read but not hashed.
+struct ChainSpec {
+    table: ChainTable,
+    header: &'static [u8],
+    hashed: &'static [&'static str],
+    columns: &'static [(&'static str, ColumnType)],
+}
+
+const SAFETY_EVENTS_SPEC: ChainSpec = ChainSpec {
+    table: ChainTable::SafetyEvents,
+    header: SAFETY_EVENT_HEADER,
+    hashed: &SAFETY_EVENT_FIELDS,
+    columns: &[
+        ("id", ColumnType::Int),
+        ("time_utc", ColumnType::Text),
+        ("time_unix_ns", ColumnType::Int),
+        ("station", ColumnType::Text),
+        ("operator", ColumnType::Text),
+        ("serial", ColumnType::OptText),
+        ("plan_id", ColumnType::Text),
+        ("plan_sha256", ColumnType::OptText),
+        ("kind", ColumnType::Text),
+        ("message", ColumnType::Text),
+        ("detail_json", ColumnType::Text),
+        ("record_id", ColumnType::OptInt),
+        ("prev_hash", ColumnType::Text),
+        ("row_hash", ColumnType::Text),
+    ],
+};
+
+const EXPOSURES_SPEC: ChainSpec = ChainSpec {
+    table: ChainTable::Exposures,
+    header: EXPOSURE_HEADER,
+    hashed: &EXPOSURE_FIELDS,
+    columns: &[
+        ("id", ColumnType::Int),
+        ("operator", ColumnType::Text),
+        ("station", ColumnType::Text),
+        ("start_unix_s", ColumnType::Int),
+        ("level_dba", ColumnType::Real),
+        ("duration_s", ColumnType::Real),
+        ("serial", ColumnType::Text),
+        ("plan_id", ColumnType::Text),
+        ("record_id", ColumnType::OptInt),
+        ("prev_hash", ColumnType::Text),
+        ("row_hash", ColumnType::Text),
+    ],
+};
+
+/// One column's value in its canonical text (module doc of the store), or `None` when the
+/// column is damaged (already reported).
+fn canonical_text(value: ValueRef<'_>, ty: ColumnType) -> Result<String, String> {
+    match (ty, value) {
+        (ColumnType::OptText | ColumnType::OptInt, ValueRef::Null) => Ok(String::new()),
+        (ColumnType::Text | ColumnType::OptText, ValueRef::Text(bytes)) => {
+            match std::str::from_utf8(bytes) {
+                Ok(s) if ty == ColumnType::OptText && s.is_empty() => {
+                    Err("expected NULL or non-empty text, found empty text".into())
+                }
+                Ok(s) => Ok(s.to_owned()),
+                Err(_) => Err("text is not valid UTF-8".into()),
+            }
+        }
+        (ColumnType::Int | ColumnType::OptInt, ValueRef::Integer(v)) => Ok(v.to_string()),
+        (ColumnType::Real, ValueRef::Real(x)) if x.is_finite() => Ok(real_text(x)),
+        (ColumnType::Real, ValueRef::Real(x)) => {
+            Err(format!("expected a finite number, found {x}"))
+        }
+        (_, other) => Err(format!(
+            "expected {}, found {}",
+            match ty {
+                ColumnType::Text => "text",
+                ColumnType::OptText => "text or NULL",
+                ColumnType::Int => "an integer",
+                ColumnType::OptInt => "an integer or NULL",
+                ColumnType::Real => "a real number",
+            },
+            other.data_type()
+        )),
+    }
+}
+
+/// Walk one chain: recompute every row hash, check links, ids and field forms. Returns the
+/// number of rows and the head hash (empty when the last row's hash is unreadable).
+fn verify_chain(
+    tx: &rusqlite::Transaction<'_>,
+    spec: &ChainSpec,
+    problems: &mut Vec<Problem>,
+) -> rusqlite::Result<(u64, String)> {
+    let names: Vec<&str> = spec.columns.iter().map(|(n, _)| *n).collect();
+    let mut stmt = tx.prepare(&format!(
+        "SELECT {} FROM {} ORDER BY id",
+        names.join(", "),
+        spec.table.name()
+    ))?;
+    let mut rows = stmt.query([])?;
+    let mut n_rows = 0u64;
+    let mut prev_id = 0i64;
+    let mut expected_prev: Option<String> = Some(GENESIS_PREV_HASH.to_owned());
+    while let Some(row) = rows.next()? {
+        n_rows += 1;
+        // The id is the primary key (an alias of the rowid), so always an integer.
+        let id: i64 = row.get(0)?;
+        let mut report = |problem| {
+            problems.push(Problem {
+                record_id: None,
+                kind: ProblemKind::ChainRow {
+                    table: spec.table,
+                    id,
+                    problem,
+                },
+            })
+        };
+        let mut text: HashMap<&'static str, String> = HashMap::new();
+        for (i, &(column, ty)) in spec.columns.iter().enumerate() {
+            match canonical_text(row.get_ref(i)?, ty) {
+                Ok(t) => {
+                    text.insert(column, t);
+                }
+                Err(detail) => report(RowProblem::FieldDamaged { column, detail }),
+            }
+        }
+        if id != prev_id + 1 {
+            report(RowProblem::RowsMissing {
+                first: prev_id + 1,
+                last: id - 1,
+            });
+        }
+        prev_id = id;
+        if let (Some(expected), Some(found)) = (&expected_prev, text.get("prev_hash")) {
+            if expected != found {
+                report(RowProblem::ChainBroken {
+                    expected: expected.clone(),
+                    found: found.clone(),
+                });
+            }
+        }
+        let fields: Option<Vec<(&str, &str)>> = spec
+            .hashed
+            .iter()
+            .map(|&c| text.get(c).map(|v| (c, v.as_str())))
+            .collect();
+        let stored_hash = text.get("row_hash").cloned();
+        if let (Some(fields), Some(stored)) = (fields, &stored_hash) {
+            let computed = sha256_hex(&chain_row_bytes(spec.header, &fields));
+            if &computed != stored {
+                report(RowProblem::HashMismatch {
+                    stored: stored.clone(),
+                    computed,
+                });
+            }
+        }
+        expected_prev = stored_hash;
+
+        if let Some(k) = text.get("kind") {
+            if SafetyKind::from_word(k).is_none() {
+                report(RowProblem::FieldDamaged {
+                    column: "kind",
+                    detail: format!("expected a safety event kind, found {k:?}"),
+                });
+            }
+        }
+        if let Some(d) = text.get("duration_s") {
+            if d.starts_with('-') {
+                report(RowProblem::FieldDamaged {
+                    column: "duration_s",
+                    detail: format!("expected 0 s or more, found {d} s"),
+                });
+            }
+        }
+        if let (Some(t), Some(ns)) = (text.get("time_utc"), text.get("time_unix_ns")) {
+            match parse_time_utc(t).and_then(unix_ns) {
+                Some(parsed) if parsed.to_string() == *ns => {}
+                Some(_) => report(RowProblem::TimeIndexMismatch),
+                None => report(RowProblem::FieldDamaged {
+                    column: "time_utc",
+                    detail: format!("expected a UTC time, found {t:?}"),
+                }),
+            }
+        }
+    }
+    Ok((n_rows, expected_prev.unwrap_or_default()))
 }
