@@ -216,6 +216,14 @@ fn a_too_loud_unit_is_never_swept_and_the_record_says_why() {
     let stored: serde_json::Value = serde_json::from_str(&recs[0].result_json).unwrap();
     assert_eq!(stored["safety"]["events"], j["safety"]["events"]);
     assert!(store.verify().unwrap().is_intact());
+    // And in the store's safety-event chain, tied to that record.
+    let events = store
+        .safety_events(&tragus::store::SafetyEventFilter::default())
+        .unwrap();
+    assert_eq!(events.len(), 1);
+    assert_eq!(events[0].kind, tragus::store::SafetyKind::SweepAbandoned);
+    assert_eq!(events[0].record_id, Some(recs[0].id));
+    assert_eq!(events[0].message, reason);
 
     // A nominal unit of the same population plays the sweep as planned.
     let j = run(dir.path(), "nominal");

@@ -183,8 +183,39 @@ fn a_plan_over_a_station_cap_is_refused_by_validate_and_run_before_anything_play
     assert_eq!(out.status.code(), Some(2));
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("nothing was played"), "{err}");
-    // Refused before the bench was set up: no store, no record.
-    assert!(!store.exists());
+    // Refused before anything played: no unit record, but the refusal is in the store's
+    // safety-event chain, with the words shown and the budget's numbers.
+    let st = tragus::store::Store::open(&store).unwrap();
+    assert!(st
+        .list(&tragus::store::RecordFilter::default())
+        .unwrap()
+        .is_empty());
+    let events = st
+        .safety_events(&tragus::store::SafetyEventFilter::default())
+        .unwrap();
+    assert_eq!(events.len(), 1);
+    assert_eq!(events[0].kind, tragus::store::SafetyKind::PlanRefused);
+    assert_eq!(events[0].serial, None);
+    assert!(events[0]
+        .message
+        .contains("could exceed the station's caps"));
+    let detail: serde_json::Value = serde_json::from_str(&events[0].detail_json).unwrap();
+    assert_eq!(detail["level_dbfs"], -24.0);
+    assert!(st.verify().unwrap().is_intact());
+    // validate only checks: it records nothing.
+    let before = events.len();
+    let _ = tragus()
+        .arg("validate")
+        .arg(&plan)
+        .arg("--station")
+        .arg(&station)
+        .output()
+        .unwrap();
+    let after = st
+        .safety_events(&tragus::store::SafetyEventFilter::default())
+        .unwrap()
+        .len();
+    assert_eq!(before, after);
 }
 
 #[test]

@@ -81,6 +81,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         calibration: args.calibration.as_deref(),
         non_production: args.non_production,
         soundcard: args.soundcard.spec_for(station.as_ref()),
+        record_refusals: true,
     })?;
     let sim = bench.sim_choice(&args.sim_unit, args.sim_channel.as_deref())?;
     bench.show_cautions_if_new();

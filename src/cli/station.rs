@@ -177,6 +177,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         calibration: None,
         non_production: false,
         soundcard: args.soundcard.spec_for(Some(&station)),
+        record_refusals: true,
     })?;
     bench.pace_realtime = args.sim_realtime;
     bench.show_cautions_if_new();

@@ -45,6 +45,9 @@ pub(crate) struct BenchOptions<'a> {
     pub non_production: bool,
     /// Sound-card settings (the station's, with command-line options applied).
     pub soundcard: crate::rig::SoundcardSpec,
+    /// Record a hearing-safety refusal of the plan in the store (`run`, `station`; not
+    /// `validate`, which only checks).
+    pub record_refusals: bool,
 }
 
 /// Everything that stays the same from unit to unit on one bench.
@@ -125,7 +128,36 @@ impl Bench {
             crate::calibration::Calibration::today_utc(),
         )?;
         let caps = o.station.map(|s| s.caps).unwrap_or_default();
-        let safety = safety_setup(&prep, caps, cal.as_ref(), rig, non_production)?;
+        let store = o
+            .store
+            .clone()
+            .or_else(|| o.station.and_then(|s| s.store.clone()))
+            .unwrap_or_else(|| PathBuf::from(DEFAULT_STORE));
+        let station = match o.station {
+            Some(s) => s.info(),
+            None => StationInfo {
+                id: o
+                    .station_id
+                    .clone()
+                    .unwrap_or_else(|| DEFAULT_STATION_ID.to_string()),
+                mode: Mode::Production,
+                sha256: None,
+            },
+        };
+        let operator = o
+            .operator
+            .clone()
+            .or_else(|| std::env::var("USER").ok())
+            .unwrap_or_else(|| "unknown".into());
+        let safety = match safety_setup(&prep, caps, cal.as_ref(), rig, non_production) {
+            Ok(s) => s,
+            Err(refusal) => {
+                if o.record_refusals {
+                    record_refusal(&store, &station.id, &operator, &prep.plan, &refusal);
+                }
+                return Err(refusal.exit);
+            }
+        };
         // Refused before anything is tested, rather than at the first unit.
         #[cfg(not(feature = "soundcard"))]
         if rig == RigChoice::Soundcard {
@@ -134,25 +166,6 @@ impl Bench {
                 super::devices::NOT_BUILT
             )));
         }
-        let store = o
-            .store
-            .or_else(|| o.station.and_then(|s| s.store.clone()))
-            .unwrap_or_else(|| PathBuf::from(DEFAULT_STORE));
-
-        let station = match o.station {
-            Some(s) => s.info(),
-            None => StationInfo {
-                id: o
-                    .station_id
-                    .unwrap_or_else(|| DEFAULT_STATION_ID.to_string()),
-                mode: Mode::Production,
-                sha256: None,
-            },
-        };
-        let operator = o
-            .operator
-            .or_else(|| std::env::var("USER").ok())
-            .unwrap_or_else(|| "unknown".into());
         let seed = match prep.plan.rig {
             RigSpec::Simulated { seed } => seed,
             RigSpec::Soundcard => 1,
@@ -329,7 +342,11 @@ impl Bench {
             return Err(UnitStop::Abandoned);
         }
         let stored = Store::open(&self.store)
-            .and_then(|mut s| s.append(&record, &wav))
+            .and_then(|mut s| {
+                let stored = s.append(&record, &wav)?;
+                record_unit_events(&mut s, &result, &self.operator, stored.id);
+                Ok(stored)
+            })
             .with_context(|| {
                 format!(
                     "{}: the unit was NOT recorded; test it again",
@@ -546,6 +563,106 @@ pub(crate) fn load_station(path: &Path) -> Result<Station, Exit> {
     })
 }
 
+/// A plan hearing safety refused on this bench: the exit, and what the store records.
+pub(crate) struct Refusal {
+    /// The refusal as the command reports it (exit 2).
+    pub exit: Exit,
+    /// The words shown.
+    pub message: String,
+    /// The budget's numbers, JSON.
+    pub detail_json: String,
+}
+
+/// Record a plan refusal in the store (created if needed): the refusal belongs to the
+/// station's safety history even though no unit was tested. A store that cannot take it is
+/// reported and does not change the refusal.
+fn record_refusal(
+    store: &Path,
+    station: &str,
+    operator: &str,
+    plan: &crate::plan::Plan,
+    refusal: &Refusal,
+) {
+    use crate::store::{NewSafetyEvent, SafetyKind};
+    let event = NewSafetyEvent {
+        time_utc: crate::result::now_utc_rfc3339(),
+        station: station.to_string(),
+        operator: operator.to_string(),
+        serial: None,
+        plan_id: plan.id.clone(),
+        plan_sha256: Some(plan.sha256.clone()),
+        kind: SafetyKind::PlanRefused,
+        message: refusal.message.clone(),
+        detail_json: refusal.detail_json.clone(),
+        record_id: None,
+    };
+    if let Err(e) = Store::open(store).and_then(|mut s| s.append_safety_event(&event)) {
+        tracing::warn!("{}: the refusal was not recorded: {e}", store.display());
+    }
+}
+
+/// The safety events of one recorded unit (scale-down, abandon, guard trip), appended to the
+/// store's safety-event chain next to its record. The record itself already holds them in
+/// its result; these rows let an auditor list every safety event of a station at once.
+fn record_unit_events(
+    store: &mut Store,
+    result: &crate::result::UnitResult,
+    operator: &str,
+    record_id: i64,
+) {
+    use crate::store::{NewSafetyEvent, SafetyKind};
+    let Some(s) = &result.safety else { return };
+    let abandoned = result.channels.is_empty();
+    let mut events: Vec<(SafetyKind, String, String)> = Vec::new();
+    if abandoned {
+        let reason = result.retest_reasons.first().cloned().unwrap_or_default();
+        events.push((SafetyKind::SweepAbandoned, reason, to_json(&s.pilot)));
+    } else if s.sweep_gain_db < 0.0 {
+        let words = s
+            .events
+            .iter()
+            .filter(|e| e.contains("scaled down"))
+            .cloned()
+            .collect::<Vec<_>>()
+            .join("; ");
+        events.push((SafetyKind::SweepScaledDown, words, to_json(&s.pilot)));
+    }
+    if let Some(trip) = &s.guard_trip {
+        let words = s
+            .events
+            .iter()
+            .find(|e| e.contains("guard tripped"))
+            .cloned()
+            .unwrap_or_default();
+        events.push((SafetyKind::GuardTripped, words, to_json(trip)));
+    }
+    for (kind, message, detail_json) in events {
+        let event = NewSafetyEvent {
+            time_utc: result.time_utc.clone(),
+            station: result
+                .station
+                .as_ref()
+                .map_or_else(String::new, |st| st.id.clone()),
+            operator: operator.to_string(),
+            serial: Some(result.serial.clone()),
+            plan_id: result.plan.id.clone(),
+            plan_sha256: Some(result.plan.sha256.clone()),
+            kind,
+            message,
+            detail_json,
+            record_id: Some(record_id),
+        };
+        if let Err(e) = store.append_safety_event(&event) {
+            tracing::warn!("the safety event was not recorded (the unit's record holds it): {e}");
+        }
+    }
+}
+
+/// A value as JSON text for a safety event's numbers (`{}` if it cannot be written).
+fn to_json<T: serde::Serialize>(v: &T) -> String {
+    serde_json::to_string(v).unwrap_or_else(|_| "{}".into())
+}
+
 /// Hearing safety for this plan on this bench: the bench's gains (the calibration, or the
 /// simulated rig's own constants), the correction's range per channel, and the sweep's
 /// plan-time budget, which refuses (exit 2, with the numbers) a plan that could exceed a cap.
@@ -557,7 +674,7 @@ pub(crate) fn safety_setup(
     cal: Option<&crate::calibration::Calibration>,
     rig: RigChoice,
     non_production: bool,
-) -> Result<SafetySetup, Exit> {
+) -> Result<SafetySetup, Refusal> {
     use crate::rig::simulated::{DRIVE_V_PER_FS, MIC_FS_PER_PA};
     use crate::safety::budget::{sine_budget, ChannelPath};
     use crate::safety::station::{ASSUMED_RESPONSE_PEAK_DB, PILOT_FREQ_HZ};
@@ -632,14 +749,19 @@ pub(crate) fn safety_setup(
         &budget_paths,
         &caps,
     );
+    let refuse = |message: String| Refusal {
+        detail_json: to_json(&budget),
+        exit: Exit::bad_input(anyhow::anyhow!("{message}")),
+        message,
+    };
     if let Some(refusal) = budget.refusal() {
-        return Err(Exit::bad_input(anyhow::anyhow!(
+        return Err(refuse(format!(
             "hearing safety: plan `{}`: {refusal}",
             plan.id
         )));
     }
     if rig == RigChoice::Soundcard && !non_production && !budget.unchecked.is_empty() {
-        return Err(Exit::bad_input(anyhow::anyhow!(
+        return Err(refuse(format!(
             "hearing safety: plan `{}`: production needs every sound level bounded before \
              playing, but {}; declare the product's sensitivity (`product:` in the plan) and \
              calibrate every drive output; nothing was played",

@@ -102,6 +102,7 @@ fn on_station(
         calibration: None,
         non_production: false,
         soundcard: station.soundcard.clone(),
+        record_refusals: false,
     });
     match bench {
         Ok(b) => {
