@@ -81,7 +81,11 @@ pub fn render_human(result: &UnitResult, color: bool) -> String {
     // Checks.
     out.push_str("\nchecks\n");
     if result.checks.is_empty() {
-        out.push_str("  (the plan has no checks)\n");
+        out.push_str(if result.channels.is_empty() && result.safety.is_some() {
+            "  (none judged: the sweep was not played)\n"
+        } else {
+            "  (the plan has no checks)\n"
+        });
     } else {
         let mut t = Table::new(&[
             ("check", Align::Left),
@@ -164,14 +168,15 @@ pub fn render_human(result: &UnitResult, color: bool) -> String {
         }
     }
     if let Some(s) = &result.safety {
-        out.push_str(&safety_block(s));
+        out.push_str(&safety_block(s, !result.channels.is_empty()));
     }
     out
 }
 
 /// The hearing-safety block: where the gains came from, the closest cap of the plan-time
-/// budget, the pilot's reading per channel and every event in words.
-fn safety_block(s: &crate::safety::station::UnitSafety) -> String {
+/// budget, the pilot's reading per channel, whether the sweep played (`swept`: the unit has
+/// measurements) and every event in words.
+fn safety_block(s: &crate::safety::station::UnitSafety, swept: bool) -> String {
     let mut out = String::from("\nhearing safety\n");
     out.push_str(&format!("  gains   {}\n", s.gains_source));
     if let Some(item) = s
@@ -203,7 +208,9 @@ fn safety_block(s: &crate::safety::station::UnitSafety) -> String {
     }
     out.push_str(&format!(
         "  sweep   {}\n",
-        if s.sweep_gain_db < 0.0 {
+        if !swept {
+            "not played".to_string()
+        } else if s.sweep_gain_db < 0.0 {
             format!("scaled down by {:.1} dB", -s.sweep_gain_db)
         } else {
             "as planned".to_string()
