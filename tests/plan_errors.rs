@@ -67,7 +67,7 @@ fn every_problem_of_a_bad_plan_is_reported_in_order() {
          checks); a response check takes id, kind, channels, upper, lower, smoothing, normalize",
         "21:6: check thd: missing required key `max_percent`",
         "22:19: check x: kind: expected one of response, sensitivity, thd, harmonic, rub_buzz, \
-         polarity, balance, found `rubbuzz`, did you mean `rub_buzz`?",
+         polarity, balance, listening, found `rubbuzz`, did you mean `rub_buzz`?",
         "23:47: check bal: channels: expected a channel of the plan (left, right), found \
          `rihgt`, did you mean `right`?",
     ]

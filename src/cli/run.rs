@@ -8,6 +8,15 @@ use std::path::PathBuf;
 
 pub use super::unit::RigChoice;
 
+/// An operator's answer to a listening step.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum ListenAnswer {
+    /// Heard nothing wrong.
+    Pass,
+    /// Heard a rattle, buzz or other defect.
+    Fail,
+}
+
 /// Arguments of `run`.
 #[derive(Debug, clap::Args)]
 pub struct Args {
@@ -46,6 +55,11 @@ pub struct Args {
     /// file's `fixture`.
     #[arg(long, value_name = "MODEL.yaml")]
     pub fixture: Option<PathBuf>,
+    /// The operator's answer to the plan's listening steps (`pass` or `fail`), for a run
+    /// with no one at the keyboard; without it `run` asks on the terminal, and with no
+    /// terminal a listening step is a retest (no answer).
+    #[arg(long, value_enum, value_name = "ANSWER")]
+    pub listen_answer: Option<ListenAnswer>,
     /// Write the result JSON here (`-` for stdout: human output then goes nowhere).
     #[arg(long, value_name = "OUT")]
     pub json: Option<JsonOut>,
@@ -85,7 +99,14 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
     })?;
     let sim = bench.sim_choice(&args.sim_unit, args.sim_channel.as_deref())?;
     bench.show_cautions_if_new();
-    let tested = match bench.test_unit(&args.serial, &sim, &|| false) {
+    let answer = args.listen_answer;
+    let listen = move |prompt: &str| -> Option<bool> {
+        match answer {
+            Some(a) => Some(a == ListenAnswer::Pass),
+            None => super::station::ask_terminal(prompt),
+        }
+    };
+    let tested = match bench.test_unit(&args.serial, &sim, &|| false, &listen) {
         Ok(t) => t,
         Err(UnitStop::Error(e)) => return Err(e),
         // `run` never asks to abandon; kept total rather than a panic.

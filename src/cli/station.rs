@@ -277,7 +277,24 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
             pb
         });
         let abandon = || interrupts.load(Ordering::SeqCst) >= 2;
-        let outcome = bench.test_unit(serial, &sim, &abandon);
+        // A listening step's answer is the next input line: `p`/`pass` or `f`/`fail`.
+        let listen = |prompt: &str| -> Option<bool> {
+            eprintln!("{prompt} [p/f]");
+            loop {
+                if interrupts.load(Ordering::SeqCst) > 0 {
+                    return None;
+                }
+                match rx.recv_timeout(Duration::from_millis(100)) {
+                    Err(mpsc::RecvTimeoutError::Timeout) => continue,
+                    Err(mpsc::RecvTimeoutError::Disconnected) | Ok(Err(_)) => return None,
+                    Ok(Ok(l)) => match parse_answer(&l) {
+                        Some(a) => return Some(a),
+                        None => eprintln!("answer p (pass) or f (fail)"),
+                    },
+                }
+            }
+        };
+        let outcome = bench.test_unit(serial, &sim, &abandon, &listen);
         if let Some(pb) = progress {
             pb.finish_and_clear();
         }
@@ -357,4 +374,27 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         Some(e) => Err(e),
         None => Ok(EXIT_PASS),
     }
+}
+
+/// An operator's answer to a listening step: `p`/`pass` → pass, `f`/`fail` → fail
+/// (case-insensitive, spaces ignored); anything else is no answer.
+pub(crate) fn parse_answer(line: &str) -> Option<bool> {
+    match line.trim().to_ascii_lowercase().as_str() {
+        "p" | "pass" => Some(true),
+        "f" | "fail" => Some(false),
+        _ => None,
+    }
+}
+
+/// Ask a listening step's answer on the terminal (stdin); `None` when stdin is not a
+/// terminal or gives no valid answer.
+pub(crate) fn ask_terminal(prompt: &str) -> Option<bool> {
+    use std::io::{BufRead, IsTerminal};
+    if !std::io::stdin().is_terminal() {
+        return None;
+    }
+    eprintln!("{prompt} [p/f]");
+    let mut line = String::new();
+    std::io::stdin().lock().read_line(&mut line).ok()?;
+    parse_answer(&line)
 }

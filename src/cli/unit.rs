@@ -262,6 +262,7 @@ impl Bench {
         serial: &str,
         sim: &SimChoice,
         abandon: &dyn Fn() -> bool,
+        listen: &dyn Fn(&str) -> Option<bool>,
     ) -> Result<Tested, UnitStop> {
         if serial.trim().is_empty() {
             return Err(Exit::bad_input(anyhow::anyhow!(
@@ -315,6 +316,7 @@ impl Bench {
         let mut result = result;
         result.station = Some(self.station.clone());
         result.device_latency_samples = capture.device_latency_samples;
+        let heard = self.listening_steps(rig.as_mut(), &mut result, listen)?;
 
         // Record before reporting: a verdict the store does not hold was never given.
         let result_json = serde_json::to_string(&result)
@@ -345,6 +347,7 @@ impl Bench {
             .and_then(|mut s| {
                 let stored = s.append(&record, &wav)?;
                 record_unit_events(&mut s, &result, &self.operator, stored.id);
+                record_listening(&mut s, &result, &self.operator, stored.id, &heard);
                 Ok(stored)
             })
             .with_context(|| {
@@ -501,6 +504,256 @@ pub(crate) fn use_calibration(
 }
 
 impl Bench {
+    /// The plan's listening steps for one unit whose measured checks passed (README,
+    /// "Listening steps"): each step's sweep is capped by its A-weighted level at the
+    /// reference position (from the unit's corrected response), checked against the
+    /// operator's noise dose, played under the guard, and judged by the operator's answer
+    /// (`listen`: pass, fail, or `None` for no answer). Adds one check result per step and
+    /// updates the unit verdict; returns what was heard, for the store.
+    fn listening_steps(
+        &self,
+        rig: &mut dyn Rig,
+        result: &mut crate::result::UnitResult,
+        listen: &dyn Fn(&str) -> Option<bool>,
+    ) -> Result<Vec<Heard>, Exit> {
+        use crate::checks::{check_channels, CheckResult};
+        use crate::plan::CheckKind;
+        use crate::safety::dose::{DosePolicy, DoseVerdict, ExposureLedger, ShiftWindow};
+        use crate::store::SafetyKind;
+        use crate::Verdict;
+        let plan = &self.prep.plan;
+        let measured = result.verdict;
+        let mut heard = Vec::new();
+        let mut verdicts = Vec::new();
+        for spec in &plan.checks {
+            let CheckKind::Listening {
+                band,
+                level_dbfs,
+                duration_s,
+            } = spec.kind
+            else {
+                continue;
+            };
+            let names = check_channels(plan, spec);
+            let label = names.join("/");
+            let mut judged = |verdict: Verdict, detail: String| {
+                verdicts.push(verdict);
+                result.checks.push(CheckResult {
+                    id: spec.id.clone(),
+                    kind: "listening".into(),
+                    channel: label.clone(),
+                    verdict,
+                    worst_margin_db: None,
+                    at_hz: None,
+                    detail,
+                });
+            };
+            if measured != Verdict::Pass {
+                judged(
+                    Verdict::Retest,
+                    format!("not played: the measured checks gave {}", measured.word()),
+                );
+                continue;
+            }
+            let fs = plan.sample_rate_hz;
+            let band_hz = (band.low_hz, band.high_hz);
+            let pad_s = 0.05;
+            let sweep = crate::safety::listening::listening_sweep(
+                fs, band_hz, level_dbfs, duration_s, pad_s,
+            )
+            .map_err(Exit::bad_input)?;
+            let signal: Vec<f32> = sweep.samples().into_iter().map(|v| v as f32).collect();
+            // The loudest moment must keep the guard's limits too: a sweep is at one
+            // frequency at a time, so its instantaneous peak at the microphone at f is
+            // A·(V/FS)·|H_mic(f)|, against the limit the guard applies at f.
+            let mut inst_headroom_db = f64::INFINITY;
+            // The level each ear would get: per channel from its corrected response in
+            // dB SPL/V (a dB FS/FS response with the bench's gains), the loudest decides.
+            let mut la_max = f64::NEG_INFINITY;
+            let mut unbounded = None;
+            for name in &names {
+                let Some(i) = plan.channel_index(name) else {
+                    continue;
+                };
+                let path = &self.safety.paths[i];
+                let m = &result.channels[i];
+                let offset = if m.unit == crate::calibration::UNIT_DB_SPL_PER_V {
+                    Some(0.0)
+                } else {
+                    path.mic_fs_per_pa
+                        .zip(path.drive_v_peak_per_fs)
+                        .map(|(mic, v)| crate::calibration::response_offset_db(mic, v))
+                };
+                let (Some(offset), Some(v)) = (offset, path.drive_v_peak_per_fs) else {
+                    unbounded = Some(name.clone());
+                    break;
+                };
+                let grid = self.prep.analyzer.grid_hz();
+                let response: Vec<(f64, f64)> = grid
+                    .iter()
+                    .zip(&m.response_db)
+                    .filter(|(_, r)| r.is_finite())
+                    .map(|(&f, &r)| (f, r + offset))
+                    .collect();
+                let peak_v_db = level_dbfs + 20.0 * v.log10();
+                for &(f, h) in response
+                    .iter()
+                    .filter(|(f, _)| (band_hz.0..=band_hz.1).contains(f))
+                {
+                    let c = crate::safety::station::correction_at(path, f);
+                    let mic_peak_db = peak_v_db + h - c;
+                    let limit = self.safety.mic_peak_limit_db(path, f, f);
+                    inst_headroom_db = inst_headroom_db.min(limit - mic_peak_db);
+                }
+                match crate::safety::listening::reference_level_dba(&signal, fs, v, &response) {
+                    Ok(la) => la_max = la_max.max(la),
+                    Err(_) => {
+                        unbounded = Some(name.clone());
+                        break;
+                    }
+                }
+            }
+            if let Some(name) = unbounded {
+                judged(
+                    Verdict::Retest,
+                    format!(
+                        "not played: its level at the reference position cannot be bounded \
+                         for channel {name} (no drive or microphone calibration)"
+                    ),
+                );
+                continue;
+            }
+            let cap =
+                self.safety.caps.max_spl_reference_dba - crate::safety::station::SCALE_MARGIN_DB;
+            let gain_db = (cap - la_max)
+                .min(inst_headroom_db - crate::safety::station::SCALE_MARGIN_DB)
+                .min(0.0);
+            let la = la_max + gain_db;
+            if gain_db < 0.0 {
+                let words = format!(
+                    "listening step {} scaled down by {:.1} dB: it would reach {la_max:.1} dB(A) \
+                     at the reference position (cap {:.1} dB(A)) and its loudest moment would \
+                     pass the guard's limit by {:.1} dB",
+                    spec.id,
+                    -gain_db,
+                    self.safety.caps.max_spl_reference_dba,
+                    (-inst_headroom_db).max(0.0)
+                );
+                if let Some(s) = &mut result.safety {
+                    s.events.push(words);
+                }
+            }
+            // The operator's dose: this shift (the last 8 h) and the last 7 days.
+            let now = time::OffsetDateTime::now_utc().unix_timestamp();
+            let ledger = Store::open(&self.store)
+                .and_then(|st| st.exposures_for(&self.operator, now - 7 * 24 * 3600))
+                .map_err(|e| Exit::retest(anyhow::anyhow!("cannot read the dose ledger: {e}")))
+                .and_then(|x| {
+                    ExposureLedger::from_exposures(x)
+                        .map_err(|e| Exit::retest(anyhow::anyhow!("{e}")))
+                })?;
+            // The window reaches an hour past now, so that a step still running at `now`
+            // (a simulated rig plays faster than real time) counts whole, not pro rata.
+            let shift = ShiftWindow {
+                start_unix_s: now - 8 * 3600,
+                length_s: 9.0 * 3600.0,
+            };
+            let decision = ledger
+                .decide_next(
+                    &self.operator,
+                    shift,
+                    now,
+                    la,
+                    duration_s,
+                    &DosePolicy::default(),
+                )
+                .map_err(|e| Exit::retest(anyhow::anyhow!("{e}")))?;
+            let words = decision.to_string();
+            let dose_event = match decision.verdict {
+                DoseVerdict::Allowed => None,
+                DoseVerdict::Warn => {
+                    Some((SafetyKind::DoseWarning, words.clone(), to_json(&decision)))
+                }
+                DoseVerdict::Refuse => {
+                    Some((SafetyKind::DoseRefused, words.clone(), to_json(&decision)))
+                }
+            };
+            if decision.verdict != DoseVerdict::Allowed {
+                if let Some(s) = &mut result.safety {
+                    s.events
+                        .push(format!("operator {}: {words}", self.operator));
+                }
+            }
+            if decision.verdict == DoseVerdict::Refuse {
+                judged(Verdict::Retest, format!("not played: {words}"));
+                heard.push(Heard {
+                    start_unix_s: now,
+                    level_dba: None,
+                    duration_s,
+                    dose_event,
+                });
+                continue;
+            }
+            // Play it, guarded, on the step's outputs.
+            let g = 10f64.powf(gain_db / 20.0);
+            let pad = sweep.start_sample;
+            let n = signal.len() + 2 * pad;
+            let mut outputs = vec![vec![0.0f32; n]; self.prep.stimulus.channels.len()];
+            for name in &names {
+                if let Some(i) = plan.channel_index(name) {
+                    let o = plan.channels[i].output;
+                    for (d, &x) in outputs[o][pad..].iter_mut().zip(&signal) {
+                        *d = (f64::from(x) * g) as f32;
+                    }
+                }
+            }
+            rig.arm_guard(Some(self.safety.guard_for_sweep_params(&sweep, n)));
+            let capture = rig
+                .play_raw(&outputs, fs, plan.n_inputs())
+                .map_err(Exit::from_rig)?;
+            heard.push(Heard {
+                start_unix_s: now,
+                level_dba: Some(la),
+                duration_s,
+                dose_event,
+            });
+            if let Some(t) = capture.guard_trip {
+                judged(
+                    Verdict::Retest,
+                    format!(
+                        "hearing-safety guard tripped while listening (input {} at {:.3} FS, \
+                         limit {:.3} FS)",
+                        t.input + 1,
+                        t.peak_fs,
+                        t.limit_fs
+                    ),
+                );
+                continue;
+            }
+            let prompt = format!(
+                "listen to {} ({label}, {:.0} Hz–{:.0} Hz, {la:.1} dB(A) at the ear): pass or fail?",
+                result.serial, band_hz.0, band_hz.1
+            );
+            let detail = format!("{la:.1} dB(A) at the reference position for {duration_s:.1} s",);
+            match listen(&prompt) {
+                Some(true) => judged(Verdict::Pass, format!("operator: pass; {detail}")),
+                Some(false) => judged(Verdict::Fail, format!("operator: fail; {detail}")),
+                None => judged(
+                    Verdict::Retest,
+                    format!("no answer from the operator; {detail}"),
+                ),
+            }
+        }
+        if measured == Verdict::Pass {
+            if verdicts.contains(&Verdict::Fail) {
+                result.verdict = Verdict::Fail;
+            } else if verdicts.contains(&Verdict::Retest) {
+                result.verdict = Verdict::Retest;
+            }
+        }
+        Ok(heard)
+    }
+
     /// The sound-card rig on this bench's devices, with the plan's routes (after the
     /// station's channel map). Opened per unit: a device lost between units is found at the
     /// next unit, not carried as a stale stream.
@@ -654,6 +907,68 @@ fn record_unit_events(
         };
         if let Err(e) = store.append_safety_event(&event) {
             tracing::warn!("the safety event was not recorded (the unit's record holds it): {e}");
+        }
+    }
+}
+
+/// One listening step as it happened, for the store: what the operator heard, and the dose
+/// events it raised.
+pub(crate) struct Heard {
+    /// Start, unix seconds.
+    start_unix_s: i64,
+    /// A-weighted level at the reference position, dB(A); `None` when it did not play.
+    level_dba: Option<f64>,
+    /// Duration, s.
+    duration_s: f64,
+    /// Dose warning or refusal, with its words and numbers.
+    dose_event: Option<(crate::store::SafetyKind, String, String)>,
+}
+
+/// The exposures and dose events of a unit's listening steps, next to its record.
+fn record_listening(
+    store: &mut Store,
+    result: &crate::result::UnitResult,
+    operator: &str,
+    record_id: i64,
+    heard: &[Heard],
+) {
+    use crate::store::{NewExposure, NewSafetyEvent};
+    let station = result
+        .station
+        .as_ref()
+        .map_or_else(String::new, |st| st.id.clone());
+    for h in heard {
+        if let Some(level_dba) = h.level_dba {
+            let e = NewExposure {
+                operator: operator.to_string(),
+                station: station.clone(),
+                start_unix_s: h.start_unix_s,
+                level_dba,
+                duration_s: h.duration_s,
+                serial: result.serial.clone(),
+                plan_id: result.plan.id.clone(),
+                record_id: Some(record_id),
+            };
+            if let Err(e) = store.append_exposure(&e) {
+                tracing::warn!("the listening exposure was not recorded: {e}");
+            }
+        }
+        if let Some((kind, message, detail_json)) = &h.dose_event {
+            let event = NewSafetyEvent {
+                time_utc: result.time_utc.clone(),
+                station: station.clone(),
+                operator: operator.to_string(),
+                serial: Some(result.serial.clone()),
+                plan_id: result.plan.id.clone(),
+                plan_sha256: Some(result.plan.sha256.clone()),
+                kind: *kind,
+                message: message.clone(),
+                detail_json: detail_json.clone(),
+                record_id: Some(record_id),
+            };
+            if let Err(e) = store.append_safety_event(&event) {
+                tracing::warn!("the dose event was not recorded: {e}");
+            }
         }
     }
 }

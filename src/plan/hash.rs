@@ -46,6 +46,7 @@
 //! - `harmonic`: `"band"`, `"max_db"`, `"order"`; `rub_buzz`: `"band"`, `"max_db"`;
 //! - `polarity`: `"expected"`: `"positive"` or `"negative"`;
 //! - `balance`: `"band"`, `"max_diff_db"`, `"smoothing_fraction"` (I or `null`);
+//! - `listening`: `"band"`, `"duration_s"`, `"level_dbfs"`;
 //!
 //! where `"band"` is `{"high_hz":R,"low_hz":R}`.
 //!
@@ -334,6 +335,15 @@ fn to_canonical(plan: &Plan) -> C {
                             Polarity::Negative => "negative",
                         };
                         m.insert("expected", s(e));
+                    }
+                    CheckKind::Listening {
+                        band: b,
+                        level_dbfs,
+                        duration_s,
+                    } => {
+                        m.insert("band", band(b));
+                        m.insert("level_dbfs", real(*level_dbfs));
+                        m.insert("duration_s", real(*duration_s));
                     }
                     CheckKind::Balance {
                         band: b,

@@ -335,6 +335,17 @@ pub enum CheckKind {
         /// Fractional-octave smoothing applied to both responses first.
         smoothing_fraction: Option<u32>,
     },
+    /// A listening step: a slow sweep over `band` played to the operator, who answers pass
+    /// or fail; its level is capped by its A-weighted level at the reference position and
+    /// counted in the operator's noise dose (hearing safety).
+    Listening {
+        /// Band the listening sweep covers.
+        band: Band,
+        /// Its peak level, dBFS (before any hearing-safety scale-down).
+        level_dbfs: f64,
+        /// Its duration, s.
+        duration_s: f64,
+    },
 }
 
 /// The unit a sensitivity check's limits are written in (`unit:` of the check).
@@ -383,6 +394,7 @@ impl CheckKind {
             CheckKind::RubBuzz { .. } => "rub_buzz",
             CheckKind::Polarity { .. } => "polarity",
             CheckKind::Balance { .. } => "balance",
+            CheckKind::Listening { .. } => "listening",
         }
     }
 }

@@ -335,6 +335,10 @@ pub struct RawCheck {
     pub max_diff_db: Option<Spanned<f64>>,
     /// Unit of the limits (sensitivity): `db`, `db_spl_per_v`, `db_spl_per_mw`.
     pub unit: Option<Spanned<String>>,
+    /// Peak level of a listening step's signal, dBFS.
+    pub level_dbfs: Option<Spanned<f64>>,
+    /// Duration of a listening step's signal, s.
+    pub duration_s: Option<Spanned<f64>>,
 }
 
 impl RawCheck {
@@ -358,6 +362,8 @@ impl RawCheck {
             ("order", p(&self.order)),
             ("expected", p(&self.expected)),
             ("max_diff_db", p(&self.max_diff_db)),
+            ("level_dbfs", p(&self.level_dbfs)),
+            ("duration_s", p(&self.duration_s)),
             ("unit", p(&self.unit)),
         ];
         all.into_iter()

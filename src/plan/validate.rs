@@ -184,7 +184,7 @@ struct SweepBand {
     stop_hz: f64,
 }
 
-const CHECK_KINDS: [&str; 7] = [
+const CHECK_KINDS: [&str; 8] = [
     "response",
     "sensitivity",
     "thd",
@@ -192,7 +192,12 @@ const CHECK_KINDS: [&str; 7] = [
     "rub_buzz",
     "polarity",
     "balance",
+    "listening",
 ];
+
+/// Durations a listening step may have, s: long enough to hear a rattle through a slow
+/// sweep, short enough to keep the operator's exposure small (common practice).
+const LISTEN_DURATION_S: (f64, f64) = (0.5, 30.0);
 
 /// Keys every check takes.
 const COMMON_CHECK_KEYS: [&str; 3] = ["id", "kind", "channels"];
@@ -207,6 +212,7 @@ fn kind_keys(kind: &str) -> &'static [&'static str] {
         "rub_buzz" => &["band_hz", "max_db"],
         "polarity" => &["expected"],
         "balance" => &["band_hz", "max_diff_db", "smoothing"],
+        "listening" => &["band_hz", "level_dbfs", "duration_s"],
         _ => &[],
     }
 }
@@ -1526,6 +1532,30 @@ impl Validator {
                     Some(CheckKind::RubBuzz {
                         band: b?,
                         max_db: max_db?,
+                    })
+                })()
+            }
+            "listening" => {
+                let b = band_of(self);
+                let level_dbfs = self
+                    .required(sec, &c.level_dbfs, &ctx, "level_dbfs")
+                    .and_then(|v| self.in_range(v, &l("level_dbfs"), -80.0, 0.0, " dBFS"));
+                let duration_s = self
+                    .required(sec, &c.duration_s, &ctx, "duration_s")
+                    .and_then(|v| {
+                        self.in_range(
+                            v,
+                            &l("duration_s"),
+                            LISTEN_DURATION_S.0,
+                            LISTEN_DURATION_S.1,
+                            " s",
+                        )
+                    });
+                (|| {
+                    Some(CheckKind::Listening {
+                        band: b?,
+                        level_dbfs: level_dbfs?,
+                        duration_s: duration_s?,
                     })
                 })()
             }

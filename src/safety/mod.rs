@@ -37,3 +37,5 @@ CAUTION — sound levels
   occupational-noise regulations and your site's safety officer; where they and tragus
   differ, they win.
 ";
+/// The listening step: its signal and its A-weighted level at the reference position.
+pub mod listening;

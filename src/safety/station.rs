@@ -222,7 +222,7 @@ impl SafetySetup {
     ///   for the reference position, correction) there: a sine held at that peak has an
     ///   A-weighted level at the cap, so the A-weighted level of a whole sweep, an average
     ///   of such moments, stays under it.
-    fn mic_peak_limit_db(&self, p: &SafePath, lo_hz: f64, hi_hz: f64) -> f64 {
+    pub fn mic_peak_limit_db(&self, p: &SafePath, lo_hz: f64, hi_hz: f64) -> f64 {
         let c = &self.caps;
         let (lo, hi) = (lo_hz.min(hi_hz) / 1.03, lo_hz.max(hi_hz) * 1.03);
         // A(f) and A(f) + C(f) over the frequencies in between: the correction's points
@@ -270,19 +270,29 @@ impl SafetySetup {
     /// be at given a device latency of up to [`SafetySetup::max_latency_s`] (an exponential
     /// sweep is at f1·exp(t/L) at time t into the sweep; Farina 2000).
     pub fn guard_for_sweep(&self, stimulus: &Stimulus) -> Guard {
-        let sw = &stimulus.sweep;
-        let fs = f64::from(stimulus.sample_rate_hz);
-        let block = self.block_frames(stimulus.sample_rate_hz);
         let n = stimulus.channels.iter().map(Vec::len).max().unwrap_or(0);
-        let n_blocks = n.div_ceil(block) + 1;
+        self.guard_for_sweep_params(&stimulus.sweep, n)
+    }
+
+    /// [`SafetySetup::guard_for_sweep`] for any sweep (`sweep.start_sample` into buffers of
+    /// `n_samples`): a listening step's too.
+    pub fn guard_for_sweep_params(
+        &self,
+        sw: &crate::dsp::sweep::SweepParams,
+        n_samples: usize,
+    ) -> Guard {
+        let fs = f64::from(sw.sample_rate_hz);
+        let block = self.block_frames(sw.sample_rate_hz);
+        let n_blocks = n_samples.div_ceil(block) + 1;
         let lat = (self.max_latency_s * fs).ceil() as usize;
         let start = sw.start_sample;
         let end = start + sw.n_sweep_samples.saturating_sub(1);
+        let (f1, f2, l_s) = (sw.f1_hz, sw.f2_hz, sw.l_s);
         let f_at = move |k: usize| -> f64 {
             let t = (k.clamp(start, end) - start) as f64 / fs;
-            (sw.f1_hz * (t / sw.l_s).exp()).min(sw.f2_hz)
+            (f1 * (t / l_s).exp()).min(f2)
         };
-        self.guard_with(stimulus.sample_rate_hz, n_blocks, move |b| {
+        self.guard_with(sw.sample_rate_hz, n_blocks, move |b| {
             // Capture block b holds what was sent up to `lat` samples earlier.
             let first = (b * block).saturating_sub(lat);
             let last = (b + 1) * block;
@@ -568,7 +578,7 @@ fn max_correction_db(p: &SafePath, lo_hz: f64, hi_hz: f64) -> f64 {
 
 /// 20·lg|C| of a path's correction at `freq_hz` (linear in log frequency between its
 /// points, held at the ends); 0 dB when not corrected.
-fn correction_at(p: &SafePath, freq_hz: f64) -> f64 {
+pub fn correction_at(p: &SafePath, freq_hz: f64) -> f64 {
     let Some(points) = p.correction_db.as_ref().filter(|v| !v.is_empty()) else {
         return 0.0;
     };

@@ -314,6 +314,12 @@ def canonical(path):
                 max_diff_db=real(c["max_diff_db"]),
                 smoothing_fraction=fraction(c.get("smoothing")),
             )
+        elif k == "listening":
+            out.update(
+                band=band(c["band_hz"]),
+                level_dbfs=real(c["level_dbfs"]),
+                duration_s=real(c["duration_s"]),
+            )
         checks.append(out)
     doc = {
         "analysis": {
