@@ -579,19 +579,10 @@ fn max_correction_db(p: &SafePath, lo_hz: f64, hi_hz: f64) -> f64 {
 /// 20·lg|C| of a path's correction at `freq_hz` (linear in log frequency between its
 /// points, held at the ends); 0 dB when not corrected.
 pub fn correction_at(p: &SafePath, freq_hz: f64) -> f64 {
-    let Some(points) = p.correction_db.as_ref().filter(|v| !v.is_empty()) else {
-        return 0.0;
-    };
-    let k = points.partition_point(|&(f, _)| f < freq_hz);
-    if k == 0 {
-        return points[0].1;
+    match p.correction_db.as_deref() {
+        Some(points) if !points.is_empty() => super::listening::response_at(points, freq_hz),
+        _ => 0.0,
     }
-    if k >= points.len() {
-        return points[points.len() - 1].1;
-    }
-    let ((f0, c0), (f1, c1)) = (points[k - 1], points[k]);
-    let t = (freq_hz / f0).ln() / (f1 / f0).ln();
-    c0 + t * (c1 - c0)
 }
 
 /// The unit's decision from its channels': any abandon abandons; else the lowest gain.
