@@ -317,6 +317,10 @@ impl Bench {
         result.station = Some(self.station.clone());
         result.device_latency_samples = capture.device_latency_samples;
         let heard = self.listening_steps(rig.as_mut(), &mut result, listen)?;
+        // Every refusal, scale-down, trip and dose warning goes to the log too.
+        for e in result.safety.iter().flat_map(|s| &s.events) {
+            tracing::warn!(serial = %result.serial, "hearing safety: {e}");
+        }
 
         // Record before reporting: a verdict the store does not hold was never given.
         let result_json = serde_json::to_string(&result)
