@@ -75,9 +75,12 @@ PA
         sleep 0.1
     done
     PULSE_SERVER="unix:$sock" pactl info >/dev/null
-    # An idle null sink sleeps in 2 s blocks; a reader on the monitor keeps it running.
+    # An idle null sink sleeps in 2 s blocks; a reader on the monitor keeps it running, and
+    # asks for a short latency: the sink renders in blocks of the shortest latency any
+    # client asked for, and at parec's default (2 s, seen in `pactl list sinks`) a new
+    # stream waited up to a whole block for its first samples, past the rig's 2 s limit.
     PULSE_SERVER="unix:$sock" parec -d tragus_loop.monitor --format=float32le --rate=48000 \
-        --channels=2 >/dev/null 2>&1 &
+        --channels=2 --latency-msec=10 >/dev/null 2>&1 &
     echo $! >"$dir/parec.pid"
     sleep 2
     {
