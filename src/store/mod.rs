@@ -404,37 +404,14 @@ impl Store {
             conditions.push("verdict = ?");
             values.push(Value::Text(verdict_word(verdict).to_owned()));
         }
-        // Instants beyond what i64 nanoseconds hold (years before 1678 or after 2262)
-        // saturate, which keeps the comparison right for every storable record time.
-        let ns = |t: time::OffsetDateTime| {
-            unix_ns(t).unwrap_or(if t.unix_timestamp() < 0 {
-                i64::MIN
-            } else {
-                i64::MAX
-            })
-        };
-        if let Some(since) = filter.since {
-            conditions.push("time_unix_ns >= ?");
-            values.push(Value::Integer(ns(since)));
-        }
-        if let Some(until) = filter.until {
-            conditions.push("time_unix_ns < ?");
-            values.push(Value::Integer(ns(until)));
-        }
-        let mut sql = format!("SELECT {RECORD_COLUMNS} FROM records");
-        if !conditions.is_empty() {
-            sql.push_str(" WHERE ");
-            sql.push_str(&conditions.join(" AND "));
-        }
-        sql.push_str(if filter.newest_first {
-            " ORDER BY id DESC"
-        } else {
-            " ORDER BY id"
-        });
-        if let Some(limit) = filter.limit {
-            sql.push_str(" LIMIT ?");
-            values.push(Value::Integer(i64::try_from(limit).unwrap_or(i64::MAX)));
-        }
+        let sql = select_sql(
+            &format!("SELECT {RECORD_COLUMNS} FROM records"),
+            conditions,
+            &mut values,
+            (filter.since, filter.until),
+            filter.newest_first,
+            filter.limit,
+        );
         let mut stmt = self.conn.prepare(&sql).map_err(|e| self.err(e))?;
         let mut rows = stmt
             .query(rusqlite::params_from_iter(values))
@@ -500,6 +477,51 @@ impl Store {
 }
 
 /// Read one row selected with [`RECORD_COLUMNS`].
+/// A listing query: `select` with the `conditions` (their values already in `values`), the
+/// time window on `time_unix_ns` (`since` inclusive, `until` exclusive), the order by id and
+/// the limit; the records and the safety events are listed alike.
+pub(crate) fn select_sql(
+    select: &str,
+    mut conditions: Vec<&'static str>,
+    values: &mut Vec<Value>,
+    (since, until): (Option<time::OffsetDateTime>, Option<time::OffsetDateTime>),
+    newest_first: bool,
+    limit: Option<usize>,
+) -> String {
+    // Instants beyond what i64 nanoseconds hold (years before 1678 or after 2262)
+    // saturate, which keeps the comparison right for every storable time.
+    let ns = |t: time::OffsetDateTime| {
+        unix_ns(t).unwrap_or(if t.unix_timestamp() < 0 {
+            i64::MIN
+        } else {
+            i64::MAX
+        })
+    };
+    if let Some(since) = since {
+        conditions.push("time_unix_ns >= ?");
+        values.push(Value::Integer(ns(since)));
+    }
+    if let Some(until) = until {
+        conditions.push("time_unix_ns < ?");
+        values.push(Value::Integer(ns(until)));
+    }
+    let mut sql = select.to_string();
+    if !conditions.is_empty() {
+        sql.push_str(" WHERE ");
+        sql.push_str(&conditions.join(" AND "));
+    }
+    sql.push_str(if newest_first {
+        " ORDER BY id DESC"
+    } else {
+        " ORDER BY id"
+    });
+    if let Some(limit) = limit {
+        sql.push_str(" LIMIT ?");
+        values.push(Value::Integer(i64::try_from(limit).unwrap_or(i64::MAX)));
+    }
+    sql
+}
+
 fn read_record(row: &Row<'_>, db_path: &Path) -> Result<StoredRecord, StoreError> {
     let id: i64 = row.get(0).map_err(|e| sqlite_err(db_path, e))?;
     let corrupt = |column: &'static str, e: rusqlite::Error| StoreError::Corrupt {

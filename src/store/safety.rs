@@ -459,36 +459,14 @@ impl Store {
             conditions.push("record_id = ?");
             values.push(Value::Integer(record_id));
         }
-        // As for records: instants beyond i64 nanoseconds saturate.
-        let ns = |t: time::OffsetDateTime| {
-            unix_ns(t).unwrap_or(if t.unix_timestamp() < 0 {
-                i64::MIN
-            } else {
-                i64::MAX
-            })
-        };
-        if let Some(since) = filter.since {
-            conditions.push("time_unix_ns >= ?");
-            values.push(Value::Integer(ns(since)));
-        }
-        if let Some(until) = filter.until {
-            conditions.push("time_unix_ns < ?");
-            values.push(Value::Integer(ns(until)));
-        }
-        let mut sql = format!("SELECT {EVENT_COLUMNS} FROM safety_events");
-        if !conditions.is_empty() {
-            sql.push_str(" WHERE ");
-            sql.push_str(&conditions.join(" AND "));
-        }
-        sql.push_str(if filter.newest_first {
-            " ORDER BY id DESC"
-        } else {
-            " ORDER BY id"
-        });
-        if let Some(limit) = filter.limit {
-            sql.push_str(" LIMIT ?");
-            values.push(Value::Integer(i64::try_from(limit).unwrap_or(i64::MAX)));
-        }
+        let sql = super::select_sql(
+            &format!("SELECT {EVENT_COLUMNS} FROM safety_events"),
+            conditions,
+            &mut values,
+            (filter.since, filter.until),
+            filter.newest_first,
+            filter.limit,
+        );
         let mut stmt = self.conn.prepare(&sql).map_err(|e| self.err(e))?;
         let mut rows = stmt
             .query(rusqlite::params_from_iter(values))
