@@ -225,20 +225,7 @@ impl NewRecord {
             ("rig", &self.rig),
         ];
         for (field, value) in text_fields {
-            if value.trim().is_empty() {
-                return Err(StoreError::InvalidRecord {
-                    field,
-                    expected: "non-empty text",
-                    found: shorten(value),
-                });
-            }
-            if value.chars().any(char::is_control) {
-                return Err(StoreError::InvalidRecord {
-                    field,
-                    expected: "text without control characters",
-                    found: shorten(value),
-                });
-            }
+            check_id_text(field, value)?;
         }
         let time_ns = parse_time_utc(&self.time_utc)
             .and_then(unix_ns)
@@ -284,4 +271,24 @@ impl NewRecord {
         }
         Ok(time_ns)
     }
+}
+
+/// Non-empty text without control characters (identity fields: they end up in one-line
+/// reports).
+pub(super) fn check_id_text(field: &'static str, value: &str) -> Result<(), StoreError> {
+    if value.trim().is_empty() {
+        return Err(StoreError::InvalidRecord {
+            field,
+            expected: "non-empty text",
+            found: shorten(value),
+        });
+    }
+    if value.chars().any(char::is_control) {
+        return Err(StoreError::InvalidRecord {
+            field,
+            expected: "text without control characters",
+            found: shorten(value),
+        });
+    }
+    Ok(())
 }

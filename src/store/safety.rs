@@ -18,7 +18,7 @@ use super::hash::{
     chain_row_bytes, is_sha256_hex, real_text, sha256_hex, EXPOSURE_FIELDS, EXPOSURE_HEADER,
     GENESIS_PREV_HASH, SAFETY_EVENT_FIELDS, SAFETY_EVENT_HEADER,
 };
-use super::record::{parse_time_utc, unix_ns};
+use super::record::{check_id_text, parse_time_utc, unix_ns};
 use super::schema::sqlite_err;
 use super::Store;
 use crate::safety::dose::Exposure;
@@ -266,26 +266,6 @@ impl StoredExposure {
             duration_s: self.duration_s,
         }
     }
-}
-
-/// Non-empty text without control characters (identity fields: they end up in one-line
-/// reports).
-fn check_id_text(field: &'static str, value: &str) -> Result<(), StoreError> {
-    if value.trim().is_empty() {
-        return Err(StoreError::InvalidRecord {
-            field,
-            expected: "non-empty text",
-            found: shorten(value),
-        });
-    }
-    if value.chars().any(char::is_control) {
-        return Err(StoreError::InvalidRecord {
-            field,
-            expected: "text without control characters",
-            found: shorten(value),
-        });
-    }
-    Ok(())
 }
 
 impl NewSafetyEvent {
