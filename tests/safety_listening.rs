@@ -205,6 +205,30 @@ fn a_loud_step_is_capped_and_the_dose_warns_then_refuses() {
         refuse_at - warn_at
     );
     assert_eq!(kinds.iter().filter(|k| **k == DoseRefused).count(), 1);
+    // Every step was scaled down (the refused one too: it was refused at its scaled level),
+    // each a stored event of its own kind whose numbers are the played level under the cap.
+    let scaled: Vec<_> = store
+        .safety_events(&tragus::store::SafetyEventFilter {
+            kind: Some(tragus::store::SafetyKind::ListeningScaledDown),
+            ..Default::default()
+        })
+        .unwrap();
+    assert_eq!(scaled.len(), refuse_at, "{kinds:?}");
+    for e in &scaled {
+        assert!(
+            e.message.contains("listening step listen scaled down by"),
+            "{}",
+            e.message
+        );
+        let d: serde_json::Value = serde_json::from_str(&e.detail_json).unwrap();
+        let (g, planned, played) = (
+            d["gain_db"].as_f64().unwrap(),
+            d["planned_reference_dba"].as_f64().unwrap(),
+            d["played_reference_dba"].as_f64().unwrap(),
+        );
+        assert!(g < 0.0 && (planned + g - played).abs() < 1e-9, "{d}");
+        assert!(planned > 115.0 && played <= 114.0 + 1e-9, "{d}");
+    }
     assert!(store.verify().unwrap().is_intact());
     // `tragus exposure` reads the same dose back (NIOSH, this shift), seen from a moment
     // after the last step ended (the simulated steps took no real time).

@@ -633,6 +633,7 @@ impl Bench {
                 .min(inst_headroom_db - crate::safety::station::SCALE_MARGIN_DB)
                 .min(0.0);
             let la = la_max + gain_db;
+            let mut events: Vec<(SafetyKind, String, String)> = Vec::new();
             if gain_db < 0.0 {
                 let words = format!(
                     "listening step {} scaled down by {:.1} dB: it would reach {la_max:.1} dB(A) \
@@ -644,8 +645,17 @@ impl Bench {
                     (-inst_headroom_db).max(0.0)
                 );
                 if let Some(s) = &mut result.safety {
-                    s.events.push(words);
+                    s.events.push(words.clone());
                 }
+                let detail = serde_json::json!({
+                    "step": spec.id,
+                    "gain_db": gain_db,
+                    "planned_reference_dba": la_max,
+                    "played_reference_dba": la,
+                    "cap_reference_dba": self.safety.caps.max_spl_reference_dba,
+                    "guard_headroom_db": inst_headroom_db,
+                });
+                events.push((SafetyKind::ListeningScaledDown, words, detail.to_string()));
             }
             // The operator's dose: this shift (the last 8 h) and the last 7 days.
             let now = time::OffsetDateTime::now_utc().unix_timestamp();
@@ -673,15 +683,15 @@ impl Bench {
                 )
                 .map_err(|e| Exit::retest(anyhow::anyhow!("{e}")))?;
             let words = decision.to_string();
-            let dose_event = match decision.verdict {
-                DoseVerdict::Allowed => None,
+            match decision.verdict {
+                DoseVerdict::Allowed => {}
                 DoseVerdict::Warn => {
-                    Some((SafetyKind::DoseWarning, words.clone(), to_json(&decision)))
+                    events.push((SafetyKind::DoseWarning, words.clone(), to_json(&decision)))
                 }
                 DoseVerdict::Refuse => {
-                    Some((SafetyKind::DoseRefused, words.clone(), to_json(&decision)))
+                    events.push((SafetyKind::DoseRefused, words.clone(), to_json(&decision)))
                 }
-            };
+            }
             if decision.verdict != DoseVerdict::Allowed {
                 if let Some(s) = &mut result.safety {
                     s.events
@@ -694,7 +704,7 @@ impl Bench {
                     start_unix_s: now,
                     level_dba: None,
                     duration_s,
-                    dose_event,
+                    events,
                 });
                 continue;
             }
@@ -719,7 +729,7 @@ impl Bench {
                 start_unix_s: now,
                 level_dba: Some(la),
                 duration_s,
-                dose_event,
+                events,
             });
             if let Some(t) = capture.guard_trip {
                 judged(
@@ -878,7 +888,7 @@ fn record_unit_events(
         let words = s
             .events
             .iter()
-            .filter(|e| e.contains("scaled down"))
+            .filter(|e| e.contains("sweep scaled down"))
             .cloned()
             .collect::<Vec<_>>()
             .join("; ");
@@ -924,8 +934,8 @@ pub(crate) struct Heard {
     level_dba: Option<f64>,
     /// Duration, s.
     duration_s: f64,
-    /// Dose warning or refusal, with its words and numbers.
-    dose_event: Option<(crate::store::SafetyKind, String, String)>,
+    /// Its safety events (scale-down, dose warning or refusal), with words and numbers.
+    events: Vec<(crate::store::SafetyKind, String, String)>,
 }
 
 /// The exposures and dose events of a unit's listening steps, next to its record.
@@ -957,7 +967,7 @@ fn record_listening(
                 tracing::warn!("the listening exposure was not recorded: {e}");
             }
         }
-        if let Some((kind, message, detail_json)) = &h.dose_event {
+        for (kind, message, detail_json) in &h.events {
             let event = NewSafetyEvent {
                 time_utc: result.time_utc.clone(),
                 station: station.clone(),
@@ -971,7 +981,7 @@ fn record_listening(
                 record_id: Some(record_id),
             };
             if let Err(e) = store.append_safety_event(&event) {
-                tracing::warn!("the dose event was not recorded: {e}");
+                tracing::warn!("the listening step's safety event was not recorded: {e}");
             }
         }
     }

@@ -35,6 +35,9 @@ pub enum SafetyKind {
     SweepAbandoned,
     /// The run-time guard saw a level past a cap and faded the output to silence.
     GuardTripped,
+    /// A listening step was played quieter than planned: at its planned level it would have
+    /// passed the A-weighted cap at the reference position or the guard's limit.
+    ListeningScaledDown,
     /// A listening step pushed an operator's dose to or past the warning threshold.
     DoseWarning,
     /// A listening step was refused because an operator's dose would pass the refusal
@@ -44,11 +47,12 @@ pub enum SafetyKind {
 
 impl SafetyKind {
     /// Every kind, in the order of the issue.
-    pub const ALL: [SafetyKind; 6] = [
+    pub const ALL: [SafetyKind; 7] = [
         SafetyKind::PlanRefused,
         SafetyKind::SweepScaledDown,
         SafetyKind::SweepAbandoned,
         SafetyKind::GuardTripped,
+        SafetyKind::ListeningScaledDown,
         SafetyKind::DoseWarning,
         SafetyKind::DoseRefused,
     ];
@@ -60,6 +64,7 @@ impl SafetyKind {
             SafetyKind::SweepScaledDown => "sweep_scaled_down",
             SafetyKind::SweepAbandoned => "sweep_abandoned",
             SafetyKind::GuardTripped => "guard_tripped",
+            SafetyKind::ListeningScaledDown => "listening_scaled_down",
             SafetyKind::DoseWarning => "dose_warning",
             SafetyKind::DoseRefused => "dose_refused",
         }
