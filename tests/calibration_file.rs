@@ -23,6 +23,34 @@ fn canonical_form_matches_an_independent_implementation() {
 }
 
 #[test]
+fn drive_monitors_join_the_canonical_form_as_the_independent_implementation_says() {
+    // expected-monitor.txt: tests/reference/calibration_canonical.py on the same file.
+    let expected = std::fs::read_to_string("tests/data/calibration/expected-monitor.txt").unwrap();
+    let mut lines = expected.lines();
+    let (json, sha) = (lines.next().unwrap(), lines.next().unwrap());
+    let cal = load_calibration(Path::new("tests/data/calibration/example-monitor.yaml")).unwrap();
+    assert_eq!(cal.monitor[&3].volts_peak_per_fs, 2.5);
+    assert_eq!(canonical_json(&cal), json);
+    assert_eq!(cal.sha256(), sha);
+    // Written and read back: the same values, so the same hash.
+    let back = load_calibration_str(&cal.to_yaml(), Path::new("b.yaml")).unwrap();
+    assert_eq!(back.monitor, cal.monitor);
+    assert_eq!(back.sha256(), cal.sha256());
+    // A gain that is not a positive number is a problem at its position.
+    let text = std::fs::read_to_string("tests/data/calibration/example-monitor.yaml").unwrap();
+    let bad = text.replace(
+        "3: {volts_peak_per_fs: 2.5}",
+        "3: {volts_peak_per_fs: -2.5}",
+    );
+    let err = load_calibration_str(&bad, Path::new("m.yaml"))
+        .unwrap_err()
+        .to_string();
+    let line = bad.lines().position(|l| l.contains("-2.5")).unwrap() + 1;
+    assert!(err.starts_with(&format!("m.yaml:{line}:")), "{err}");
+    assert!(err.contains("monitor.3.volts_peak_per_fs"), "{err}");
+}
+
+#[test]
 fn written_file_reads_back_to_the_same_values_and_hash() {
     let cal = load_calibration(Path::new(EXAMPLE)).unwrap();
     let text = cal.to_yaml();

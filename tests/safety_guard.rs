@@ -65,6 +65,7 @@ fn setup() -> (Stimulus, SafetySetup) {
         caps,
         gains_source: "simulated rig constants".into(),
         paths,
+        monitors: Vec::new(),
         budget,
         sweep_dbfs: plan.stimulus.level_dbfs,
         band_hz,

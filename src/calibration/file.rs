@@ -19,6 +19,9 @@
 //!     volts_peak_per_fs: 1.4142         # volts per sample value: a full-scale sine's peak
 //!     reading: {method: meter, tone_hz: 1000, tone_dbfs: -20, measured_v_rms: 0.1,
 //!               measured_utc: "2026-12-02T04:39:00Z"}                 # optional
+//! monitor:                              # optional; per drive-monitor input, 1-based
+//!   3:
+//!     volts_peak_per_fs: 2.0            # volts at the input per sample value
 //! ```
 //!
 //! Problems are reported as `path:line:col: message`, all at once.
@@ -35,6 +38,7 @@
 //!  "due_date":"YYYY-MM-DD",
 //!  "instruments":[{"model":S,"role":S,"serial":S},...],            (file order)
 //!  "microphone":{"<input>":{"fs_per_pa":R,"reading":MR|null},...},
+//!  "monitor":{"<input>":{"volts_peak_per_fs":R},...},      (only when not empty)
 //!  "operator":S,"station":S}
 //! MR = {"level_db_spl":R,"level_dbfs":R,"level_spread_db":R,"measured_hz":R,
 //!       "measured_utc":S,"nominal_hz":R,"snr_db":R,"thd_percent":R}
@@ -43,11 +47,13 @@
 //! ```
 //!
 //! Channel keys are the 1-based channel numbers as decimal strings (sorted as strings).
+//! `monitor` is left out when there is none, so a calibration without drive monitors hashes
+//! as it did before they existed.
 //! Comments, layout and the order of keys in the file do not change the hash; any value does.
 
 use super::{
     Calibration, CalibrationError, DriveCalibration, DriveReading, Instrument, MicCalibration,
-    MicReading,
+    MicReading, MonitorCalibration,
 };
 use crate::acoustics::model::Validator;
 use crate::plan::raw::{self, Pos};
@@ -60,7 +66,7 @@ use std::path::{Path, PathBuf};
 /// Name of this version of the canonical form, written into it.
 pub const CANONICAL_FORM: &str = "tragus-calibration/1";
 
-const TOP_KEYS: [&str; 7] = [
+const TOP_KEYS: [&str; 8] = [
     "station",
     "date_utc",
     "due_date",
@@ -68,6 +74,7 @@ const TOP_KEYS: [&str; 7] = [
     "instruments",
     "microphone",
     "drive",
+    "monitor",
 ];
 const MIC_READING_KEYS: [&str; 8] = [
     "nominal_hz",
@@ -181,6 +188,10 @@ fn read_top(
         None => Some(BTreeMap::new()),
         Some(n) => channels(v, n, "drive", drive_entry),
     };
+    let monitor = match top.get_node("monitor") {
+        None => Some(BTreeMap::new()),
+        Some(n) => channels(v, n, "monitor", monitor_entry),
+    };
     if let (Some(d), Some(due)) = (&date_utc, &due_date) {
         if let Some(made) = parse_time_utc(d) {
             if *due < made.date() {
@@ -203,6 +214,7 @@ fn read_top(
         instruments: instruments?,
         microphone: microphone?,
         drive: drive?,
+        monitor: monitor?,
         source: source.to_path_buf(),
     })
 }
@@ -327,6 +339,12 @@ fn mic_entry(v: &mut Validator, n: &Node, what: &str) -> Option<MicCalibration> 
         fs_per_pa: fs_per_pa?,
         reading: reading?,
     })
+}
+
+fn monitor_entry(v: &mut Validator, n: &Node, what: &str) -> Option<MonitorCalibration> {
+    let f = v.fields(n, what, &["volts_peak_per_fs"], &["volts_peak_per_fs"])?;
+    let volts_peak_per_fs = positive(v, f[0], &format!("{what}.volts_peak_per_fs"), "V/FS")?;
+    Some(MonitorCalibration { volts_peak_per_fs })
 }
 
 fn drive_entry(v: &mut Validator, n: &Node, what: &str) -> Option<DriveCalibration> {
@@ -520,7 +538,7 @@ fn channel_map<T>(m: &BTreeMap<usize, T>, f: impl Fn(&T) -> Value) -> Value {
 
 /// The canonical JSON text of a calibration (module doc).
 pub fn canonical_json(c: &Calibration) -> String {
-    obj(vec![
+    let mut fields = vec![
         ("canonical", json!(CANONICAL_FORM)),
         ("date_utc", json!(c.date_utc)),
         (
@@ -565,8 +583,16 @@ pub fn canonical_json(c: &Calibration) -> String {
         ),
         ("operator", json!(c.operator)),
         ("station", json!(c.station)),
-    ])
-    .to_string()
+    ];
+    if !c.monitor.is_empty() {
+        fields.push((
+            "monitor",
+            channel_map(&c.monitor, |m| {
+                obj(vec![("volts_peak_per_fs", real(m.volts_peak_per_fs))])
+            }),
+        ));
+    }
+    obj(fields).to_string()
 }
 
 /// `YYYY-MM-DD`.
@@ -658,6 +684,15 @@ pub(crate) fn to_yaml(c: &Calibration) -> String {
                 }
                 out.push_str(&format!("      measured_utc: {}\n", q(&r.measured_utc)));
             }
+        }
+    }
+    if !c.monitor.is_empty() {
+        out.push_str("monitor:                    # per drive-monitor input, 1-based\n");
+        for (ch, m) in &c.monitor {
+            out.push_str(&format!(
+                "  {ch}:\n    volts_peak_per_fs: {}   # volts at the input per sample value\n",
+                n(m.volts_peak_per_fs)
+            ));
         }
     }
     out

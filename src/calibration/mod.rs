@@ -100,6 +100,14 @@ pub struct DriveCalibration {
     pub reading: Option<DriveReading>,
 }
 
+/// A drive-monitor input's electrical gain (the station's `drive_monitors:` wire an
+/// amplifier output into it).
+#[derive(Debug, Clone, PartialEq)]
+pub struct MonitorCalibration {
+    /// Volts at the input per sample value, instantaneous (a full-scale sine's peak).
+    pub volts_peak_per_fs: f64,
+}
+
 /// A loaded calibration file (see [`file`](load_calibration) for the YAML).
 #[derive(Debug, Clone, PartialEq)]
 pub struct Calibration {
@@ -117,6 +125,8 @@ pub struct Calibration {
     pub microphone: BTreeMap<usize, MicCalibration>,
     /// Per output channel, 1-based.
     pub drive: BTreeMap<usize, DriveCalibration>,
+    /// Per drive-monitor input channel, 1-based.
+    pub monitor: BTreeMap<usize, MonitorCalibration>,
     /// The file it came from (`<new>` for one not yet written).
     pub source: std::path::PathBuf,
 }

@@ -1,4 +1,4 @@
-//! `tragus calibrate mic|drive|tone`: make or update the station's calibration file.
+//! `tragus calibrate mic|drive|monitor|tone`: make or update the station's calibration file.
 //!
 //! A reading comes from a WAV file (`--capture`) or is recorded through the sound card
 //! (`--record SECONDS`, feature `soundcard`): the calibrator on a microphone input, or the
@@ -38,6 +38,9 @@ pub enum What {
     /// A drive output: from a meter reading of a played tone, or a recording of it through
     /// an input of known volts per full scale.
     Drive(DriveArgs),
+    /// A drive-monitor input: its volts per full scale, from the interface's certificate or
+    /// data sheet (a drive reading through an input records that input's gain too).
+    Monitor(MonitorArgs),
     /// Write the sine `calibrate drive` expects to be played, as 32-bit float WAV.
     Tone(ToneArgs),
 }
@@ -152,6 +155,20 @@ pub struct DriveArgs {
     pub common: Common,
 }
 
+/// Arguments of `calibrate monitor`.
+#[derive(Debug, clap::Args)]
+pub struct MonitorArgs {
+    /// Input channel (1-based) an amplifier output is wired back into.
+    #[arg(long, value_name = "N")]
+    pub input: usize,
+    /// That input's volts per full scale (instantaneous: a full-scale sine's peak).
+    #[arg(long, value_name = "V")]
+    pub volts_peak_per_fs: f64,
+    /// Shared options.
+    #[command(flatten)]
+    pub common: Common,
+}
+
 /// Arguments of `calibrate tone`.
 #[derive(Debug, clap::Args)]
 pub struct ToneArgs {
@@ -182,6 +199,7 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
     match args.what {
         What::Mic(a) => mic(a),
         What::Drive(a) => drive(a),
+        What::Monitor(a) => monitor(a),
         What::Tone(a) => tone(a),
     }
 }
@@ -281,6 +299,7 @@ fn start(common: &Common, station: Option<&crate::station::Station>) -> Result<C
             instruments: Vec::new(),
             microphone: BTreeMap::new(),
             drive: BTreeMap::new(),
+            monitor: BTreeMap::new(),
             source: out,
         },
     };
@@ -393,6 +412,28 @@ fn mic(a: MicArgs) -> Result<i32, Exit> {
     finish(&cal, &what)
 }
 
+fn monitor(a: MonitorArgs) -> Result<i32, Exit> {
+    let input = one_based("--input", a.input)?;
+    let v = a.volts_peak_per_fs;
+    if !(v.is_finite() && v > 0.0) {
+        return Err(Exit::bad_input(anyhow::anyhow!(
+            "--volts-peak-per-fs: expected a gain above 0 V per full scale, found {v}"
+        )));
+    }
+    let station = load_station(&a.common)?;
+    let mut cal = start(&a.common, station.as_ref())?;
+    cal.monitor.insert(
+        input,
+        crate::calibration::MonitorCalibration {
+            volts_peak_per_fs: v,
+        },
+    );
+    finish(
+        &cal,
+        &format!("drive-monitor input {input}: {v:.6} V peak per FS"),
+    )
+}
+
 fn drive(a: DriveArgs) -> Result<i32, Exit> {
     let output = one_based("--output", a.output)?;
     let station = load_station(&a.common)?;
@@ -431,6 +472,14 @@ fn drive(a: DriveArgs) -> Result<i32, Exit> {
                         source_label(a.capture.as_deref())
                     ))
                 })?;
+            // The input's gain was known to read the drive: it is that input's monitor
+            // gain too (used when the station wires a drive monitor into it).
+            cal.monitor.insert(
+                input,
+                crate::calibration::MonitorCalibration {
+                    volts_peak_per_fs: gain,
+                },
+            );
             (d, None)
         }
         _ => {

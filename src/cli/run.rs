@@ -50,6 +50,16 @@ pub struct Args {
     /// Simulated rig: the plan channel that carries the defect (default: the first).
     #[arg(long, value_name = "CHANNEL")]
     pub sim_channel: Option<String>,
+    /// Simulated rig: an amplifier gain fault, dB (the amplifier turned up by this much
+    /// after calibration; -40 to 40). Only drive monitors (`drive_monitors:` in the station
+    /// file) see it as volts.
+    #[arg(
+        long,
+        default_value_t = 0.0,
+        value_name = "DB",
+        allow_hyphen_values = true
+    )]
+    pub sim_amplifier_db: f64,
     /// The station's own fixture model: replaces the plan's `correction.fixture` for every
     /// corrected channel (the plan's `fixture_tap` must exist in it); wins over the station
     /// file's `fixture`.
@@ -97,7 +107,14 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         soundcard: args.soundcard.spec_for(station.as_ref()),
         record_refusals: true,
     })?;
-    let sim = bench.sim_choice(&args.sim_unit, args.sim_channel.as_deref())?;
+    let mut sim = bench.sim_choice(&args.sim_unit, args.sim_channel.as_deref())?;
+    if !(-40.0..=40.0).contains(&args.sim_amplifier_db) {
+        return Err(Exit::bad_input(anyhow::anyhow!(
+            "--sim-amplifier-db: expected a gain error from -40 to 40 dB, found {}",
+            args.sim_amplifier_db
+        )));
+    }
+    sim.amplifier_db = args.sim_amplifier_db;
     bench.show_cautions_if_new();
     let answer = args.listen_answer;
     let listen = move |prompt: &str| -> Option<bool> {

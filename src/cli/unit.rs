@@ -76,6 +76,8 @@ pub(crate) struct SimChoice {
     pub defect_channel: usize,
     /// The name as the user wrote it (recorded).
     pub label: String,
+    /// Amplifier gain fault, dB (0 = as calibrated).
+    pub amplifier_db: f64,
 }
 
 /// One tested and recorded unit.
@@ -149,7 +151,8 @@ impl Bench {
             .clone()
             .or_else(|| std::env::var("USER").ok())
             .unwrap_or_else(|| "unknown".into());
-        let safety = match safety_setup(&prep, caps, cal.as_ref(), rig, non_production) {
+        let monitors = o.station.map_or(&[][..], |s| &s.drive_monitors[..]);
+        let safety = match safety_setup(&prep, caps, cal.as_ref(), monitors, rig, non_production) {
             Ok(s) => s,
             Err(refusal) => {
                 if o.record_refusals {
@@ -214,6 +217,7 @@ impl Bench {
             kind,
             defect_channel,
             label: unit.to_string(),
+            amplifier_db: 0.0,
         })
     }
 
@@ -239,19 +243,27 @@ impl Bench {
             kind: sim.kind,
             defect_channel: sim.defect_channel,
         };
-        Ok(match simulated_fixture(&self.prep.plan)? {
+        let monitors: Vec<(usize, usize)> = self
+            .safety
+            .monitors
+            .iter()
+            .map(|m| (m.output, m.input))
+            .collect();
+        let rig = match simulated_fixture(&self.prep.plan)? {
             // The physical unit (rig v2) in the fixture the correction models, so the
             // correction can be judged against the physics it assumes.
             Some((coupler, tap)) => {
                 tracing::info!(fixture = %coupler.id, "simulated rig: physical earphone");
-                Box::new(
-                    SimulatedRig::physical(routes, self.seed, unit, coupler, &tap)
-                        .map_err(Exit::bad_input)?,
-                )
+                SimulatedRig::physical(routes, self.seed, unit, coupler, &tap)
+                    .map_err(Exit::bad_input)?
             }
             // No fixture model known: the behavioural unit (rig v1).
-            None => Box::new(SimulatedRig::new(routes, self.seed, unit)),
-        })
+            None => SimulatedRig::new(routes, self.seed, unit),
+        };
+        Ok(Box::new(
+            rig.with_drive_monitors(monitors)
+                .with_amplifier_gain_db(sim.amplifier_db),
+        ))
     }
 
     /// Test one unit and record it. `abandon` is asked once more just before the record is
@@ -775,12 +787,10 @@ impl Bench {
     fn soundcard_rig(&self) -> Result<Box<dyn Rig>, Exit> {
         let plan = &self.prep.plan;
         let routes = plan.channels.iter().map(|c| (c.output, c.input)).collect();
-        let rig = crate::rig::soundcard::SoundcardRig::open(
-            self.soundcard.clone(),
-            routes,
-            plan.sample_rate_hz,
-        )
-        .map_err(Exit::from_rig)?;
+        let mut spec = self.soundcard.clone();
+        spec.extra_inputs = self.safety.monitors.iter().map(|m| m.input).collect();
+        let rig = crate::rig::soundcard::SoundcardRig::open(spec, routes, plan.sample_rate_hz)
+            .map_err(Exit::from_rig)?;
         Ok(Box::new(rig))
     }
 
@@ -992,6 +1002,46 @@ fn to_json<T: serde::Serialize>(v: &T) -> String {
     serde_json::to_string(v).unwrap_or_else(|_| "{}".into())
 }
 
+/// The station's drive monitors for this plan, with their gains: the calibration's
+/// `monitor:` entries, or on the simulated rig without a calibration its own monitor gain.
+/// A monitor on an input the plan records is refused (it would read the unit as volts).
+fn drive_monitors(
+    plan: &crate::plan::Plan,
+    monitors: &[crate::station::DriveMonitor],
+    cal: Option<&crate::calibration::Calibration>,
+    sim_constants: bool,
+) -> Result<Vec<crate::safety::monitor::MonitorPath>, String> {
+    use crate::rig::simulated::{DRIVE_V_PER_FS, MONITOR_V_PER_FS};
+    monitors
+        .iter()
+        .map(|m| {
+            if let Some(c) = plan.channels.iter().find(|c| c.input == m.input) {
+                return Err(format!(
+                    "the drive monitor of output {} is wired into input {}, which channel `{}` \
+                     records; give the monitor an input of its own",
+                    m.output + 1,
+                    m.input + 1,
+                    c.name
+                ));
+            }
+            let (input_v, drive_v) = match cal {
+                Some(cal) => (
+                    cal.monitor.get(&(m.input + 1)).map(|x| x.volts_peak_per_fs),
+                    cal.drive.get(&(m.output + 1)).map(|d| d.volts_peak_per_fs),
+                ),
+                None if sim_constants => (Some(MONITOR_V_PER_FS), Some(DRIVE_V_PER_FS)),
+                None => (None, None),
+            };
+            Ok(crate::safety::monitor::MonitorPath {
+                output: m.output,
+                input: m.input,
+                input_v_peak_per_fs: input_v,
+                calibrated_v_peak_per_fs: drive_v,
+            })
+        })
+        .collect()
+}
+
 /// Hearing safety for this plan on this bench: the bench's gains (the calibration, or the
 /// simulated rig's own constants), the correction's range per channel, and the sweep's
 /// plan-time budget, which refuses (exit 2, with the numbers) a plan that could exceed a cap.
@@ -1001,6 +1051,7 @@ pub(crate) fn safety_setup(
     prep: &pipeline::Prepared,
     caps: crate::station::Caps,
     cal: Option<&crate::calibration::Calibration>,
+    monitors: &[crate::station::DriveMonitor],
     rig: RigChoice,
     non_production: bool,
 ) -> Result<SafetySetup, Refusal> {
@@ -1101,10 +1152,39 @@ pub(crate) fn safety_setup(
     for u in &budget.unchecked {
         tracing::warn!("hearing safety: not bounded before playing: {u}");
     }
+    let monitors = drive_monitors(plan, monitors, cal, sim_constants)
+        .map_err(|m| refuse(format!("hearing safety: plan `{}`: {m}", plan.id)))?;
+    // A real amplifier can be turned up after its calibration; only a monitor sees that.
+    let unmonitored: Vec<usize> = plan
+        .channels
+        .iter()
+        .map(|c| c.output)
+        .filter(|o| {
+            !monitors
+                .iter()
+                .any(|m| m.output == *o && m.input_v_peak_per_fs.is_some())
+        })
+        .collect();
+    if rig == RigChoice::Soundcard && !non_production && !unmonitored.is_empty() {
+        return Err(refuse(format!(
+            "hearing safety: plan `{}`: production needs the drive of every output monitored, \
+             but output(s) {} have no drive monitor with a calibrated gain; wire each \
+             amplifier output back into a spare input, list it under `drive_monitors:` in the \
+             station file and calibrate it (`tragus calibrate monitor` or `calibrate drive \
+             --input`); nothing was played",
+            plan.id,
+            unmonitored
+                .iter()
+                .map(|o| (o + 1).to_string())
+                .collect::<Vec<_>>()
+                .join(", ")
+        )));
+    }
     Ok(SafetySetup {
         caps,
         gains_source,
         paths,
+        monitors,
         budget,
         sweep_dbfs: plan.stimulus.level_dbfs,
         band_hz,

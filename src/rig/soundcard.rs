@@ -406,6 +406,7 @@ impl SoundcardRig {
             .iter()
             .map(|r| r.1 + 1)
             .chain(spec.loopback_input.map(|i| i + 1))
+            .chain(spec.extra_inputs.iter().map(|i| i + 1))
             .max()
             .unwrap_or(1);
         let endpoint = |dir: Direction, name: Option<&str>, n: usize| -> Result<Endpoint, _> {

@@ -18,6 +18,9 @@ pub struct SoundcardSpec {
     pub loopback_input: Option<usize>,
     /// 0-based output channel whose drive the loopback input carries.
     pub loopback_output: Option<usize>,
+    /// 0-based inputs recorded besides the routes' and the loopback's: the drive monitors
+    /// (hearing safety watches them; the analysis does not read them).
+    pub extra_inputs: Vec<usize>,
     /// Above this estimated clock drift (ppm) between separate input and output devices the
     /// measurement is a retest.
     pub max_clock_drift_ppm: f64,
@@ -42,6 +45,7 @@ impl Default for SoundcardSpec {
             buffer_frames: None,
             loopback_input: None,
             loopback_output: None,
+            extra_inputs: Vec::new(),
             max_clock_drift_ppm: Self::DEFAULT_MAX_CLOCK_DRIFT_PPM,
         }
     }

@@ -15,6 +15,7 @@
 /// The plan-time level budget against the station caps.
 pub mod budget;
 pub mod dose;
+pub mod monitor;
 pub mod pilot;
 pub mod ramp;
 /// Hearing safety on one bench per unit: pilot, decision, guarded sweep.

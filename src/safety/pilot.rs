@@ -524,6 +524,51 @@ pub enum AbandonReason {
         /// Lowest useful sweep level, dBFS.
         min_sweep_dbfs: f64,
     },
+    /// A drive monitor did not see the pilot its output played: the volts driven are
+    /// unknown (a broken monitor wire, or an amplifier that is off or muted).
+    MonitorSilent {
+        /// The output, 0-based.
+        output: usize,
+        /// The monitor input, 0-based.
+        input: usize,
+        /// The pilot's SNR at the monitor, dB.
+        snr_db: f64,
+    },
+    /// A drive monitor clipped on the pilot: the amplifier gives far more than expected.
+    MonitorClipped {
+        /// The output, 0-based.
+        output: usize,
+        /// The monitor input, 0-based.
+        input: usize,
+        /// Largest monitor sample, full scale.
+        peak_fs: f64,
+    },
+    /// The amplifier's gain, as the drive monitor measures it, is not the calibrated one.
+    DriveGainOff {
+        /// The output, 0-based.
+        output: usize,
+        /// Measured volts peak per full scale.
+        measured_v_peak_per_fs: f64,
+        /// Calibrated volts peak per full scale.
+        calibrated_v_peak_per_fs: f64,
+        /// 20·lg(measured / calibrated), dB.
+        deviation_db: f64,
+        /// Largest deviation accepted, dB.
+        tolerance_db: f64,
+    },
+    /// Staying under the drive-voltage cap needs a sweep below the lowest useful level.
+    DriveTooHigh {
+        /// The output, 0-based.
+        output: usize,
+        /// Peak volts the planned sweep would drive.
+        expected_v_peak: f64,
+        /// The drive cap, V peak.
+        cap_v_peak: f64,
+        /// Sweep level that would stay under it, dBFS.
+        needed_sweep_dbfs: f64,
+        /// Lowest useful sweep level, dBFS.
+        min_sweep_dbfs: f64,
+    },
 }
 
 impl fmt::Display for AbandonReason {
@@ -551,6 +596,57 @@ impl fmt::Display for AbandonReason {
                  ({margin_db:.1} dB margin); staying under it needs a sweep at \
                  {needed_sweep_dbfs:.1} dBFS, below the lowest useful {min_sweep_dbfs:.1} dBFS; \
                  the unit is far more sensitive than declared"
+            ),
+            AbandonReason::MonitorSilent {
+                output,
+                input,
+                snr_db,
+            } => write!(
+                f,
+                "the drive monitor (input {}) shows no pilot tone from output {} (SNR \
+                 {snr_db:.1} dB): the volts driven cannot be checked; check the amplifier and \
+                 the monitor wire",
+                input + 1,
+                output + 1
+            ),
+            AbandonReason::MonitorClipped {
+                output,
+                input,
+                peak_fs,
+            } => write!(
+                f,
+                "the pilot tone of output {} clipped its drive monitor (input {}, peak \
+                 {peak_fs:.4} FS): the amplifier gives far more than calibrated; check its gain",
+                output + 1,
+                input + 1
+            ),
+            AbandonReason::DriveGainOff {
+                output,
+                measured_v_peak_per_fs,
+                calibrated_v_peak_per_fs,
+                deviation_db,
+                tolerance_db,
+            } => write!(
+                f,
+                "output {}'s amplifier gives {deviation_db:+.1} dB against its calibration \
+                 (the drive monitor measured {measured_v_peak_per_fs:.4} V peak per FS, the \
+                 calibration says {calibrated_v_peak_per_fs:.4}; at most ±{tolerance_db:.1} dB \
+                 is accepted): check the amplifier's gain setting, then calibrate the drive \
+                 again",
+                output + 1
+            ),
+            AbandonReason::DriveTooHigh {
+                output,
+                expected_v_peak,
+                cap_v_peak,
+                needed_sweep_dbfs,
+                min_sweep_dbfs,
+            } => write!(
+                f,
+                "output {} would drive {expected_v_peak:.3} V peak against a cap of \
+                 {cap_v_peak:.3} V; staying under it needs a sweep at {needed_sweep_dbfs:.1} \
+                 dBFS, below the lowest useful {min_sweep_dbfs:.1} dBFS",
+                output + 1
             ),
         }
     }

@@ -16,6 +16,7 @@
 //!    to silence ([`crate::rig::Guard`]).
 
 use super::budget::{correction_extremes, max_a_weighting_db, Budget, SINE_CREST_DB};
+use super::monitor::{decide_monitor, drive_peak_limit_v, MonitorChannel, MonitorPath};
 use super::pilot::{self, PilotReading, PilotSpec, ReadSettings, SweepDecision, SweepLimits};
 use super::weighting::a_weighting_db;
 use crate::dsp::sweep::Stimulus;
@@ -74,6 +75,9 @@ pub struct SafetySetup {
     pub gains_source: String,
     /// Per plan channel.
     pub paths: Vec<SafePath>,
+    /// The station's drive monitors (empty: the drive is not monitored and the drive caps
+    /// rest on the calibration).
+    pub monitors: Vec<MonitorPath>,
     /// The sweep's plan-time budget.
     pub budget: Budget,
     /// Planned sweep level, dBFS.
@@ -107,9 +111,12 @@ pub struct PilotChannel {
 pub struct PilotReport {
     /// The tone played.
     pub spec: PilotSpec,
-    /// Per channel.
+    /// Per channel with a calibrated microphone.
     pub channels: Vec<PilotChannel>,
-    /// The unit's decision: the most restrictive channel's.
+    /// Per drive monitor whose output the pilot drove.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub monitors: Vec<MonitorChannel>,
+    /// The unit's decision: the most restrictive channel's or monitor's.
     pub decision: SweepDecision,
 }
 
@@ -204,6 +211,21 @@ impl SafetySetup {
                     })
                     .collect(),
                 None => per_block,
+            });
+        }
+        // Drive monitors: the peak volts the caps allow, on the input's scale.
+        let drive_v = drive_peak_limit_v(&self.caps);
+        for m in &self.monitors {
+            if limits_fs.len() <= m.input {
+                limits_fs.resize(m.input + 1, None);
+            }
+            let limit = m
+                .input_v_peak_per_fs
+                .map_or(clip, |v| (drive_v / v).min(clip));
+            let old = limits_fs[m.input].take();
+            limits_fs[m.input] = Some(match old {
+                Some(v) => v.into_iter().map(|x| x.min(limit)).collect(),
+                None => vec![limit],
             });
         }
         let fs = f64::from(sample_rate_hz);
@@ -328,6 +350,12 @@ impl SafetySetup {
         stimulus: &Stimulus,
         n_inputs: usize,
     ) -> Result<SafeOutcome, RigError> {
+        // The monitor inputs are recorded too, whatever the plan reads.
+        let n_inputs = self
+            .monitors
+            .iter()
+            .map(|m| m.input + 1)
+            .fold(n_inputs, usize::max);
         let guard = self.guard_for_sweep(stimulus);
         rig.arm_guard(Some(
             self.guard_for_tone(stimulus.sample_rate_hz, PILOT_FREQ_HZ),
@@ -352,9 +380,21 @@ impl SafetySetup {
                 .collect(),
         };
         let calibrated = self.paths.iter().all(|p| p.mic_fs_per_pa.is_some());
+        for m in self
+            .monitors
+            .iter()
+            .filter(|m| m.input_v_peak_per_fs.is_none())
+        {
+            safety.events.push(format!(
+                "the drive monitor of output {} (input {}) has no calibrated gain \
+                 (`tragus calibrate monitor`): it is watched for clipping only",
+                m.output + 1,
+                m.input + 1
+            ));
+        }
         let mut gain_db = 0.0;
         let mut output_gains_db = vec![0.0f64; stimulus.channels.len()];
-        if calibrated {
+        if calibrated || !self.monitors.is_empty() {
             let (report, pilot_capture) = self.pilot(rig, stimulus, n_inputs)?;
             let decision = report.decision;
             safety.pilot = Some(report);
@@ -398,7 +438,9 @@ impl SafetySetup {
                     // Each output by its own channels' decisions: a loud left bud does not
                     // make the right one quieter.
                     let report = safety.pilot.as_ref().map_or(&[][..], |r| &r.channels[..]);
-                    for (p, c) in self.paths.iter().zip(report) {
+                    let by_name =
+                        |c: &PilotChannel| self.paths.iter().find(|p| p.channel == c.channel);
+                    for (p, c) in report.iter().filter_map(|c| by_name(c).map(|p| (p, c))) {
                         if let SweepDecision::ScaleDown {
                             gain_db: g,
                             expected_db,
@@ -416,6 +458,28 @@ impl SafetySetup {
                             ));
                         }
                     }
+                    let monitors = safety.pilot.as_ref().map_or(&[][..], |r| &r.monitors[..]);
+                    for m in monitors {
+                        if let SweepDecision::ScaleDown {
+                            gain_db: g,
+                            expected_db,
+                            planned_expected_db,
+                            ..
+                        } = m.decision
+                        {
+                            output_gains_db[m.output] = output_gains_db[m.output].min(g);
+                            safety.events.push(format!(
+                                "output {}: sweep scaled down by {:.1} dB: its drive monitor \
+                                 says the planned sweep would drive {:.3} V peak, over the \
+                                 drive cap of {:.3} V; played for {:.3} V peak",
+                                m.output + 1,
+                                -g,
+                                10f64.powf(planned_expected_db / 20.0),
+                                drive_peak_limit_v(&self.caps),
+                                10f64.powf(expected_db / 20.0)
+                            ));
+                        }
+                    }
                 }
                 SweepDecision::Abandon { reason } => {
                     // Name the channel that stopped it, as every channel-level reason does.
@@ -427,7 +491,16 @@ impl SafetySetup {
                                 .iter()
                                 .find(|c| matches!(c.decision, SweepDecision::Abandon { .. }))
                         })
-                        .map_or(String::new(), |c| format!("{}: ", c.channel));
+                        .map(|c| format!("{}: ", c.channel))
+                        .or_else(|| {
+                            safety.pilot.as_ref().and_then(|r| {
+                                r.monitors
+                                    .iter()
+                                    .find(|m| matches!(m.decision, SweepDecision::Abandon { .. }))
+                                    .map(|m| format!("output {}: ", m.output + 1))
+                            })
+                        })
+                        .unwrap_or_default();
                     let reason = format!("{who}sweep abandoned: {reason}");
                     safety.events.push(reason.clone());
                     return Ok(SafeOutcome::Abandoned {
@@ -437,10 +510,11 @@ impl SafetySetup {
                     });
                 }
             }
-        } else {
+        }
+        if !calibrated {
             safety.events.push(
-                "no pilot tone: without a microphone calibration its level cannot be judged; \
-                 the guard watches the inputs for clipping only"
+                "no pilot tone at the microphones: without a microphone calibration its level \
+                 cannot be judged; the guard watches the microphone inputs for clipping only"
                     .into(),
             );
         }
@@ -460,12 +534,33 @@ impl SafetySetup {
         };
         if let Some(trip) = capture.guard_trip.clone() {
             let ms = |n: usize| n as f64 * 1e3 / f64::from(stimulus.sample_rate_hz);
+            let what = match self.monitors.iter().find(|m| m.input == trip.input) {
+                Some(m) => match m.input_v_peak_per_fs {
+                    Some(v) => format!(
+                        "the drive monitor of output {} (input {}) reached {:.3} V peak \
+                         (limit {:.3} V)",
+                        m.output + 1,
+                        m.input + 1,
+                        trip.peak_fs * v,
+                        trip.limit_fs * v
+                    ),
+                    None => format!(
+                        "the drive monitor of output {} (input {}) clipped ({:.3} FS)",
+                        m.output + 1,
+                        m.input + 1,
+                        trip.peak_fs
+                    ),
+                },
+                None => format!(
+                    "input {} reached {:.3} FS (limit {:.3} FS)",
+                    trip.input + 1,
+                    trip.peak_fs,
+                    trip.limit_fs
+                ),
+            };
             let event = format!(
-                "hearing-safety guard tripped: input {} reached {:.3} FS (limit {:.3} FS) at \
-                 {:.1} ms; output faded to silence by {:.1} ms",
-                trip.input + 1,
-                trip.peak_fs,
-                trip.limit_fs,
+                "hearing-safety guard tripped: {what} at {:.1} ms; output faded to silence by \
+                 {:.1} ms",
                 ms(trip.first_over_sample),
                 ms(trip.silent_from_sample)
             );
@@ -509,7 +604,7 @@ impl SafetySetup {
             min_snr_db: pilot::MIN_SNR_DB,
         };
         let mut channels = Vec::new();
-        for p in &self.paths {
+        for p in self.paths.iter().filter(|p| p.mic_fs_per_pa.is_some()) {
             let samples = capture.channels.get(p.input).map_or(&[][..], Vec::as_slice);
             let reading = pilot::read_pilot(samples, fs, &spec, &settings)
                 .map_err(|e| RigError::Fault(format!("pilot tone, channel {}: {e}", p.channel)))?;
@@ -542,11 +637,43 @@ impl SafetySetup {
                 decision,
             });
         }
-        let decision = most_restrictive(channels.iter().map(|c| c.decision));
+        let mut monitors = Vec::new();
+        for m in &self.monitors {
+            if !stimulus.driven_outputs.contains(&m.output) {
+                continue;
+            }
+            let samples = capture.channels.get(m.input).map_or(&[][..], Vec::as_slice);
+            let what = |e: pilot::PilotError| {
+                RigError::Fault(format!(
+                    "pilot tone, drive monitor of output {}: {e}",
+                    m.output + 1
+                ))
+            };
+            let reading = pilot::read_pilot(samples, fs, &spec, &settings).map_err(what)?;
+            monitors.push(
+                decide_monitor(
+                    m,
+                    &reading,
+                    spec.level_dbfs,
+                    self.sweep_dbfs,
+                    self.sweep_dbfs - MAX_SCALE_DOWN_DB,
+                    SCALE_MARGIN_DB,
+                    &self.caps,
+                )
+                .map_err(what)?,
+            );
+        }
+        let decision = most_restrictive(
+            channels
+                .iter()
+                .map(|c| c.decision)
+                .chain(monitors.iter().map(|m| m.decision)),
+        );
         Ok((
             PilotReport {
                 spec,
                 channels,
+                monitors,
                 decision,
             },
             capture,

@@ -1,7 +1,7 @@
 //! Reading a station file: YAML node tree → checks at each node → [`Station`].
 
 use super::{
-    Caps, ChannelRoute, Mode, Station, StationError, StationFixture, StationRig,
+    Caps, ChannelRoute, DriveMonitor, Mode, Station, StationError, StationFixture, StationRig,
     BUFFER_FRAMES_RANGE, CLOCK_DRIFT_RANGE_PPM, DEFAULT_MAX_CLOCK_DRIFT_PPM, MAX_CHANNEL_NUMBER,
 };
 use crate::acoustics::model::{load_model, ModelError, Validator};
@@ -13,13 +13,14 @@ use marked_yaml::Node;
 use sha2::{Digest, Sha256};
 use std::path::{Path, PathBuf};
 
-const TOP_KEYS: [&str; 11] = [
+const TOP_KEYS: [&str; 12] = [
     "station",
     "description",
     "mode",
     "rig",
     "audio",
     "channels",
+    "drive_monitors",
     "fixture",
     "fixture_tap",
     "calibration",
@@ -176,9 +177,14 @@ impl Reader {
                 buffer_frames: None,
                 loopback_input: None,
                 loopback_output: None,
+                extra_inputs: Vec::new(),
                 max_clock_drift_ppm: DEFAULT_MAX_CLOCK_DRIFT_PPM,
             }),
             Some(n) => self.audio(n, &partial),
+        };
+        let drive_monitors = match top.get_node("drive_monitors") {
+            None => Some(Vec::new()),
+            Some(n) => self.drive_monitors(n, &partial, soundcard.as_ref()),
         };
         let fixture = self.fixture(top);
         let calibration = match top.get_node("calibration") {
@@ -218,6 +224,7 @@ impl Reader {
             rig: rig?,
             soundcard: soundcard?,
             channels: channels?,
+            drive_monitors: drive_monitors?,
             fixture: fixture?,
             calibration: calibration?,
             store: store?,
@@ -435,8 +442,97 @@ impl Reader {
             buffer_frames: buffer_frames?,
             loopback_input: loopback.map(|(_, i)| i),
             loopback_output: loopback.map(|(o, _)| o),
+            extra_inputs: Vec::new(),
             max_clock_drift_ppm: max_clock_drift_ppm?,
         })
+    }
+
+    /// `drive_monitors:`, a list of `{output: N, input: M}`: each output's amplifier output
+    /// wired back into an input of known volts per full scale (the calibration's `monitor:`).
+    /// Outputs and inputs unique; an input no channel records; the loopback input only for
+    /// the loopback's own output (it is the same wire).
+    fn drive_monitors(
+        &mut self,
+        node: &Node,
+        channels: &[ChannelRoute],
+        audio: Option<&SoundcardSpec>,
+    ) -> Option<Vec<DriveMonitor>> {
+        let Node::Sequence(items) = node else {
+            self.v.report(
+                pos(node),
+                format!(
+                    "drive_monitors: expected a list of {{output: N, input: M}}, found {}",
+                    raw::found(node)
+                ),
+            );
+            return None;
+        };
+        let mut out: Vec<DriveMonitor> = Vec::new();
+        let mut ok = true;
+        for (k, item) in items.iter().enumerate() {
+            let what = format!("drive_monitors[{k}]");
+            let Some((output, input)) = self.pair(item, &what) else {
+                ok = false;
+                continue;
+            };
+            let at = |key: &str| match item {
+                Node::Mapping(m) => m.get_node(key).map_or(pos(item), pos),
+                _ => pos(item),
+            };
+            let mut problem = |r: &mut Self, key: &str, message: String| {
+                r.v.report(at(key), format!("{what}.{key}: {message}"));
+                ok = false;
+            };
+            if out.iter().any(|m| m.output == output) {
+                problem(
+                    self,
+                    "output",
+                    format!(
+                        "expected an output no other monitor watches, found {}",
+                        output + 1
+                    ),
+                );
+            }
+            if out.iter().any(|m| m.input == input) {
+                problem(
+                    self,
+                    "input",
+                    format!(
+                        "expected an input no other monitor uses, found {}",
+                        input + 1
+                    ),
+                );
+            }
+            if let Some(r) = channels.iter().find(|r| r.input == input) {
+                problem(
+                    self,
+                    "input",
+                    format!(
+                        "expected an input that no channel records, found {} (the input of \
+                         channel {})",
+                        input + 1,
+                        r.name
+                    ),
+                );
+            }
+            if let Some(a) = audio {
+                if a.loopback_input == Some(input) && a.loopback_output != Some(output) {
+                    problem(
+                        self,
+                        "input",
+                        format!(
+                            "expected the loopback input {} to monitor the loopback's own \
+                             output {}, found output {}",
+                            input + 1,
+                            a.loopback_output.map_or(0, |o| o + 1),
+                            output + 1
+                        ),
+                    );
+                }
+            }
+            out.push(DriveMonitor { output, input });
+        }
+        ok.then_some(out)
     }
 
     /// A file that must exist, resolved against the station file's directory.

@@ -29,6 +29,9 @@
 //! channels:                       # optional: plan channel name → device channels, 1-based
 //!   left: {output: 1, input: 1}
 //!   right: {output: 2, input: 2}
+//! drive_monitors:                 # optional: amplifier outputs wired back into inputs,
+//!   - {output: 1, input: 3}       #   1-based; the calibration's `monitor:` gives each
+//!   - {output: 2, input: 4}       #   input's volts per full scale
 //! fixture: ../reference/couplers/fixture-line3-a.yaml   # optional coupler model
 //! fixture_tap: mic                # optional; default: the plan's fixture_tap
 //! calibration: ../calibration/line3-st1.yaml            # required in production mode
@@ -117,6 +120,17 @@ pub struct ChannelRoute {
     pub input: usize,
 }
 
+/// One drive monitor: the amplifier output of a device output wired back into a device
+/// input, so that the volts really driven are measured (hearing safety: an amplifier whose
+/// gain was turned up after calibration shows in the pilot tone and trips the guard).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+pub struct DriveMonitor {
+    /// Output channel, 0-based.
+    pub output: usize,
+    /// Input channel that carries it, 0-based.
+    pub input: usize,
+}
+
 /// The station's fixture: the coupler model the unit sits in, replacing the plan's
 /// correction fixture.
 #[derive(Debug, Clone, PartialEq)]
@@ -190,6 +204,8 @@ pub struct Station {
     pub soundcard: SoundcardSpec,
     /// Plan channel → device channels; empty = use the plan's numbers.
     pub channels: Vec<ChannelRoute>,
+    /// Drive monitors (0-based channels); empty = the drive is not monitored.
+    pub drive_monitors: Vec<DriveMonitor>,
     /// The station's fixture, if it names one.
     pub fixture: Option<StationFixture>,
     /// Calibration file (resolved against the station file's directory).

@@ -60,6 +60,10 @@ def canonical(path):
         "operator": c["operator"],
         "station": c["station"],
     }
+    # Drive-monitor inputs: present only when the file has some, so older files hash alike.
+    if c.get("monitor"):
+        doc["monitor"] = {str(k): {"volts_peak_per_fs": real(v["volts_peak_per_fs"])}
+                          for k, v in c["monitor"].items()}
     return json.dumps(doc, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
 
 

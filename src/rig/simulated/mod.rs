@@ -62,6 +62,10 @@ pub trait Dut: Send + Sync {
     }
 }
 
+/// Drive-monitor input: volts peak per full scale (invented: a line input reaching full
+/// scale at 1 V peak, so the default 0.707 V drive cap sits at −3 dBFS on it).
+pub const MONITOR_V_PER_FS: f64 = 1.0;
+
 /// Default latency of the simulated converters, samples (an invented, typical-looking
 /// round trip).
 pub const DEFAULT_LATENCY_SAMPLES: usize = 96;
@@ -284,6 +288,17 @@ pub struct SimulatedRig {
     guard: Option<Guard>,
     /// The outputs as last played (after any guard fade), for inspection.
     last_played: Vec<Vec<f32>>,
+    /// Drive monitors: (output, input), both 0-based; each input carries its output's
+    /// amplifier voltage on a [`MONITOR_V_PER_FS`] scale.
+    monitors: Vec<(usize, usize)>,
+    /// The amplifier's gain error, linear (1 = as calibrated): a fault injection that
+    /// scales every output's drive, what the units hear and what the monitors see alike.
+    amplifier_gain: f64,
+    /// A gain change during a run: from this many output samples after the rig was built
+    /// (counted over every play), the amplifier's gain error is this (linear).
+    amplifier_change: Option<(u64, f64)>,
+    /// Output samples played so far, over every play (the clock of `amplifier_change`).
+    clock_samples: u64,
 }
 
 impl SimulatedRig {
@@ -320,6 +335,10 @@ impl SimulatedRig {
             n_runs: 0,
             guard: None,
             last_played: Vec::new(),
+            monitors: Vec::new(),
+            amplifier_gain: 1.0,
+            amplifier_change: None,
+            clock_samples: 0,
         }
     }
 
@@ -343,7 +362,34 @@ impl SimulatedRig {
             n_runs: 0,
             guard: None,
             last_played: Vec::new(),
+            monitors: Vec::new(),
+            amplifier_gain: 1.0,
+            amplifier_change: None,
+            clock_samples: 0,
         }
+    }
+
+    /// Wire drive monitors: each `(output, input)` (0-based) records that output's
+    /// amplifier voltage at [`MONITOR_V_PER_FS`] volts per full scale, through the same
+    /// converter latency, noise and clipping as every input.
+    pub fn with_drive_monitors(mut self, monitors: Vec<(usize, usize)>) -> Self {
+        self.monitors = monitors;
+        self
+    }
+
+    /// Inject an amplifier gain fault: every output's drive is `gain_db` louder than the
+    /// calibration ([`DRIVE_V_PER_FS`]) says (an amplifier turned up after calibration).
+    pub fn with_amplifier_gain_db(mut self, gain_db: f64) -> Self {
+        self.amplifier_gain = 10f64.powf(gain_db / 20.0);
+        self
+    }
+
+    /// Inject an amplifier gain change: `after_samples` output samples after the rig was
+    /// built (counted over every play, pilot and sweep alike), the gain error becomes
+    /// `gain_db` (a knob turned, or an intermittent fault, while a plan runs).
+    pub fn with_amplifier_change(mut self, after_samples: u64, gain_db: f64) -> Self {
+        self.amplifier_change = Some((after_samples, 10f64.powf(gain_db / 20.0)));
+        self
     }
 
     /// Set the latency, samples.
@@ -421,6 +467,10 @@ impl SimulatedRig {
             n_runs: 0,
             guard: None,
             last_played: Vec::new(),
+            monitors: Vec::new(),
+            amplifier_gain: 1.0,
+            amplifier_change: None,
+            clock_samples: 0,
         }
     }
 
@@ -466,6 +516,12 @@ impl Rig for SimulatedRig {
 }
 
 impl SimulatedRig {
+    /// Output samples played so far over every play (the clock of
+    /// [`SimulatedRig::with_amplifier_change`]).
+    pub fn clock_samples(&self) -> u64 {
+        self.clock_samples
+    }
+
     /// The outputs as last played, after any fade the guard applied (one per output).
     pub fn last_played(&self) -> &[Vec<f32>] {
         &self.last_played
@@ -482,6 +538,7 @@ impl SimulatedRig {
             Some(g) => g.play_offline(outputs, |o| self.simulate(o, fs, n_inputs))?,
             None => (self.simulate(outputs, fs, n_inputs)?, outputs.to_vec()),
         };
+        self.clock_samples += played.iter().map(Vec::len).max().unwrap_or(0) as u64;
         self.last_played = played;
         Ok(capture)
     }
@@ -511,17 +568,44 @@ impl SimulatedRig {
             )));
         }
         let n = outputs.iter().map(Vec::len).min().unwrap_or(0);
+        if let Some(&(o, _)) = self.monitors.iter().find(|(o, _)| *o >= n_outputs) {
+            return Err(Self::bad(format!(
+                "expected output channels below {n_outputs}, found a drive monitor of output {o}"
+            )));
+        }
         let n_channels = self
             .routes
             .iter()
+            .chain(&self.monitors)
             .map(|&(_, i)| i + 1)
             .max()
             .unwrap_or(0)
             .max(n_inputs);
         let mut acoustic = vec![vec![0.0f64; n]; n_channels];
         let mut faults = Vec::new();
+        // The amplifier's gain error at each sample of this play.
+        let amp: Vec<f64> = (0..n as u64)
+            .map(|k| match self.amplifier_change {
+                Some((at, g)) if self.clock_samples + k >= at => g,
+                _ => self.amplifier_gain,
+            })
+            .collect();
+        for &(o, i) in &self.monitors {
+            let to_input = DRIVE_V_PER_FS / MONITOR_V_PER_FS;
+            for (k, (&v, a)) in outputs[o][..n.saturating_sub(self.latency_samples)]
+                .iter()
+                .zip(&amp)
+                .enumerate()
+            {
+                acoustic[i][k + self.latency_samples] += f64::from(v) * a * to_input;
+            }
+        }
         for (c, (&(o, i), dut)) in self.routes.iter().zip(&self.duts).enumerate() {
-            let drive: Vec<f64> = outputs[o][..n].iter().map(|&v| f64::from(v)).collect();
+            let drive: Vec<f64> = outputs[o][..n]
+                .iter()
+                .zip(&amp)
+                .map(|(&v, a)| f64::from(v) * a)
+                .collect();
             let (out, dut_faults) = dut.respond_with_faults(&drive, fs);
             faults.extend(
                 dut_faults
