@@ -12,13 +12,9 @@ use common::tragus;
 use std::path::{Path, PathBuf};
 use tragus::acoustics::model::load_model;
 use tragus::dsp::sweep::Stimulus;
-use tragus::plan::load_plan;
-use tragus::rig::simulated::{
-    Defect, SimUnit, SimulatedRig, UnitKind, DRIVE_V_PER_FS, MIC_FS_PER_PA,
-};
+use tragus::rig::simulated::{Defect, SimUnit, SimulatedRig, UnitKind};
 use tragus::rig::Rig;
-use tragus::safety::budget::{sine_budget, ChannelPath};
-use tragus::safety::station::{SafePath, SafetySetup, GUARD_BLOCK_S};
+use tragus::safety::station::{SafetySetup, GUARD_BLOCK_S};
 use tragus::station::Caps;
 
 fn root() -> PathBuf {
@@ -28,51 +24,7 @@ fn root() -> PathBuf {
 /// The demo plan's sweep and a safety set-up with the simulated bench's own gains, the
 /// default caps, the fixture taken as the reference (no correction).
 fn setup() -> (Stimulus, SafetySetup) {
-    let plan = load_plan(&root().join("plans/demo-earbud.yaml")).unwrap();
-    let stimulus = Stimulus::from_plan(&plan).unwrap();
-    let caps = Caps::default();
-    let paths: Vec<SafePath> = plan
-        .channels
-        .iter()
-        .map(|c| SafePath {
-            channel: c.name.clone(),
-            output: c.output,
-            input: c.input,
-            drive_v_peak_per_fs: Some(DRIVE_V_PER_FS),
-            mic_fs_per_pa: Some(MIC_FS_PER_PA),
-            correction_db: None,
-            correction_db_range: None,
-            correction_at_pilot_db: 0.0,
-        })
-        .collect();
-    let band_hz = (plan.stimulus.start_hz, plan.stimulus.stop_hz);
-    let budget = sine_budget(
-        "the sweep",
-        plan.stimulus.level_dbfs,
-        band_hz,
-        plan.product.as_ref(),
-        &paths
-            .iter()
-            .map(|p| ChannelPath {
-                channel: p.channel.clone(),
-                drive_v_peak_per_fs: p.drive_v_peak_per_fs,
-                correction_db: None,
-            })
-            .collect::<Vec<_>>(),
-        &caps,
-    );
-    let setup = SafetySetup {
-        caps,
-        gains_source: "simulated rig constants".into(),
-        paths,
-        monitors: Vec::new(),
-        budget,
-        sweep_dbfs: plan.stimulus.level_dbfs,
-        band_hz,
-        response_peak_db: plan.product.unwrap().response_peak_db,
-        max_latency_s: 0.05,
-    };
-    (stimulus, setup)
+    common::demo_safety_setup(Caps::default(), Vec::new())
 }
 
 fn rig(kind: UnitKind) -> SimulatedRig {

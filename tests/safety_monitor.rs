@@ -14,14 +14,10 @@ use common::tragus;
 use std::path::{Path, PathBuf};
 use tragus::acoustics::model::load_model;
 use tragus::dsp::sweep::Stimulus;
-use tragus::plan::load_plan;
-use tragus::rig::simulated::{
-    SimUnit, SimulatedRig, UnitKind, DRIVE_V_PER_FS, MIC_FS_PER_PA, MONITOR_V_PER_FS,
-};
+use tragus::rig::simulated::{SimUnit, SimulatedRig, UnitKind, DRIVE_V_PER_FS, MONITOR_V_PER_FS};
 use tragus::rig::Rig;
-use tragus::safety::budget::{sine_budget, ChannelPath};
 use tragus::safety::monitor::{MonitorPath, DRIVE_GAIN_TOLERANCE_DB};
-use tragus::safety::station::{SafeOutcome, SafePath, SafetySetup, GUARD_BLOCK_S};
+use tragus::safety::station::{SafeOutcome, SafetySetup, GUARD_BLOCK_S};
 use tragus::station::{load_station_str, Caps};
 
 fn root() -> PathBuf {
@@ -41,39 +37,6 @@ fn tight_caps() -> Caps {
 
 /// The demo plan's sweep on the simulated bench's own gains, monitors on inputs 3 and 4.
 fn setup(caps: Caps) -> (Stimulus, SafetySetup) {
-    let plan = load_plan(&root().join("plans/demo-earbud.yaml")).unwrap();
-    let stimulus = Stimulus::from_plan(&plan).unwrap();
-    let paths: Vec<SafePath> = plan
-        .channels
-        .iter()
-        .map(|c| SafePath {
-            channel: c.name.clone(),
-            output: c.output,
-            input: c.input,
-            drive_v_peak_per_fs: Some(DRIVE_V_PER_FS),
-            mic_fs_per_pa: Some(MIC_FS_PER_PA),
-            correction_db: None,
-            correction_db_range: None,
-            correction_at_pilot_db: 0.0,
-        })
-        .collect();
-    let band_hz = (plan.stimulus.start_hz, plan.stimulus.stop_hz);
-    let budget = sine_budget(
-        "the sweep",
-        plan.stimulus.level_dbfs,
-        band_hz,
-        plan.product.as_ref(),
-        &paths
-            .iter()
-            .map(|p| ChannelPath {
-                channel: p.channel.clone(),
-                drive_v_peak_per_fs: p.drive_v_peak_per_fs,
-                correction_db: None,
-            })
-            .collect::<Vec<_>>(),
-        &caps,
-    );
-    assert!(budget.refusal().is_none(), "{:?}", budget.refusal());
     let monitors = (0..2)
         .map(|o| MonitorPath {
             output: o,
@@ -82,17 +45,12 @@ fn setup(caps: Caps) -> (Stimulus, SafetySetup) {
             calibrated_v_peak_per_fs: Some(DRIVE_V_PER_FS),
         })
         .collect();
-    let setup = SafetySetup {
-        caps,
-        gains_source: "simulated rig constants".into(),
-        paths,
-        monitors,
-        budget,
-        sweep_dbfs: plan.stimulus.level_dbfs,
-        band_hz,
-        response_peak_db: plan.product.unwrap().response_peak_db,
-        max_latency_s: 0.05,
-    };
+    let (stimulus, setup) = common::demo_safety_setup(caps, monitors);
+    assert!(
+        setup.budget.refusal().is_none(),
+        "{:?}",
+        setup.budget.refusal()
+    );
     (stimulus, setup)
 }
 
