@@ -190,7 +190,7 @@ fn the_pilot_reads_the_amplifier_gain_and_abandons_a_sweep_off_its_calibration()
     );
 }
 
-fn run_cli(dir: &Path, serial: &str, extra: &[&str]) -> (i32, serde_json::Value) {
+fn run_cli(dir: &Path, serial: &str, extra: &[&str]) -> (i32, serde_json::Value, String) {
     let json = dir.join(format!("{serial}.json"));
     let out = tragus()
         .arg("run")
@@ -207,15 +207,21 @@ fn run_cli(dir: &Path, serial: &str, extra: &[&str]) -> (i32, serde_json::Value)
     let stderr = String::from_utf8_lossy(&out.stderr).to_string();
     let j = serde_json::from_str(&std::fs::read_to_string(&json).unwrap_or_default())
         .unwrap_or_else(|_| panic!("no result: {stderr}"));
-    (out.status.code().unwrap(), j)
+    let stdout = String::from_utf8_lossy(&out.stdout).to_string();
+    (out.status.code().unwrap(), j, stdout)
 }
 
 #[test]
 fn the_demo_station_reads_its_drive_and_records_an_amplifier_fault() {
     let dir = tempfile::tempdir().unwrap();
     // As calibrated: the monitors read the simulated bench's own 0.25 V/FS.
-    let (code, j) = run_cli(dir.path(), "E2-000912", &[]);
+    let (code, j, shown) = run_cli(dir.path(), "E2-000912", &[]);
     assert!(code == 0 || code == 1, "{j:#}");
+    // The operator's view names each monitor and the gain it read.
+    for o in [1, 2] {
+        let line = format!("  drive   output {o} (monitor input {}): 0.2", o + 2);
+        assert!(shown.contains(&line), "missing `{line}` in:\n{shown}");
+    }
     let monitors = j["safety"]["pilot"]["monitors"].as_array().unwrap();
     assert_eq!(monitors.len(), 2);
     for m in monitors {
@@ -223,7 +229,7 @@ fn the_demo_station_reads_its_drive_and_records_an_amplifier_fault() {
         assert!((got / DRIVE_V_PER_FS - 1.0).abs() < 0.006, "{m}");
     }
     // +12 dB: a retest, not swept, the reason and a stored safety event.
-    let (code, j) = run_cli(dir.path(), "E2-000913", &["--sim-amplifier-db", "12"]);
+    let (code, j, _) = run_cli(dir.path(), "E2-000913", &["--sim-amplifier-db", "12"]);
     assert_eq!(code, 3, "{j:#}");
     assert_eq!(j["verdict"], "retest");
     let reason = j["retest_reasons"][0].as_str().unwrap();

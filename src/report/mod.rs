@@ -205,6 +205,22 @@ fn safety_block(s: &crate::safety::station::UnitSafety, swept: bool) -> String {
                 c.channel, p.spec.freq_hz, p.spec.level_dbfs, c.reading.snr_db
             ));
         }
+        for m in &p.monitors {
+            let gain = match (m.measured_v_peak_per_fs, m.calibrated_v_peak_per_fs) {
+                (Some(v), Some(cal)) => format!(
+                    "{v:.4} V peak/FS, calibrated {cal:.4} ({:+.1} dB)",
+                    20.0 * (v / cal).log10()
+                ),
+                (Some(v), None) => format!("{v:.4} V peak/FS"),
+                _ => format!("{:.1} dBFS at the input", m.reading.level_dbfs),
+            };
+            out.push_str(&format!(
+                "  drive   output {} (monitor input {}): {gain}, SNR {:.0} dB\n",
+                m.output + 1,
+                m.input + 1,
+                m.reading.snr_db
+            ));
+        }
     }
     out.push_str(&format!(
         "  sweep   {}\n",
