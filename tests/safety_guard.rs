@@ -8,18 +8,13 @@
 
 mod common;
 
-use common::tragus;
-use std::path::{Path, PathBuf};
-use tragus::acoustics::model::load_model;
+use common::{root, tragus};
+use std::path::Path;
 use tragus::dsp::sweep::Stimulus;
-use tragus::rig::simulated::{Defect, SimUnit, SimulatedRig, UnitKind};
+use tragus::rig::simulated::{Defect, SimulatedRig, UnitKind};
 use tragus::rig::Rig;
 use tragus::safety::station::{SafetySetup, GUARD_BLOCK_S};
 use tragus::station::Caps;
-
-fn root() -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-}
 
 /// The demo plan's sweep and a safety set-up with the simulated bench's own gains, the
 /// default caps, the fixture taken as the reference (no correction).
@@ -28,21 +23,7 @@ fn setup() -> (Stimulus, SafetySetup) {
 }
 
 fn rig(kind: UnitKind) -> SimulatedRig {
-    let fixture = load_model(&root().join("reference/couplers/fixture-line3-a.yaml"))
-        .unwrap()
-        .coupler();
-    SimulatedRig::physical(
-        vec![(0, 0), (1, 1)],
-        1,
-        SimUnit {
-            serial: "E2-000901".into(),
-            kind,
-            defect_channel: 0,
-        },
-        fixture,
-        "mic",
-    )
-    .unwrap()
+    common::demo_physical_rig("E2-000901", kind)
 }
 
 /// Largest |x[n+1] − x[n]| over `x[from..to]`.

@@ -10,19 +10,14 @@
 
 mod common;
 
-use common::tragus;
-use std::path::{Path, PathBuf};
-use tragus::acoustics::model::load_model;
+use common::{root, tragus};
+use std::path::Path;
 use tragus::dsp::sweep::Stimulus;
-use tragus::rig::simulated::{SimUnit, SimulatedRig, UnitKind, DRIVE_V_PER_FS, MONITOR_V_PER_FS};
+use tragus::rig::simulated::{SimulatedRig, UnitKind, DRIVE_V_PER_FS, MONITOR_V_PER_FS};
 use tragus::rig::Rig;
 use tragus::safety::monitor::{MonitorPath, DRIVE_GAIN_TOLERANCE_DB};
 use tragus::safety::station::{SafeOutcome, SafetySetup, GUARD_BLOCK_S};
 use tragus::station::{load_station_str, Caps};
-
-fn root() -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-}
 
 /// Drive caps low enough that a 6 dB amplifier fault passes them while the sound stays
 /// under every acoustic cap: the demo sweep drives 0.0158 V peak (−24 dBFS × 0.25 V/FS);
@@ -55,22 +50,8 @@ fn setup(caps: Caps) -> (Stimulus, SafetySetup) {
 }
 
 fn rig() -> SimulatedRig {
-    let fixture = load_model(&root().join("reference/couplers/fixture-line3-a.yaml"))
-        .unwrap()
-        .coupler();
-    SimulatedRig::physical(
-        vec![(0, 0), (1, 1)],
-        1,
-        SimUnit {
-            serial: "E2-000911".into(),
-            kind: UnitKind::Design,
-            defect_channel: 0,
-        },
-        fixture,
-        "mic",
-    )
-    .unwrap()
-    .with_drive_monitors(vec![(0, 2), (1, 3)])
+    common::demo_physical_rig("E2-000911", UnitKind::Design)
+        .with_drive_monitors(vec![(0, 2), (1, 3)])
 }
 
 #[test]
@@ -375,12 +356,7 @@ drive:
             .arg(&wired)
             .output()
             .unwrap();
-        assert_eq!(
-            out.status.code(),
-            Some(0),
-            "{}",
-            String::from_utf8_lossy(&out.stderr)
-        );
+        common::assert_exit(&out, 0);
     }
     let written = tragus::calibration::load_calibration(&d.join("cal.yaml")).unwrap();
     assert_eq!(written.monitor[&3].volts_peak_per_fs, 2.0);

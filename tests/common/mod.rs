@@ -184,3 +184,29 @@ pub fn demo_safety_setup(
     };
     (stimulus, setup)
 }
+
+/// The physical simulated rig (v2) with unit `serial` of population 1 in the demo's fixture A
+/// (`reference/couplers/fixture-line3-a.yaml`, tap `mic`), routes left (1→1) and right
+/// (2→2); a defect, if any, on the left channel.
+pub fn demo_physical_rig(
+    serial: &str,
+    kind: tragus::rig::simulated::UnitKind,
+) -> tragus::rig::simulated::SimulatedRig {
+    let fixture = tragus::acoustics::model::load_model(
+        &root().join("reference/couplers/fixture-line3-a.yaml"),
+    )
+    .unwrap()
+    .coupler();
+    tragus::rig::simulated::SimulatedRig::physical(
+        vec![(0, 0), (1, 1)],
+        1,
+        tragus::rig::simulated::SimUnit {
+            serial: serial.into(),
+            kind,
+            defect_channel: 0,
+        },
+        fixture,
+        "mic",
+    )
+    .unwrap()
+}
