@@ -8,6 +8,7 @@
 
 pub mod acoustics;
 pub mod analysis;
+pub mod bench;
 pub mod calibration;
 pub mod checks;
 pub mod cli;

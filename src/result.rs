@@ -73,34 +73,7 @@ pub struct CorrectionInfo {
     pub sha256: String,
 }
 
-/// Which calibration converted a result to dB SPL/V, and under which mode the unit was
-/// tested (the `calibration` object of the result JSON).
-#[derive(Debug, Clone, PartialEq, serde::Serialize)]
-pub struct CalibrationInfo {
-    /// `production` (a calibration in date covering every channel), `non-production`
-    /// (`--non-production`: the result may rest on a past-due, partial or no calibration) or
-    /// `uncalibrated` (no calibration given; responses in dB FS/FS).
-    pub mode: String,
-    /// The calibration's canonical SHA-256 (`tragus-calibration/1`), when one was applied.
-    pub sha256: Option<String>,
-    /// The calibration's due date, `YYYY-MM-DD`, when one was applied.
-    pub due_date: Option<String>,
-    /// The unit the plan's levels are written and judged in: `db_fs_per_fs` or
-    /// `db_spl_per_v` (the plan's `level_unit`).
-    pub level_unit: String,
-}
-
-impl CalibrationInfo {
-    /// No calibration, production mode not claimed.
-    pub fn uncalibrated() -> Self {
-        CalibrationInfo {
-            mode: "uncalibrated".into(),
-            sha256: None,
-            due_date: None,
-            level_unit: crate::plan::LevelUnit::DbFsPerFs.name().into(),
-        }
-    }
-}
+pub use crate::calibration::CalibrationInfo;
 
 /// One unit's result.
 #[derive(Debug, Clone, serde::Serialize)]
@@ -139,7 +112,7 @@ pub struct UnitResult {
     /// What hearing safety did (caps, budget, pilot, scale-down, guard trip, events);
     /// absent for `analyze`, which plays nothing.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub safety: Option<crate::safety::station::UnitSafety>,
+    pub safety: Option<crate::safety::setup::UnitSafety>,
 }
 
 /// Current UTC time in RFC 3339 with millisecond precision.

@@ -27,6 +27,7 @@
 mod drive;
 mod file;
 mod microphone;
+pub mod policy;
 pub mod tone;
 
 pub use drive::{drive_from_input, drive_from_meter, DriveError, DriveReading};
@@ -277,4 +278,33 @@ pub fn shift_levels_db(m: &mut crate::analysis::ChannelMeasurement, offset_db: f
         *p *= power_gain;
     }
     m.fine.rebuild_cumulative();
+}
+
+/// Which calibration converted a result to dB SPL/V, and under which mode the unit was
+/// tested (the `calibration` object of the result JSON).
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct CalibrationInfo {
+    /// `production` (a calibration in date covering every channel), `non-production`
+    /// (`--non-production`: the result may rest on a past-due, partial or no calibration) or
+    /// `uncalibrated` (no calibration given; responses in dB FS/FS).
+    pub mode: String,
+    /// The calibration's canonical SHA-256 (`tragus-calibration/1`), when one was applied.
+    pub sha256: Option<String>,
+    /// The calibration's due date, `YYYY-MM-DD`, when one was applied.
+    pub due_date: Option<String>,
+    /// The unit the plan's levels are written and judged in: `db_fs_per_fs` or
+    /// `db_spl_per_v` (the plan's `level_unit`).
+    pub level_unit: String,
+}
+
+impl CalibrationInfo {
+    /// No calibration, production mode not claimed.
+    pub fn uncalibrated() -> Self {
+        CalibrationInfo {
+            mode: "uncalibrated".into(),
+            sha256: None,
+            due_date: None,
+            level_unit: crate::plan::LevelUnit::DbFsPerFs.name().into(),
+        }
+    }
 }

@@ -115,6 +115,27 @@ impl Finding {
 /// Measurements are matched to plan channels by name, so their order does not matter; a
 /// plan channel without a measurement makes its checks (and the unit) a retest.
 pub fn judge(plan: &Plan, channels: &[ChannelMeasurement]) -> (Vec<CheckResult>, Verdict) {
+    let judged = judge_checks(plan, channels);
+    let unit = verdict::unit_verdict(
+        judged.any_channel_invalid,
+        judged.results.iter().map(|r| r.verdict),
+        [],
+    );
+    (judged.results, unit)
+}
+
+/// The check results of a unit, and whether any of its channels was not validly measured
+/// (which makes the unit a retest whatever the checks say).
+#[derive(Debug, Clone)]
+pub struct JudgedChecks {
+    /// One result per check and channel, in plan order (listening steps excluded).
+    pub results: Vec<CheckResult>,
+    /// A plan channel has no measurement, or a measurement is not valid.
+    pub any_channel_invalid: bool,
+}
+
+/// Judge every measured check of `plan` (see [`judge`]) without deciding the unit verdict.
+pub fn judge_checks(plan: &Plan, channels: &[ChannelMeasurement]) -> JudgedChecks {
     let find = |name: &str| channels.iter().find(|m| m.name == name);
     let mut results = Vec::new();
     for spec in &plan.checks {
@@ -165,8 +186,10 @@ pub fn judge(plan: &Plan, channels: &[ChannelMeasurement]) -> (Vec<CheckResult>,
         .iter()
         .any(|c| find(&c.name).is_none_or(|m| !m.is_valid()))
         || channels.iter().any(|m| !m.is_valid());
-    let unit = verdict::unit_verdict(any_invalid, results.iter().map(|r| r.verdict));
-    (results, unit)
+    JudgedChecks {
+        results,
+        any_channel_invalid: any_invalid,
+    }
 }
 
 /// Judge one single-channel check kind on one measurement (`nominal_impedance_ohm`: the

@@ -1,6 +1,6 @@
 //! `tragus analyze PLAN --capture FILE.wav [--json OUT]`: judge a recorded capture.
 
-use super::{pipeline, Exit, JsonOut, Output};
+use super::{Exit, JsonOut, Output};
 use crate::rig::recording::RecordingRig;
 use crate::rig::Rig;
 use std::path::PathBuf;
@@ -28,12 +28,12 @@ pub struct Args {
 }
 
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
-    let mut prep = pipeline::prepare(&args.plan, args.fixture.as_deref())?;
+    let mut prep = crate::bench::Prepared::new(&args.plan, args.fixture.as_deref())?;
     let mut rig = RecordingRig::open(&args.capture).map_err(Exit::from_rig)?;
     let capture = rig
         .play_and_capture(&prep.stimulus, prep.plan.n_inputs())
         .map_err(Exit::from_rig)?;
-    let result = pipeline::judge_capture(&mut prep, &capture, &args.serial, rig.name(), None, &[])?;
+    let result = prep.judge_capture(&capture, &args.serial, rig.name(), None, &[])?;
     if let Some(j) = &args.json {
         j.write(&result).map_err(Exit::bad_input)?;
     }

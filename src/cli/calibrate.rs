@@ -233,7 +233,7 @@ fn load_station(common: &Common) -> Result<Option<crate::station::Station>, Exit
     common
         .station
         .as_deref()
-        .map(super::unit::load_station)
+        .map(|p| crate::bench::load_station(p).map_err(Exit::from))
         .transpose()
 }
 

@@ -96,8 +96,5 @@ pub(crate) fn run(_args: Args) -> Result<i32, Exit> {
     Err(Exit::bad_input(anyhow::anyhow!("{}", NOT_BUILT)))
 }
 
-/// Why a build without the feature cannot list or open sound cards, and how to get one.
 #[cfg(not(feature = "soundcard"))]
-pub(crate) const NOT_BUILT: &str =
-    "this build has no sound-card support; install the ALSA headers (`apt-get install \
-     libasound2-dev pkg-config`) and build with `cargo build --release --features soundcard`";
+pub(crate) use crate::rig::SOUNDCARD_NOT_BUILT as NOT_BUILT;

@@ -10,13 +10,11 @@ mod calibrate;
 mod coupler;
 mod devices;
 mod exposure;
-mod pipeline;
 mod records;
 mod run;
 mod soundcard_args;
 mod station;
 mod stimulus;
-mod unit;
 mod validate;
 
 use clap::{Parser, Subcommand};
@@ -196,6 +194,49 @@ impl Exit {
             crate::rig::RigError::BadInput { .. } => Exit::bad_input(e),
             crate::rig::RigError::Fault(_) => Exit::retest(e),
         }
+    }
+}
+
+impl From<crate::bench::BenchError> for Exit {
+    fn from(e: crate::bench::BenchError) -> Self {
+        use crate::bench::ErrorKind;
+        Exit {
+            code: match e.kind() {
+                ErrorKind::BadInput => EXIT_BAD_INPUT,
+                ErrorKind::Retest => EXIT_RETEST,
+            },
+            error: anyhow::Error::new(e),
+        }
+    }
+}
+
+impl From<crate::bench::UnitStop> for Exit {
+    fn from(e: crate::bench::UnitStop) -> Self {
+        match e {
+            crate::bench::UnitStop::Error(e) => e.into(),
+            crate::bench::UnitStop::Abandoned => Exit::retest(anyhow::anyhow!(
+                "the unit was abandoned and NOT recorded; test it again"
+            )),
+        }
+    }
+}
+
+/// The `--rig` values: the library's one rig-kind enum, parsed by its own words.
+pub(crate) fn rig_kind_parser(
+) -> impl clap::builder::TypedValueParser<Value = crate::station::RigKind> {
+    use clap::builder::{PossibleValue, PossibleValuesParser, TypedValueParser};
+    PossibleValuesParser::new([
+        PossibleValue::new("simulated").help("The simulated earphone and fixture (no hardware)"),
+        PossibleValue::new("soundcard").help("A sound card (the station's audio settings)"),
+    ])
+    .try_map(|s| s.parse::<crate::station::RigKind>())
+}
+
+/// Show the cautions once, on a station's first run (a store that does not exist yet),
+/// before anything plays (on stderr, so JSON on stdout stays clean).
+pub(crate) fn show_cautions_if_new(bench: &crate::bench::Bench) {
+    if bench.is_new_store() {
+        eprint!("{}", crate::safety::CAUTIONS);
     }
 }
 

@@ -1,12 +1,11 @@
 //! `tragus run PLAN --serial SN [--station FILE] [--rig simulated|soundcard] [--store DIR]
-//! [--json OUT]`: one unit end to end ([`super::unit`]), then the human report or JSON.
+//! [--json OUT]`: one unit end to end ([`crate::bench`]), then the human report or JSON.
 
 use super::soundcard_args::SoundcardArgs;
-use super::unit::{self, Bench, BenchOptions, UnitStop};
 use super::{Exit, JsonOut, Output};
+use crate::bench::{Bench, BenchOptions};
+use crate::station::RigKind;
 use std::path::PathBuf;
-
-pub use super::unit::RigChoice;
 
 /// An operator's answer to a listening step.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
@@ -30,8 +29,8 @@ pub struct Args {
     #[arg(long, value_name = "FILE")]
     pub station: Option<PathBuf>,
     /// Rig to use; defaults to the station's `rig`, else the plan's `rig`.
-    #[arg(long, value_enum)]
-    pub rig: Option<RigChoice>,
+    #[arg(long, value_parser = super::rig_kind_parser())]
+    pub rig: Option<RigKind>,
     /// Store directory (created if missing); wins over the station's `store`; default
     /// `tragus-data`.
     #[arg(long, value_name = "DIR")]
@@ -92,7 +91,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
     let station = args
         .station
         .as_deref()
-        .map(unit::load_station)
+        .map(crate::bench::load_station)
         .transpose()?;
     let mut bench = Bench::new(BenchOptions {
         plan: &args.plan,
@@ -115,7 +114,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         )));
     }
     sim.amplifier_db = args.sim_amplifier_db;
-    bench.show_cautions_if_new();
+    super::show_cautions_if_new(&bench);
     let answer = args.listen_answer;
     let listen = move |prompt: &str| -> Option<bool> {
         match answer {
@@ -123,16 +122,8 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
             None => super::station::ask_terminal(prompt),
         }
     };
-    let tested = match bench.test_unit(&args.serial, &sim, &|| false, &listen) {
-        Ok(t) => t,
-        Err(UnitStop::Error(e)) => return Err(e),
-        // `run` never asks to abandon; kept total rather than a panic.
-        Err(UnitStop::Abandoned) => {
-            return Err(Exit::retest(anyhow::anyhow!(
-                "the unit was abandoned and NOT recorded; test it again"
-            )))
-        }
-    };
+    // `run` never asks to abandon.
+    let tested = bench.test_and_record(&args.serial, &sim, &|| false, &listen)?;
     let (result, stored) = (tested.result, tested.stored);
 
     if let Some(j) = &args.json {

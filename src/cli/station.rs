@@ -17,8 +17,8 @@
 //! `{"kind":"summary",...}` line. With `--json -` the operator screen goes to stderr.
 
 use super::soundcard_args::SoundcardArgs;
-use super::unit::{self, Bench, BenchOptions, SimChoice, Tested, UnitStop};
 use super::{Exit, JsonOut, Output, EXIT_PASS};
+use crate::bench::{Bench, BenchOptions, SimChoice, Tested, UnitStop};
 use crate::station::tally::{check_serial, Counts, Tally};
 use anyhow::Context;
 use std::collections::HashMap;
@@ -165,7 +165,7 @@ fn counts_line(c: &Counts) -> String {
 }
 
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
-    let station = unit::load_station(&args.station)?;
+    let station = crate::bench::load_station(&args.station)?;
     let mut bench = Bench::new(BenchOptions {
         plan: &args.plan,
         station: Some(&station),
@@ -180,7 +180,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         record_refusals: true,
     })?;
     bench.pace_realtime = args.sim_realtime;
-    bench.show_cautions_if_new();
+    super::show_cautions_if_new(&bench);
     let sims = parse_sim_units(&bench, &args.sim_unit)?;
     let nominal = bench.sim_choice("nominal", None)?;
     let mut lines = args.json.as_ref().map(Lines::open).transpose()?;
@@ -294,7 +294,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
                 }
             }
         };
-        let outcome = bench.test_unit(serial, &sim, &abandon, &listen);
+        let outcome = bench.test_and_record(serial, &sim, &abandon, &listen);
         if let Some(pb) = progress {
             pb.finish_and_clear();
         }
@@ -334,7 +334,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
                 break StopReason::Interrupt;
             }
             Err(UnitStop::Error(e)) => {
-                error = Some(e);
+                error = Some(e.into());
                 break StopReason::Error;
             }
         }

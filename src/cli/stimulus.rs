@@ -17,7 +17,7 @@ pub struct Args {
 }
 
 pub(crate) fn run(args: Args) -> Result<i32, Exit> {
-    let plan = super::pipeline::load(&args.plan)?;
+    let plan = crate::bench::load(&args.plan)?;
     let stimulus = Stimulus::from_plan(&plan)
         .with_context(|| format!("{}: cannot build the sweep", args.plan.display()))
         .map_err(Exit::bad_input)?;

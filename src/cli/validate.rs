@@ -91,7 +91,7 @@ fn on_station(
     station_path: &std::path::Path,
     station: &crate::station::Station,
 ) -> i32 {
-    let bench = super::unit::Bench::new(super::unit::BenchOptions {
+    let bench = crate::bench::Bench::new(crate::bench::BenchOptions {
         plan,
         station: Some(station),
         fixture: None,
@@ -132,6 +132,7 @@ fn on_station(
             EXIT_PASS
         }
         Err(e) => {
+            let e = super::Exit::from(e);
             println!(
                 "{} on {}: refused: {:#}",
                 plan.display(),

@@ -176,7 +176,7 @@ pub fn render_human(result: &UnitResult, color: bool) -> String {
 /// The hearing-safety block: where the gains came from, the closest cap of the plan-time
 /// budget, the pilot's reading per channel, whether the sweep played (`swept`: the unit has
 /// measurements) and every event in words.
-fn safety_block(s: &crate::safety::station::UnitSafety, swept: bool) -> String {
+fn safety_block(s: &crate::safety::setup::UnitSafety, swept: bool) -> String {
     let mut out = String::from("\nhearing safety\n");
     out.push_str(&format!("  gains   {}\n", s.gains_source));
     if let Some(item) = s

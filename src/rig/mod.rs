@@ -15,6 +15,12 @@ pub mod soundcard_spec;
 
 pub use soundcard_spec::SoundcardSpec;
 
+/// Why a build without the `soundcard` feature cannot list or open sound cards, and how to
+/// get one.
+pub const SOUNDCARD_NOT_BUILT: &str =
+    "this build has no sound-card support; install the ALSA headers (`apt-get install \
+     libasound2-dev pkg-config`) and build with `cargo build --release --features soundcard`";
+
 use crate::dsp::sweep::Stimulus;
 
 /// What a rig captured: samples per input channel at one sample rate.

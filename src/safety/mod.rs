@@ -15,11 +15,13 @@
 /// The plan-time level budget against the station caps.
 pub mod budget;
 pub mod dose;
+pub mod event;
 pub mod monitor;
 pub mod pilot;
 pub mod ramp;
-/// Hearing safety on one bench per unit: pilot, decision, guarded sweep.
-pub mod station;
+/// Hearing safety on one bench per unit: the set-up per plan, then per unit the pilot, the
+/// decision and the guarded sweep.
+pub mod setup;
 pub mod weighting;
 
 /// The cautions shown on a station's first run (a store that does not exist yet) and in the
@@ -40,3 +42,5 @@ CAUTION — sound levels
 ";
 /// The listening step: its signal and its A-weighted level at the reference position.
 pub mod listening;
+/// The listening steps of one unit, played under the guard and the dose ledger.
+pub mod listening_steps;

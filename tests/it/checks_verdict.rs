@@ -27,7 +27,7 @@ fn unit_verdict_table() {
     ];
     for (invalid, checks, want) in table {
         assert_eq!(
-            unit_verdict(*invalid, checks.iter().copied()),
+            unit_verdict(*invalid, checks.iter().copied(), []),
             *want,
             "invalid={invalid} checks={checks:?}"
         );

@@ -13,7 +13,7 @@ use std::path::Path;
 use tragus::dsp::sweep::Stimulus;
 use tragus::rig::simulated::{Defect, SimulatedRig, UnitKind};
 use tragus::rig::Rig;
-use tragus::safety::station::{SafetySetup, GUARD_BLOCK_S};
+use tragus::safety::setup::{SafetySetup, GUARD_BLOCK_S};
 use tragus::station::Caps;
 
 /// The demo plan's sweep and a safety set-up with the simulated bench's own gains, the

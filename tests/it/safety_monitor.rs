@@ -16,7 +16,7 @@ use tragus::dsp::sweep::Stimulus;
 use tragus::rig::simulated::{SimulatedRig, UnitKind, DRIVE_V_PER_FS, MONITOR_V_PER_FS};
 use tragus::rig::Rig;
 use tragus::safety::monitor::{MonitorPath, DRIVE_GAIN_TOLERANCE_DB};
-use tragus::safety::station::{SafeOutcome, SafetySetup, GUARD_BLOCK_S};
+use tragus::safety::setup::{SafeOutcome, SafetySetup, GUARD_BLOCK_S};
 use tragus::station::{load_station_str, Caps};
 
 /// Drive caps low enough that a 6 dB amplifier fault passes them while the sound stays

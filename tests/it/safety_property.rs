@@ -28,7 +28,7 @@ use tragus::plan::{load_plan_str, ProductSpec, SensitivityUnit};
 use tragus::rig::simulated::{Biquad, Dut, SimulatedRig, DRIVE_V_PER_FS, MONITOR_V_PER_FS};
 use tragus::safety::budget::{sine_budget, ChannelPath};
 use tragus::safety::monitor::MonitorPath;
-use tragus::safety::station::{SafeOutcome, SafePath, SafetySetup};
+use tragus::safety::setup::{SafeOutcome, SafePath, SafetySetup};
 use tragus::safety::weighting::a_weighting_db;
 use tragus::station::Caps;
 

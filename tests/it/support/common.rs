@@ -134,11 +134,11 @@ pub fn demo_safety_setup(
     monitors: Vec<tragus::safety::monitor::MonitorPath>,
 ) -> (
     tragus::dsp::sweep::Stimulus,
-    tragus::safety::station::SafetySetup,
+    tragus::safety::setup::SafetySetup,
 ) {
     use tragus::rig::simulated::{DRIVE_V_PER_FS, MIC_FS_PER_PA};
     use tragus::safety::budget::{sine_budget, ChannelPath};
-    use tragus::safety::station::{SafePath, SafetySetup};
+    use tragus::safety::setup::{SafePath, SafetySetup};
     let plan = tragus::plan::load_plan(&root().join("plans/demo-earbud.yaml")).unwrap();
     let stimulus = tragus::dsp::sweep::Stimulus::from_plan(&plan).unwrap();
     let paths: Vec<SafePath> = plan

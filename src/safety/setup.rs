@@ -16,6 +16,7 @@
 //!    to silence ([`crate::rig::Guard`]).
 
 use super::budget::{correction_extremes, max_a_weighting_db, Budget, SINE_CREST_DB};
+use super::event::{SafetyEvent, SafetyKind};
 use super::monitor::{decide_monitor, drive_peak_limit_v, MonitorChannel, MonitorPath};
 use super::pilot::{self, PilotReading, PilotSpec, ReadSettings, SweepDecision, SweepLimits};
 use super::weighting::a_weighting_db;
@@ -142,6 +143,22 @@ pub struct UnitSafety {
     pub guard_trip: Option<GuardTrip>,
     /// Every refusal, scale-down, trip and warning, in words.
     pub events: Vec<String>,
+    /// The events the store keeps in its safety-event chain, typed where they happened.
+    #[serde(skip)]
+    pub audit_events: Vec<SafetyEvent>,
+}
+
+impl UnitSafety {
+    /// The sweep is abandoned for `reason`: said in words and kept for the audit trail with
+    /// the pilot's numbers.
+    fn abandon(&mut self, reason: &str) {
+        self.events.push(reason.to_string());
+        self.audit_events.push(SafetyEvent::new(
+            SafetyKind::SweepAbandoned,
+            reason,
+            &self.pilot,
+        ));
+    }
 }
 
 /// How one unit's safe run ended.
@@ -378,6 +395,7 @@ impl SafetySetup {
                 .iter()
                 .map(|u| format!("not bounded before playing: {u}"))
                 .collect(),
+            audit_events: Vec::new(),
         };
         let calibrated = self.paths.iter().all(|p| p.mic_fs_per_pa.is_some());
         for m in self
@@ -408,7 +426,7 @@ impl SafetySetup {
                         pilot_capture.faults.join("; ")
                     }
                 );
-                safety.events.push(reason.clone());
+                safety.abandon(&reason);
                 return Ok(SafeOutcome::Abandoned {
                     capture: pilot_capture,
                     reason,
@@ -423,7 +441,12 @@ impl SafetySetup {
                     trip.peak_fs,
                     trip.limit_fs
                 );
-                safety.events.push(reason.clone());
+                safety.abandon(&reason);
+                safety.audit_events.push(SafetyEvent::new(
+                    SafetyKind::GuardTripped,
+                    &reason,
+                    &trip,
+                ));
                 safety.guard_trip = Some(trip);
                 return Ok(SafeOutcome::Abandoned {
                     capture: pilot_capture,
@@ -435,6 +458,7 @@ impl SafetySetup {
                 SweepDecision::Proceed { .. } => {}
                 SweepDecision::ScaleDown { gain_db: g, .. } => {
                     gain_db = g;
+                    let mut scaled_words = Vec::new();
                     // Each output by its own channels' decisions: a loud left bud does not
                     // make the right one quieter.
                     let report = safety.pilot.as_ref().map_or(&[][..], |r| &r.channels[..]);
@@ -449,7 +473,7 @@ impl SafetySetup {
                         } = c.decision
                         {
                             output_gains_db[p.output] = output_gains_db[p.output].min(g);
-                            safety.events.push(format!(
+                            scaled_words.push(format!(
                                 "channel {}: sweep scaled down by {:.1} dB: the pilot says the \
                                  planned sweep would reach {planned_expected_db:.1} dB SPL at the \
                                  microphone at {} Hz, over the level the caps allow there; \
@@ -468,7 +492,7 @@ impl SafetySetup {
                         } = m.decision
                         {
                             output_gains_db[m.output] = output_gains_db[m.output].min(g);
-                            safety.events.push(format!(
+                            scaled_words.push(format!(
                                 "output {}: sweep scaled down by {:.1} dB: its drive monitor \
                                  says the planned sweep would drive {:.3} V peak, over the \
                                  drive cap of {:.3} V; played for {:.3} V peak",
@@ -480,6 +504,14 @@ impl SafetySetup {
                             ));
                         }
                     }
+                    if gain_db < 0.0 {
+                        safety.audit_events.push(SafetyEvent::new(
+                            SafetyKind::SweepScaledDown,
+                            scaled_words.join("; "),
+                            &safety.pilot,
+                        ));
+                    }
+                    safety.events.extend(scaled_words);
                 }
                 SweepDecision::Abandon { reason } => {
                     // Name the channel that stopped it, as every channel-level reason does.
@@ -502,7 +534,7 @@ impl SafetySetup {
                         })
                         .unwrap_or_default();
                     let reason = format!("{who}sweep abandoned: {reason}");
-                    safety.events.push(reason.clone());
+                    safety.abandon(&reason);
                     return Ok(SafeOutcome::Abandoned {
                         capture: pilot_capture,
                         reason,
@@ -565,6 +597,9 @@ impl SafetySetup {
                 ms(trip.silent_from_sample)
             );
             safety.events.push(event.clone());
+            safety
+                .audit_events
+                .push(SafetyEvent::new(SafetyKind::GuardTripped, &event, &trip));
             capture.faults.push(event);
             safety.guard_trip = Some(trip);
         }
@@ -739,5 +774,243 @@ fn gain_of(d: &SweepDecision) -> f64 {
     match d {
         SweepDecision::ScaleDown { gain_db, .. } => *gain_db,
         _ => 0.0,
+    }
+}
+
+/// A plan that hearing safety refuses on a bench: nothing may play. Shown as its message
+/// (exit 2 at the command line) and kept in the store as a `plan_refused` event.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{message}")]
+pub struct SafetyRefusal {
+    /// The refusal in words, with the numbers that decided it.
+    pub message: String,
+    /// The plan-time budget's numbers, JSON.
+    pub detail_json: String,
+}
+
+impl SafetyRefusal {
+    /// The refusal as the event the store keeps.
+    pub fn event(&self) -> SafetyEvent {
+        SafetyEvent {
+            kind: SafetyKind::PlanRefused,
+            message: self.message.clone(),
+            detail_json: self.detail_json.clone(),
+        }
+    }
+}
+
+/// What hearing safety needs to know of a plan on a bench.
+pub struct BenchPaths<'a> {
+    /// The plan (after the station's channel map and fixture).
+    pub plan: &'a crate::plan::Plan,
+    /// The analysis grid, Hz (where the corrections are tabulated).
+    pub grid_hz: &'a [f64],
+    /// The fixture→reference correction of each plan channel on `grid_hz`, dB (`None`: not
+    /// corrected).
+    pub correction_grid_db: Vec<Option<&'a [f64]>>,
+    /// The station's caps.
+    pub caps: Caps,
+    /// The calibration that gives the bench's gains, if any.
+    pub calibration: Option<&'a crate::calibration::Calibration>,
+    /// The station's drive monitors.
+    pub monitors: &'a [crate::station::DriveMonitor],
+    /// The rig that will play.
+    pub rig: crate::station::RigKind,
+    /// Outside production (`--non-production` or `mode: engineering`).
+    pub non_production: bool,
+}
+
+/// The station's drive monitors for this plan, with their gains: the calibration's
+/// `monitor:` entries, or on the simulated rig without a calibration its own monitor gain.
+/// A monitor on an input the plan records is refused (it would read the unit as volts).
+fn drive_monitors(
+    plan: &crate::plan::Plan,
+    monitors: &[crate::station::DriveMonitor],
+    cal: Option<&crate::calibration::Calibration>,
+    sim_constants: bool,
+) -> Result<Vec<MonitorPath>, String> {
+    use crate::rig::simulated::{DRIVE_V_PER_FS, MONITOR_V_PER_FS};
+    monitors
+        .iter()
+        .map(|m| {
+            if let Some(c) = plan.channels.iter().find(|c| c.input == m.input) {
+                return Err(format!(
+                    "the drive monitor of output {} is wired into input {}, which channel `{}` \
+                     records; give the monitor an input of its own",
+                    m.output + 1,
+                    m.input + 1,
+                    c.name
+                ));
+            }
+            let (input_v, drive_v) = match cal {
+                Some(cal) => (
+                    cal.monitor.get(&(m.input + 1)).map(|x| x.volts_peak_per_fs),
+                    cal.drive.get(&(m.output + 1)).map(|d| d.volts_peak_per_fs),
+                ),
+                None if sim_constants => (Some(MONITOR_V_PER_FS), Some(DRIVE_V_PER_FS)),
+                None => (None, None),
+            };
+            Ok(MonitorPath {
+                output: m.output,
+                input: m.input,
+                input_v_peak_per_fs: input_v,
+                calibrated_v_peak_per_fs: drive_v,
+            })
+        })
+        .collect()
+}
+
+impl SafetySetup {
+    /// Hearing safety for this plan on this bench: the bench's gains (the calibration, or
+    /// the simulated rig's own constants), the correction's range per channel, and the
+    /// sweep's plan-time budget, which refuses (with the numbers) a plan that could exceed a
+    /// cap. A production station on a sound card needs the plan's declared product
+    /// sensitivity to bound the level before playing, and every driven output monitored.
+    pub fn for_plan(b: BenchPaths) -> Result<SafetySetup, SafetyRefusal> {
+        use super::budget::{sine_budget, ChannelPath};
+        use crate::rig::simulated::{DRIVE_V_PER_FS, MIC_FS_PER_PA};
+        use crate::station::RigKind;
+        let plan = b.plan;
+        let cal = b.calibration;
+        let (gains_source, sim_constants) = match (cal, b.rig) {
+            (Some(c), _) => (format!("calibration {}", c.sha256()), false),
+            (None, RigKind::Simulated) => ("simulated rig constants".to_string(), true),
+            (None, RigKind::Soundcard) => ("none".to_string(), false),
+        };
+        let band_hz = (plan.stimulus.start_hz, plan.stimulus.stop_hz);
+        let paths: Vec<SafePath> = plan
+            .channels
+            .iter()
+            .enumerate()
+            .map(|(i, c)| {
+                let (drive, mic) = match cal {
+                    Some(cal) => (
+                        cal.drive.get(&(c.output + 1)).map(|d| d.volts_peak_per_fs),
+                        cal.microphone.get(&(c.input + 1)).map(|m| m.fs_per_pa),
+                    ),
+                    None if sim_constants => (Some(DRIVE_V_PER_FS), Some(MIC_FS_PER_PA)),
+                    None => (None, None),
+                };
+                let curve: Option<Vec<(f64, f64)>> =
+                    b.correction_grid_db.get(i).copied().flatten().map(|gain| {
+                        b.grid_hz
+                            .iter()
+                            .zip(gain)
+                            .filter(|(f, _)| (band_hz.0..=band_hz.1).contains(*f))
+                            .map(|(&f, &g)| (f, g))
+                            .collect()
+                    });
+                let range = curve.as_ref().map(|pts| {
+                    pts.iter()
+                        .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &(_, x)| {
+                            (lo.min(x), hi.max(x))
+                        })
+                });
+                // The grid is log-spaced and sorted; the nearest point above is close enough
+                // for a level bound (24 or more points per octave: within 3 % of the
+                // frequency).
+                let at_pilot = curve.as_ref().map_or(0.0, |pts| {
+                    pts.iter()
+                        .find(|(f, _)| *f >= PILOT_FREQ_HZ)
+                        .or(pts.last())
+                        .map_or(0.0, |&(_, g)| g)
+                });
+                SafePath {
+                    channel: c.name.clone(),
+                    output: c.output,
+                    input: c.input,
+                    drive_v_peak_per_fs: drive,
+                    mic_fs_per_pa: mic,
+                    correction_db: curve,
+                    correction_db_range: range,
+                    correction_at_pilot_db: at_pilot,
+                }
+            })
+            .collect();
+        let budget_paths: Vec<ChannelPath> = paths
+            .iter()
+            .map(|p| ChannelPath {
+                channel: p.channel.clone(),
+                drive_v_peak_per_fs: p.drive_v_peak_per_fs,
+                correction_db: p.correction_db.clone(),
+            })
+            .collect();
+        let budget = sine_budget(
+            "the sweep",
+            plan.stimulus.level_dbfs,
+            band_hz,
+            plan.product.as_ref(),
+            &budget_paths,
+            &b.caps,
+        );
+        let refuse = |message: String| SafetyRefusal {
+            detail_json: super::event::to_json(&budget),
+            message,
+        };
+        if let Some(refusal) = budget.refusal() {
+            return Err(refuse(format!(
+                "hearing safety: plan `{}`: {refusal}",
+                plan.id
+            )));
+        }
+        let production_soundcard = b.rig == RigKind::Soundcard && !b.non_production;
+        if production_soundcard && !budget.unchecked.is_empty() {
+            return Err(refuse(format!(
+                "hearing safety: plan `{}`: production needs every sound level bounded before \
+                 playing, but {}; declare the product's sensitivity (`product:` in the plan) \
+                 and calibrate every drive output; nothing was played",
+                plan.id,
+                budget.unchecked.join("; ")
+            )));
+        }
+        for u in &budget.unchecked {
+            tracing::warn!("hearing safety: not bounded before playing: {u}");
+        }
+        let monitors = drive_monitors(plan, b.monitors, cal, sim_constants)
+            .map_err(|m| refuse(format!("hearing safety: plan `{}`: {m}", plan.id)))?;
+        // A real amplifier can be turned up after its calibration; only a monitor sees that.
+        let unmonitored: Vec<usize> = plan
+            .channels
+            .iter()
+            .map(|c| c.output)
+            .filter(|o| {
+                !monitors
+                    .iter()
+                    .any(|m| m.output == *o && m.input_v_peak_per_fs.is_some())
+            })
+            .collect();
+        if production_soundcard && !unmonitored.is_empty() {
+            return Err(refuse(format!(
+                "hearing safety: plan `{}`: production needs the drive of every output \
+                 monitored, but output(s) {} have no drive monitor with a calibrated gain; wire \
+                 each amplifier output back into a spare input, list it under \
+                 `drive_monitors:` in the station file and calibrate it (`tragus calibrate \
+                 monitor` or `calibrate drive --input`); nothing was played",
+                plan.id,
+                unmonitored
+                    .iter()
+                    .map(|o| (o + 1).to_string())
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            )));
+        }
+        Ok(SafetySetup {
+            caps: b.caps,
+            gains_source,
+            paths,
+            monitors,
+            budget,
+            sweep_dbfs: plan.stimulus.level_dbfs,
+            band_hz,
+            response_peak_db: plan
+                .product
+                .map_or(ASSUMED_RESPONSE_PEAK_DB, |p| p.response_peak_db),
+            max_latency_s: match b.rig {
+                RigKind::Simulated => pilot::DEFAULT_MAX_LATENCY_S,
+                // Through a sound server the latency is tens of milliseconds and moves
+                // between runs (measured 53–75 ms through PulseAudio here).
+                RigKind::Soundcard => 0.3,
+            },
+        })
     }
 }
