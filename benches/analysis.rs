@@ -7,8 +7,8 @@
 use criterion::{criterion_group, criterion_main, Criterion};
 use std::hint::black_box;
 use std::path::Path;
-use tragus::acoustics::apply::PlanCorrections;
 use tragus::analysis::Analyzer;
+use tragus::correction::PlanCorrections;
 use tragus::dsp::sweep::Stimulus;
 use tragus::rig::simulated::{SimUnit, SimulatedRig, UnitKind};
 use tragus::rig::Rig;

@@ -12,6 +12,8 @@ pub mod bench;
 pub mod calibration;
 pub mod checks;
 pub mod cli;
+pub mod correction;
+pub mod digest;
 pub mod dsp;
 pub mod plan;
 pub mod report;
@@ -21,7 +23,9 @@ pub mod rig;
 /// pilot tone (issue 5).
 pub mod safety;
 pub mod station;
+pub mod stimulus;
 pub mod store;
+pub mod units;
 pub mod wav;
 
 /// The software version recorded with every result.

@@ -47,32 +47,7 @@ impl From<&Plan> for PlanInfo {
     }
 }
 
-/// A coupler model as a result names it.
-#[derive(Debug, Clone, PartialEq, serde::Serialize)]
-pub struct CouplerRef {
-    /// Model id (`coupler:` of the file).
-    pub id: String,
-    /// The model's canonical SHA-256 (`tragus-coupler/1`).
-    pub sha256: String,
-    /// The microphone tap used.
-    pub tap: String,
-}
-
-/// Which fixture→reference correction was applied to a channel (the `correction` object of
-/// the channel JSON).
-#[derive(Debug, Clone, PartialEq, serde::Serialize)]
-pub struct CorrectionInfo {
-    /// The fixture model the response was measured in.
-    pub fixture: CouplerRef,
-    /// The reference coupler the response was corrected to.
-    pub reference: CouplerRef,
-    /// Source kind: `volume_velocity`, `thevenin_csv` or `virtual_earphone`.
-    pub source: String,
-    /// Identity of the whole correction (models, taps and source values): hex SHA-256 of
-    /// `acoustics::correction::Correction::canonical_description`.
-    pub sha256: String,
-}
-
+pub use crate::analysis::{CorrectionInfo, CouplerRef};
 pub use crate::calibration::CalibrationInfo;
 
 /// One unit's result.

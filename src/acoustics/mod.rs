@@ -12,11 +12,12 @@
 //! [`termination`] (rigid, radiating, tabulated, eardrum), [`eardrum`] (Kringlebotn 1988),
 //! [`network`] (a coupler: chain + taps → input impedance and transfer functions),
 //! [`model`] (coupler YAML files), [`source`] (volume-velocity, Thévenin, virtual earphone),
-//! [`earphone_file`] (virtual-earphone YAML files), [`correction`] (fixture → reference),
-//! [`apply`] (the correction of a plan, built once and applied to each measurement).
+//! [`earphone_file`] (virtual-earphone YAML files), [`correction`] (fixture → reference).
+//! The correction of a plan's measurements (built once, applied to each) is the stage
+//! [`crate::correction`].
 
 pub mod air;
-pub mod apply;
+
 pub mod bessel;
 pub mod correction;
 pub mod eardrum;

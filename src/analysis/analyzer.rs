@@ -77,9 +77,7 @@ const LINEAR_TAIL_S: f64 = 0.15;
 /// Fraction of each harmonic's gap to the next higher harmonic used as its lead-in.
 const HARMONIC_LEAD_FRACTION: f64 = 0.2;
 
-/// Harmonics are reported only where n·f is below this fraction of Nyquist, where the
-/// analytic inverse starts its taper.
-pub const HARMONIC_TOP_FRACTION_OF_NYQUIST: f64 = 0.9;
+pub use crate::dsp::sweep::HARMONIC_TOP_FRACTION_OF_NYQUIST;
 
 /// Why an analyzer cannot be built or a capture cannot be analysed at all.
 #[derive(Debug, thiserror::Error)]

@@ -109,51 +109,10 @@ pub struct ChannelMeasurement {
     pub fixture_response_db: Option<Vec<f64>>,
     /// Which fixture→reference correction was applied; absent when none was.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub correction: Option<crate::result::CorrectionInfo>,
+    pub correction: Option<CorrectionInfo>,
     /// Fine linear spectrum for smoothing (not serialised).
     #[serde(skip)]
     pub fine: FineSpectrum,
-}
-
-/// The linear transfer function on a uniform fine grid, for smoothing and interpolation.
-#[derive(Debug, Clone, Default)]
-pub struct FineSpectrum {
-    /// Bin spacing, Hz.
-    pub df_hz: f64,
-    /// |H|² per bin, starting at 0 Hz.
-    pub power: Vec<f64>,
-    /// Lowest and highest excited frequency, Hz (smoothing bands are clipped to it).
-    pub band_hz: (f64, f64),
-    /// Running integral of `power` over frequency (trapezoids), `cumulative[k]` = ∫₀^{k·df}
-    /// |H|² df, so that a band average costs two look-ups; see [`FineSpectrum::new`].
-    pub cumulative: Vec<f64>,
-}
-
-impl FineSpectrum {
-    /// Build from per-bin power, computing the running integral.
-    pub fn new(df_hz: f64, power: Vec<f64>, band_hz: (f64, f64)) -> Self {
-        let mut fine = FineSpectrum {
-            df_hz,
-            power,
-            band_hz,
-            cumulative: Vec::new(),
-        };
-        fine.rebuild_cumulative();
-        fine
-    }
-
-    /// Recompute the running integral after `power` changed (in place, no allocation once
-    /// `cumulative` has its length).
-    pub fn rebuild_cumulative(&mut self) {
-        self.cumulative.resize(self.power.len(), 0.0);
-        let mut acc = 0.0;
-        for k in 0..self.power.len() {
-            if k > 0 {
-                acc += 0.5 * (self.power[k - 1] + self.power[k]) * self.df_hz;
-            }
-            self.cumulative[k] = acc;
-        }
-    }
 }
 
 impl ChannelMeasurement {
@@ -171,4 +130,32 @@ impl ChannelMeasurement {
     pub fn level_at_db(&self, freq_hz: f64) -> f64 {
         crate::dsp::smoothing::level_at_db(&self.fine, freq_hz)
     }
+}
+
+pub use crate::dsp::spectrum::FineSpectrum;
+
+/// A coupler model as a result names it.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct CouplerRef {
+    /// Model id (`coupler:` of the file).
+    pub id: String,
+    /// The model's canonical SHA-256 (`tragus-coupler/1`).
+    pub sha256: String,
+    /// The microphone tap used.
+    pub tap: String,
+}
+
+/// Which fixture→reference correction was applied to a channel (the `correction` object of
+/// the channel JSON).
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct CorrectionInfo {
+    /// The fixture model the response was measured in.
+    pub fixture: CouplerRef,
+    /// The reference coupler the response was corrected to.
+    pub reference: CouplerRef,
+    /// Source kind: `volume_velocity`, `thevenin_csv` or `virtual_earphone`.
+    pub source: String,
+    /// Identity of the whole correction (models, taps and source values): hex SHA-256 of
+    /// `acoustics::correction::Correction::canonical_description`.
+    pub sha256: String,
 }

@@ -40,23 +40,12 @@ pub use microphone::{calibrate_microphone, MicReading};
 use crate::plan::Problem;
 use std::collections::BTreeMap;
 
-/// Reference sound pressure for levels in air, Pa (ISO 1683:2015, table 1: 20 µPa).
-pub const P_REF_PA: f64 = 20e-6;
+pub use crate::units::{pressure_pa, spl_db, P_REF_PA};
 
 /// Default days between a calibration and its due date: a shift-to-shift check is common
 /// practice on a production line, a full microphone calibration at least monthly; 30 days
 /// is the default, `--due-days` sets it.
 pub const DEFAULT_DUE_DAYS: u32 = 30;
-
-/// Sound pressure level in dB re 20 µPa of an rms pressure in pascal.
-pub fn spl_db(p_rms_pa: f64) -> f64 {
-    20.0 * (p_rms_pa / P_REF_PA).log10()
-}
-
-/// rms pressure in pascal of a sound pressure level in dB re 20 µPa.
-pub fn pressure_pa(level_db_spl: f64) -> f64 {
-    P_REF_PA * 10f64.powf(level_db_spl / 20.0)
-}
 
 /// The dB to add to a digital response (dB FS/FS) to get dB SPL/V (module doc):
 /// `−20·lg(S_m) − 20·lg(G_d) − 20·lg(p₀)`.
@@ -190,7 +179,7 @@ pub enum CalibrationError {
 impl Calibration {
     /// Lowercase hex SHA-256 of the canonical form ([`canonical_json`]).
     pub fn sha256(&self) -> String {
-        crate::store::sha256_hex(canonical_json(self).as_bytes())
+        crate::digest::sha256_hex(canonical_json(self).as_bytes())
     }
 
     /// `Ok` through the due date (inclusive), an error naming the due date after it.

@@ -5,5 +5,7 @@
 //! calls an inverse divides by N itself.
 
 pub mod bands;
+pub mod ramp;
 pub mod smoothing;
+pub mod spectrum;
 pub mod sweep;

@@ -6,7 +6,7 @@
 //! 61260-1 base-10 (`f·G^(±1/(2N))`) and are clipped to the excited band, so points near the
 //! top and bottom of the sweep do not average in unexcited bins and read low.
 
-use crate::analysis::FineSpectrum;
+use super::spectrum::FineSpectrum;
 use crate::dsp::bands::OCTAVE_RATIO_G;
 
 /// Smallest power used before taking a logarithm (−300 dB), so silence gives a number.

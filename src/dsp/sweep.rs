@@ -1,11 +1,10 @@
 //! The synchronized exponential sine sweep (Novak, Simon & Lotton, JAES 63(10), 2015).
 //!
-//! First stage of the data flow after the plan: [`Stimulus::from_plan`] builds the exact
+//! First stage of the data flow after the plan: `Stimulus::from_plan` (in `crate::stimulus`) builds the exact
 //! samples every output channel plays. The synchronization condition makes `f1·L` a whole
 //! number, so that the n-th harmonic of the sweep is the sweep itself advanced by `L·ln n`
 //! (Novak et al. 2015, eq. 11) and harmonic impulse responses land at known times.
 
-use crate::plan::Plan;
 use std::f64::consts::PI;
 
 /// Parameters of one synchronized sweep, all derived from the plan.
@@ -165,28 +164,6 @@ pub struct Stimulus {
 }
 
 impl Stimulus {
-    /// Build the stimulus of a validated plan: silence, sweep, silence on every output the
-    /// plan's channels name (all driven together); outputs in between stay silent.
-    pub fn from_plan(plan: &Plan) -> Result<Self, SweepError> {
-        let s = &plan.stimulus;
-        let sweep = SweepParams::synchronized(
-            plan.sample_rate_hz,
-            s.start_hz,
-            s.stop_hz,
-            s.duration_s,
-            10f64.powf(s.level_dbfs / 20.0),
-            s.fade_in_s,
-            s.fade_out_s,
-            s.silence_before_s,
-        )?;
-        let fs = f64::from(plan.sample_rate_hz);
-        let n_after = (s.silence_after_s * fs).round() as usize;
-        let mut driven: Vec<usize> = plan.channels.iter().map(|c| c.output).collect();
-        driven.sort_unstable();
-        driven.dedup();
-        Ok(Self::build(sweep, n_after, plan.n_outputs(), &driven))
-    }
-
     /// Build from sweep parameters directly (tests, self-test tools).
     pub fn build(
         sweep: SweepParams,
@@ -226,6 +203,28 @@ impl Stimulus {
         let o = self.driven_outputs.first().copied().unwrap_or(0);
         &self.channels[o]
     }
+}
+
+/// Harmonics are reported only where n·f is below this fraction of Nyquist, where the
+/// analytic inverse of the sweep starts its taper.
+pub const HARMONIC_TOP_FRACTION_OF_NYQUIST: f64 = 0.9;
+
+/// The band over which a plan's correction must be defined, Hz: from the sweep's start to
+/// its stop, or, when harmonics are analysed, to the highest n·f the analysis reports
+/// (`max_harmonic`·f2, at most the analyzer's top of 0.9 × Nyquist).
+pub fn needed_band_hz(
+    start_hz: f64,
+    stop_hz: f64,
+    sample_rate_hz: f64,
+    max_harmonic: usize,
+) -> (f64, f64) {
+    let top_hz = HARMONIC_TOP_FRACTION_OF_NYQUIST * 0.5 * sample_rate_hz;
+    let hi = if max_harmonic >= 2 {
+        (max_harmonic as f64 * stop_hz).min(top_hz).max(stop_hz)
+    } else {
+        stop_hz
+    };
+    (start_hz, hi)
 }
 
 #[cfg(test)]

@@ -509,7 +509,7 @@ impl Validator {
             None => (None, None),
         };
         let needed_hz = match (band, sample_rate_hz, analysis.as_ref()) {
-            (Some(b), Some(fs), Some(a)) => Some(crate::acoustics::apply::needed_band_hz(
+            (Some(b), Some(fs), Some(a)) => Some(crate::dsp::sweep::needed_band_hz(
                 b.start_hz,
                 b.stop_hz,
                 f64::from(fs),

@@ -11,9 +11,8 @@ pub mod recording;
 pub mod simulated;
 #[cfg(feature = "soundcard")]
 pub mod soundcard;
-pub mod soundcard_spec;
 
-pub use soundcard_spec::SoundcardSpec;
+pub use crate::station::audio::SoundcardSpec;
 
 /// Why a build without the `soundcard` feature cannot list or open sound cards, and how to
 /// get one.
@@ -45,7 +44,7 @@ pub struct Capture {
 
 /// The run-time guard a rig runs while it plays (hearing safety, `src/safety`): every
 /// watched input is checked block by block as it is captured; when one passes its limit the
-/// outputs are faded to silence ([`crate::safety::ramp::FadeOut`]) and the capture carries a
+/// outputs are faded to silence ([`crate::dsp::ramp::FadeOut`]) and the capture carries a
 /// [`GuardTrip`].
 #[derive(Debug, Clone, PartialEq)]
 pub struct Guard {
@@ -130,7 +129,7 @@ impl Guard {
         for ch in &mut played {
             // A fade of 0 frames is refused by FadeOut; max(1) keeps a hard cut impossible
             // to ask for here (1 frame is the shortest fade).
-            let _ = crate::safety::ramp::fade_to_silence(
+            let _ = crate::dsp::ramp::fade_to_silence(
                 ch,
                 trip.fade_start_sample,
                 self.fade_frames.max(1),

@@ -43,7 +43,7 @@
 //! input and output devices, above [`SoundcardSpec::max_clock_drift_ppm`] it is a fault.
 
 use super::align;
-use super::soundcard_spec::SoundcardSpec;
+use super::SoundcardSpec;
 use super::{Capture, Guard, GuardTrip, Rig, RigError};
 use crate::dsp::sweep::Stimulus;
 use cpal::traits::{DeviceTrait, HostTrait, StreamTrait};
@@ -601,7 +601,7 @@ where
                         let g = if k >= fade_frames {
                             0.0
                         } else {
-                            crate::safety::ramp::fade_gain(k, fade_frames)
+                            crate::dsp::ramp::fade_gain(k, fade_frames)
                         };
                         *d = T::from_sample((f64::from(s) * g) as f32);
                     }

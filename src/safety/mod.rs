@@ -3,7 +3,7 @@
 //!
 //! Sits beside the data flow: the stimulus places a [`pilot`](crate::safety::pilot) tone
 //! before every sweep and the sweep's level is decided from it; the rig watches the capture
-//! and fades the output to silence with [`ramp`](crate::safety::ramp) when a level passes a
+//! and fades the output to silence with [`ramp`](crate::dsp::ramp) when a level passes a
 //! cap; a listening step's level is the [`weighting`](crate::safety::weighting)-A level of its
 //! spectrum at the reference position, and its exposure goes into the
 //! [`dose`](crate::safety::dose) ledger. Everything here is arithmetic on plain data: no I/O,
@@ -18,7 +18,8 @@ pub mod dose;
 pub mod event;
 pub mod monitor;
 pub mod pilot;
-pub mod ramp;
+/// The guard's fades (kept here by name; they live with the other signal pieces in `dsp`).
+pub use crate::dsp::ramp;
 /// Hearing safety on one bench per unit: the set-up per plan, then per unit the pilot, the
 /// decision and the guarded sweep.
 pub mod setup;

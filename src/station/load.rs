@@ -7,7 +7,7 @@ use super::{
 use crate::acoustics::model::{load_model, ModelError, Validator};
 use crate::plan::raw::{self, is_channel_name, is_id, Pos};
 use crate::plan::Problem;
-use crate::rig::soundcard_spec::SoundcardSpec;
+use crate::station::audio::SoundcardSpec;
 use marked_yaml::types::MarkedMappingNode;
 use marked_yaml::Node;
 use sha2::{Digest, Sha256};

@@ -59,6 +59,8 @@
 //! - **Hash.** [`Station::sha256`] is the SHA-256 of the station file's bytes: the record
 //!   names the exact file; the fixture model has its own hash in the correction record.
 
+/// The sound-card settings of a station (plain data, read by the sound-card rig).
+pub mod audio;
 mod load;
 pub mod tally;
 
@@ -66,7 +68,7 @@ pub use load::{load_station, load_station_str};
 
 use crate::acoustics::model::CouplerModel;
 use crate::plan::{Plan, Problem};
-use crate::rig::soundcard_spec::SoundcardSpec;
+use crate::station::audio::SoundcardSpec;
 use std::path::PathBuf;
 
 /// Default `max_clock_drift_ppm`: the sound-card rig's (one bound, one reason; see

@@ -4,8 +4,6 @@
 //! this file is its only implementation, and `tests/reference/store_record_hash.py`
 //! recomputes it independently with Python's `hashlib`.
 
-use sha2::{Digest, Sha256};
-
 /// `prev_hash` of the first record of a store: 64 ASCII zeros.
 pub const GENESIS_PREV_HASH: &str =
     "0000000000000000000000000000000000000000000000000000000000000000";
@@ -18,10 +16,7 @@ pub const CANONICAL_HEADER: &[u8] = b"tragus-record-v1\n";
 /// `calibration_mode` and `calibration_sha256`).
 pub const CANONICAL_HEADER_V2: &[u8] = b"tragus-record-v2\n";
 
-/// SHA-256 (FIPS 180-4) of `bytes` as 64 lowercase hex digits.
-pub fn sha256_hex(bytes: &[u8]) -> String {
-    hex::encode(Sha256::digest(bytes))
-}
+pub use crate::digest::sha256_hex;
 
 /// True when `s` is 64 lowercase hex digits, the only spelling of a SHA-256 the store uses.
 pub fn is_sha256_hex(s: &str) -> bool {

@@ -126,9 +126,10 @@ pub fn assert_exit(out: &std::process::Output, code: i32) {
     );
 }
 
-/// The demo plan's sweep and a hearing-safety set-up on the simulated bench's own gains
-/// (`DRIVE_V_PER_FS`, `MIC_FS_PER_PA`), with `caps` and `monitors`, the fixture taken as the
-/// reference (no correction).
+/// The demo plan's sweep and its hearing-safety set-up on the simulated bench's own gains
+/// (`DRIVE_V_PER_FS`, `MIC_FS_PER_PA`), with `caps` and drive `monitors`, the fixture taken
+/// as the reference (no correction): the library's own set-up
+/// ([`tragus::safety::setup::SafetySetup::for_plan`]), as a bench builds it.
 pub fn demo_safety_setup(
     caps: tragus::station::Caps,
     monitors: Vec<tragus::safety::monitor::MonitorPath>,
@@ -136,52 +137,30 @@ pub fn demo_safety_setup(
     tragus::dsp::sweep::Stimulus,
     tragus::safety::setup::SafetySetup,
 ) {
-    use tragus::rig::simulated::{DRIVE_V_PER_FS, MIC_FS_PER_PA};
-    use tragus::safety::budget::{sine_budget, ChannelPath};
-    use tragus::safety::setup::{SafePath, SafetySetup};
+    use tragus::safety::setup::{BenchPaths, SafetySetup};
     let plan = tragus::plan::load_plan(&root().join("plans/demo-earbud.yaml")).unwrap();
     let stimulus = tragus::dsp::sweep::Stimulus::from_plan(&plan).unwrap();
-    let paths: Vec<SafePath> = plan
-        .channels
+    let wired: Vec<tragus::station::DriveMonitor> = monitors
         .iter()
-        .map(|c| SafePath {
-            channel: c.name.clone(),
-            output: c.output,
-            input: c.input,
-            drive_v_peak_per_fs: Some(DRIVE_V_PER_FS),
-            mic_fs_per_pa: Some(MIC_FS_PER_PA),
-            correction_db: None,
-            correction_db_range: None,
-            correction_at_pilot_db: 0.0,
+        .map(|m| tragus::station::DriveMonitor {
+            output: m.output,
+            input: m.input,
         })
         .collect();
-    let band_hz = (plan.stimulus.start_hz, plan.stimulus.stop_hz);
-    let budget = sine_budget(
-        "the sweep",
-        plan.stimulus.level_dbfs,
-        band_hz,
-        plan.product.as_ref(),
-        &paths
-            .iter()
-            .map(|p| ChannelPath {
-                channel: p.channel.clone(),
-                drive_v_peak_per_fs: p.drive_v_peak_per_fs,
-                correction_db: None,
-            })
-            .collect::<Vec<_>>(),
-        &caps,
-    );
-    let setup = SafetySetup {
+    let mut setup = SafetySetup::for_plan(BenchPaths {
+        plan: &plan,
+        grid_hz: &[],
+        correction_grid_db: vec![None; plan.channels.len()],
         caps,
-        gains_source: "simulated rig constants".into(),
-        paths,
-        monitors,
-        budget,
-        sweep_dbfs: plan.stimulus.level_dbfs,
-        band_hz,
-        response_peak_db: plan.product.unwrap().response_peak_db,
-        max_latency_s: 0.05,
-    };
+        calibration: None,
+        monitors: &wired,
+        rig: tragus::station::RigKind::Simulated,
+        non_production: false,
+    })
+    .expect("the demo plan is within the caps before playing");
+    // The tests give the monitors' gains themselves (a bench reads them from its
+    // calibration, or the simulated rig's constants).
+    setup.monitors = monitors;
     (stimulus, setup)
 }
 

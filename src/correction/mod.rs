@@ -32,33 +32,17 @@
 //! - Latency, polarity, SNR, peak level and validity are properties of the capture and are
 //!   left as measured.
 
-use super::correction::{Correction, CorrectionError};
+use crate::acoustics::correction::{Correction, CorrectionError};
 use crate::analysis::{Analyzer, ChannelMeasurement};
+use crate::analysis::{CorrectionInfo, CouplerRef};
 use crate::plan::{CorrectionSpec, Plan};
-use crate::result::{CorrectionInfo, CouplerRef};
 
 /// Points per octave of the log grid on which C is evaluated for the fine spectrum: with
 /// 384 the interpolation error of the shipped models is ≤ 1e-5 dB (measured; bar 0.001 dB),
 /// at ≈ 20 ms of set-up per plan; see the module doc.
 pub const DENSE_POINTS_PER_OCTAVE: f64 = 384.0;
 
-/// The band over which a plan's correction must be defined, Hz: from the sweep's start to
-/// its stop, or, when harmonics are analysed, to the highest n·f the analysis reports
-/// (`max_harmonic`·f2, at most the analyzer's top of 0.9 × Nyquist).
-pub fn needed_band_hz(
-    start_hz: f64,
-    stop_hz: f64,
-    sample_rate_hz: f64,
-    max_harmonic: usize,
-) -> (f64, f64) {
-    let top_hz = crate::analysis::HARMONIC_TOP_FRACTION_OF_NYQUIST * 0.5 * sample_rate_hz;
-    let hi = if max_harmonic >= 2 {
-        (max_harmonic as f64 * stop_hz).min(top_hz).max(stop_hz)
-    } else {
-        stop_hz
-    };
-    (start_hz, hi)
-}
+pub use crate::dsp::sweep::needed_band_hz;
 
 /// Why a plan's correction cannot be set up (bad input: fix the plan or a model).
 #[derive(Debug, thiserror::Error)]
