@@ -67,7 +67,7 @@ impl Verdict {
         }
     }
 
-    /// Process exit code per DESIGN.md: 0 pass, 1 fail, 3 retest.
+    /// Process exit code per docs/architecture.md: 0 pass, 1 fail, 3 retest.
     pub fn exit_code(self) -> i32 {
         match self {
             Verdict::Pass => 0,

@@ -1,7 +1,7 @@
 //! The result of one unit: what `analyze`, `run` and the store write as JSON.
 //!
-//! Field names are a contract (DESIGN.md, "Result JSON"): add fields freely, rename none
-//! without a migration note in DEVELOPERS.md.
+//! Field names are a contract (docs/architecture.md, "Result JSON"): add fields freely, rename none
+//! without a migration note in CHANGELOG.md.
 
 use crate::analysis::ChannelMeasurement;
 use crate::checks::CheckResult;

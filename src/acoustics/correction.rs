@@ -4,7 +4,7 @@
 //! checks (limits written for the reference coupler). A source of impedance Zs and
 //! open-circuit pressure p_oc makes, in a coupler of input impedance Z whose microphone sees
 //! T = p_mic/p_in, the microphone pressure `p_oc·Z/(Zs+Z)·T` (Thévenin's theorem; Beranek &
-//! Mellow 2012, ch. 3). The ratio reference/fixture is therefore (DESIGN.md, "Acoustic
+//! Mellow 2012, ch. 3). The ratio reference/fixture is therefore (docs/architecture.md, "Acoustic
 //! models")
 //!
 //! `C = [Zr·Tr/(Zs+Zr)] / [Zf·Tf/(Zs+Zf)]`,
@@ -169,7 +169,7 @@ impl<'a> Correction<'a> {
         })
     }
 
-    /// The complex factor C(f) = p_reference/p_fixture at `freq_hz` (DESIGN.md formula).
+    /// The complex factor C(f) = p_reference/p_fixture at `freq_hz` (docs/architecture.md formula).
     pub fn factor(&self, freq_hz: f64) -> Result<C64, CorrectionError> {
         let unknown = |model: &dyn CouplerModel, tap: &str| CorrectionError::UnknownTap {
             coupler: model.id(),

@@ -1,7 +1,7 @@
 //! Acoustic models: air, two-port elements, couplers, sources, fixture→reference correction.
 //!
 //! Sits beside the analysis: a measurement made in the station's fixture is corrected to the
-//! reference coupler the limits are written for (DESIGN.md, "Acoustic models"). Convention
+//! reference coupler the limits are written for (docs/architecture.md, "Acoustic models"). Convention
 //! throughout: e^{jωt} time dependence, acoustic impedance in Pa·s/m³, volume velocity in
 //! m³/s, pressure in Pa, SI units in every name. Two-ports are ABCD (transfer) matrices from
 //! the reference plane inward: `[p1; U1] = [A B; C D]·[p2; U2]`.

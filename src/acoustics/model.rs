@@ -7,7 +7,7 @@
 //! `PATH:LINE:COL: message`, and the model carries a SHA-256 over a canonical form, so a
 //! record can say exactly which acoustic model corrected it.
 //!
-//! # Schema (extends the minimal form of DESIGN.md, every key of which is accepted)
+//! # Schema (extends the minimal form of docs/architecture.md, every key of which is accepted)
 //!
 //! ```yaml
 //! coupler: closed-tube-25mm       # id: [a-z0-9][a-z0-9._-]*
@@ -76,9 +76,9 @@ use std::path::{Path, PathBuf};
 
 /// Name of this version of the canonical form of the hash, written into it.
 pub const CANONICAL_FORM: &str = "tragus-coupler/1";
-/// Default temperature, °C (DESIGN.md).
+/// Default temperature, °C (docs/architecture.md).
 pub const DEFAULT_TEMPERATURE_C: f64 = 20.0;
-/// Default static pressure, Pa (DESIGN.md; standard atmosphere).
+/// Default static pressure, Pa (docs/architecture.md; standard atmosphere).
 pub const DEFAULT_STATIC_PRESSURE_PA: f64 = 101_325.0;
 /// Accepted temperature range, °C: the Keefe (1984) air formulas are fits around room
 /// temperature; a station runs indoors (common practice).

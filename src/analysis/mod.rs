@@ -68,7 +68,7 @@ impl std::fmt::Display for RetestReason {
     }
 }
 
-/// Everything measured on one channel. Serialised field names are a contract (DESIGN.md).
+/// Everything measured on one channel. Serialised field names are a contract (docs/architecture.md).
 #[derive(Debug, Clone, serde::Serialize)]
 pub struct ChannelMeasurement {
     /// Plan channel name.

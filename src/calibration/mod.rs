@@ -238,7 +238,7 @@ impl Calibration {
     }
 }
 
-/// Unit of a calibrated response (DESIGN.md).
+/// Unit of a calibrated response (docs/architecture.md).
 pub const UNIT_DB_SPL_PER_V: &str = "dB SPL/V";
 
 /// Turn a digital measurement (dB FS/FS) into a calibrated one (dB SPL/V): add `offset_db`

@@ -4,7 +4,7 @@
 //! Loads the model ([`crate::acoustics::model`]), evaluates its network
 //! ([`crate::acoustics::network::Coupler::evaluate`]) on the IEC 61260-1 base-10 grid
 //! (20 Hz–20 kHz, 24 points per octave unless told otherwise) or on the given frequencies,
-//! and prints a short table at octave points, the DESIGN.md JSON document, and an SVG plot
+//! and prints a short table at octave points, the docs/architecture.md JSON document, and an SVG plot
 //! ([`crate::report::svg`]). Exit codes: 0 ok, 2 bad input (problems as `path:line:col`).
 
 use super::{write_atomic, Exit, JsonOut, EXIT_PASS};
@@ -46,7 +46,7 @@ pub struct Args {
     pub points_per_octave: u32,
 }
 
-/// A complex curve in the JSON document: DESIGN.md's `re`, `im`, plus magnitude and phase.
+/// A complex curve in the JSON document: the architecture notes' (docs/architecture.md) `re`, `im`, plus magnitude and phase.
 #[derive(Debug, Serialize)]
 struct Curve {
     re: Vec<f64>,

@@ -1,7 +1,7 @@
 //! The command line: argument types, wiring of the library, human and JSON output.
 //!
 //! The only place that connects the stages of the data flow (plan → stimulus → rig →
-//! analysis → checks → store → report). One file per command. Exit codes (DESIGN.md):
+//! analysis → checks → store → report). One file per command. Exit codes (docs/architecture.md):
 //! 0 pass/success, 1 fail, 2 bad input, 3 retest (including "the record could not be
 //! written": a unit without a record must be tested again, never shipped).
 

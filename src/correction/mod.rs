@@ -1,7 +1,7 @@
 //! The plan's fixture→reference correction, built once and applied to every measurement.
 //!
 //! Sits between the analysis and the checks: [`PlanCorrections::new`] evaluates, once per
-//! plan, the complex factor C = p_reference/p_fixture ([`super::correction`], DESIGN.md
+//! plan, the complex factor C = p_reference/p_fixture ([`super::correction`], docs/architecture.md
 //! formula) of each corrected channel everywhere the measurement has a value, and
 //! [`PlanCorrections::apply`] then corrects each unit's [`ChannelMeasurement`] with table
 //! look-ups only (no coupler is evaluated per unit; the analysis bench target is 5 ms per
@@ -21,7 +21,7 @@
 //!   (`tests/pipeline_correction.rs`). Bins outside the excited band are left as measured:
 //!   the checks never read them (smoothing bands are clipped to the excited band).
 //! - `harmonics_db[n] += 20·lg|C(n·f)/C(f)|`: harmonic n of the excitation at f is heard
-//!   at n·f, the fundamental at f (DESIGN.md, "Correction of harmonics uses the correction
+//!   at n·f, the fundamental at f (docs/architecture.md, "Correction of harmonics uses the correction
 //!   at n·f for harmonic n"); C exact at each n·f. THD (`thd_percent`, `thd_iec_percent`)
 //!   is recomputed from the corrected HDn with the analyzer's formulas.
 //! - `rub_buzz_db` is left as measured: it is the peak of an impulsive residual in the

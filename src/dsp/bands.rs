@@ -61,7 +61,7 @@ mod tests {
     use super::*;
 
     // IEC 61260-1:2014 Annex E lists exact third-octave midbands 1000·10^(n/10):
-    // 12.589, 15.849, 19.953, 25.119 Hz … (also in REFERENCE-VALUES.md with the source).
+    // 12.589, 15.849, 19.953, 25.119 Hz … (also in docs/reference-values.md with the source).
     #[test]
     fn third_octave_midbands_match_the_standard() {
         let expect = [

@@ -36,7 +36,7 @@
 use std::f64::consts::PI;
 
 /// Default fade to silence, s: "within a few milliseconds" (issue 5); 5 ms is the length the
-/// plans use for the sweep's own fades (DEVELOPERS.md, plan defaults).
+/// plans use for the sweep's own fades (docs/decisions.md, "Plan defaults and small rules").
 pub const DEFAULT_FADE_S: f64 = 0.005;
 
 /// Why a guard piece cannot be built.

@@ -196,7 +196,7 @@ pub struct ChannelSpec {
 
 /// A fixture→reference correction as the plan gives it, with its files loaded: the
 /// station's fixture model, the reference coupler the limits are written for, a microphone
-/// tap in each, and the source whose impedance enters the correction (DESIGN.md,
+/// tap in each, and the source whose impedance enters the correction (docs/architecture.md,
 /// "Acoustic models").
 #[derive(Debug, Clone, PartialEq)]
 pub struct CorrectionSpec {

@@ -122,7 +122,8 @@
 //!   IEEE 754 double, positional, no exponent, no trailing `.0` (`94`, `30.5`, `0.1`,
 //!   `0.30000000000000004`); −0.0 is stored as 0.0.
 //! - `kind` is a [`SafetyKind`] word (`plan_refused`, `sweep_scaled_down`,
-//!   `sweep_abandoned`, `guard_tripped`, `dose_warning`, `dose_refused`).
+//!   `sweep_abandoned`, `guard_tripped`, `listening_scaled_down`, `dose_warning`,
+//!   `dose_refused`).
 //! - Not hashed: `time_unix_ns` of an event (derived from `time_utc`; verify checks it).
 //!
 //! `tests/reference/store_safety_hash.py` recomputes both forms with Python's `hashlib`;

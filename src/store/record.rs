@@ -34,7 +34,7 @@ pub struct NewRecord {
     pub rig: String,
     /// Unit verdict.
     pub verdict: Verdict,
-    /// The full result document (DESIGN.md "Result JSON"); must be valid JSON.
+    /// The full result document (docs/architecture.md "Result JSON"); must be valid JSON.
     pub result_json: String,
     /// Under which calibration mode the unit was tested: `production`, `non-production` or
     /// `uncalibrated` (an id: lowercase letters, digits, `-`).

@@ -55,7 +55,7 @@ fn density_scales_with_static_pressure() {
 #[test]
 fn cavity_2cc_at_500hz() {
     // Beranek & Mellow (2012): C = V/(ρc²) = 1.4097e-11 m³/Pa for 2 cm³, |Z| = 1/(ωC) =
-    // 2.258e7 Pa·s/m³ = 147.07 dB re 1 Pa·s/m³ at 500 Hz (REFERENCE-VALUES lumped elements).
+    // 2.258e7 Pa·s/m³ = 147.07 dB re 1 Pa·s/m³ at 500 Hz (docs/reference-values.md lumped elements).
     let air = Air::standard();
     let coupler = Coupler {
         id: "cavity".into(),
@@ -100,7 +100,7 @@ fn lossless_closed_tube_is_minus_j_z0_cot_kl() {
             "{f} Hz: {got} vs {want}"
         );
     }
-    // REFERENCE-VALUES worked example: lossless −j1.8997e7 at 1 kHz, L = 25 mm, a = 3.75 mm.
+    // docs/reference-values.md worked example: lossless −j1.8997e7 at 1 kHz, L = 25 mm, a = 3.75 mm.
     let z = c.evaluate(1000.0).input_impedance;
     assert!(close(z.im, -1.8997e7, 5e2));
 }
@@ -127,7 +127,7 @@ fn quarter_wave_resonance_of_25mm_tube() {
 
 #[test]
 fn zwikker_kosten_worked_example() {
-    // REFERENCE-VALUES (Zwikker–Kosten, Keefe air): a = 3.75 mm, 1 kHz, 20 °C.
+    // docs/reference-values.md (Zwikker–Kosten, Keefe air): a = 3.75 mm, 1 kHz, 20 °C.
     let air = Air::standard();
     let a = 3.75e-3;
     let omega = 2.0 * PI * 1000.0;
@@ -199,7 +199,7 @@ fn stinson_slit_worked_example_and_sign() {
         "{kn}"
     );
     // e^{jωt}: a passive slit has positive series resistance Re(jωρ_eff/S) and positive shunt
-    // conductance Re(jωS/K_eff), and a wave that decays (Re Γ > 0) — REFERENCE-VALUES sign
+    // conductance Re(jωS/K_eff), and a wave that decays (Re Γ > 0) — docs/reference-values.md sign
     // check (√(−j) would make the resistance negative).
     for gap in [0.02e-3, 0.2e-3, 1e-3] {
         for f in [20.0, 1000.0, 20_000.0] {
@@ -312,7 +312,7 @@ fn table_termination_interpolates_in_log_frequency() {
 }
 
 /// Kringlebotn (1988) topology written out again from the paper's figure as quoted in
-/// REFERENCE-VALUES, in SI, with admittances instead of the helper's closures.
+/// docs/reference-values.md, in SI, with admittances instead of the helper's closures.
 fn kringlebotn_direct(f: f64) -> C64 {
     let w = 2.0 * PI * f;
     let jw = C64::new(0.0, w);

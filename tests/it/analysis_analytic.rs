@@ -125,7 +125,7 @@ fn polynomial_harmonics_match_trig_identities() {
                 (hd3 - want3).abs() < 0.5,
                 "a3={a3} f={f}: HD3 {hd3} vs {want3}"
             );
-            // THD re fundamental is √(HD2² + HD3²) (DESIGN.md); the IEC 60268 form refers
+            // THD re fundamental is √(HD2² + HD3²) (docs/architecture.md); the IEC 60268 form refers
             // it to the total: THD/√(1 + THD²).
             let thd = m.thd_percent[i].unwrap() / 100.0;
             let l2 = 10f64.powf(hd2 / 20.0);

@@ -1,5 +1,5 @@
 //! Verdict rules across checks and channels: invalid measurements, channel selection and
-//! order, and the unit verdict (brief "checks v1"; DESIGN.md "a retest is never counted as
+//! order, and the unit verdict (brief "checks v1"; docs/architecture.md "a retest is never counted as
 //! a pass").
 
 use crate::support::checks_fixture;

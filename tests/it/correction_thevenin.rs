@@ -153,7 +153,7 @@ fn harmonic_correction_moves_hd_by_the_correction_at_n_f_over_f() {
 
 #[test]
 fn ideal_limit_is_the_ratio_of_transfer_impedances() {
-    // DESIGN.md: Zs → ∞ gives C = Zr·Tr/(Zf·Tf). A table source with a huge Zs must
+    // docs/architecture.md: Zs → ∞ gives C = Zr·Tr/(Zf·Tf). A table source with a huge Zs must
     // approach the volume-velocity correction (relative difference ~ |Z|/|Zs| ≈ 1e-7 for
     // Zs = 1e16 against couplers of ≤1e9 Pa·s/m³ at 20 Hz, so 1e-6 bounds it).
     let (fixture, reference) = couplers();

@@ -1,5 +1,5 @@
 //! `tragus coupler` against outside references: lumped-cavity and closed-tube formulas
-//! (REFERENCE-VALUES.md sources named per test), the DESIGN.md JSON contract, bad models.
+//! (docs/reference-values.md sources named per test), the docs/architecture.md JSON contract, bad models.
 
 use crate::support::common;
 
@@ -36,7 +36,7 @@ fn two_cc_coupler_is_a_2cm3_compliance_at_500_hz() {
     assert!((z - 147.07).abs() < 0.1, "|Z_in| = {z:.3} dB");
 }
 
-// Closed tube, a = 3.75 mm, L = 25 mm, 20 °C (REFERENCE-VALUES.md, visco-thermal tube):
+// Closed tube, a = 3.75 mm, L = 25 mm, 20 °C (docs/reference-values.md, visco-thermal tube):
 // lossy Z_in at 1 kHz = 2.032e5 − j1.8789e7 Pa·s/m³, and |Z_in| has its quarter-wave minimum
 // near c/(4L) = 3432.8 Hz (lossless); losses pull the minimum slightly down, so within 2 %.
 #[test]
@@ -68,7 +68,7 @@ fn closed_tube_matches_the_worked_example_and_quarter_wave() {
     assert!((at / 3432.8 - 1.0).abs() < 0.02, "minimum at {at} Hz");
 }
 
-// DESIGN.md contract keys for every shipped model, on the default grid.
+// docs/architecture.md contract keys for every shipped model, on the default grid.
 #[test]
 fn every_shipped_model_gives_the_contract_json() {
     for m in [

@@ -184,7 +184,7 @@ fn wrong_rate_and_missing_channel_are_bad_input() {
     assert!(err.contains('2') && err.contains('1'), "{err}");
 }
 
-// The result JSON keeps the contract's field names (DESIGN.md, "Result JSON").
+// The result JSON keeps the contract's field names (docs/architecture.md, "Result JSON").
 #[test]
 fn result_json_has_the_contract_fields() {
     let (rate, s) = stim();

@@ -114,7 +114,7 @@ fn measure() -> serde_json::Value {
 // against the raw channel (same device, same capture path, no correction), against the
 // channel's own `fixture_response_db`, and in absolute terms against the device's known
 // gain. Bar 0.01 dB from 50 Hz to 16 kHz (the brief's); the analysis alone is within
-// 0.002 dB of a known response there (DEVELOPERS.md, measured), and the correction is exact
+// 0.002 dB of a known response there (docs/decisions.md, "Deconvolve by the stimulus as played"), and the correction is exact
 // at grid points up to rounding.
 #[test]
 fn corrected_response_equals_measured_plus_independent_correction() {

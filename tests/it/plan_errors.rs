@@ -1,6 +1,6 @@
 //! What a user reads when a plan is wrong: every problem at once, as `path:line:col: message`.
 //!
-//! The expected strings are the interface (DESIGN.md: `tragus validate` prints one line per
+//! The expected strings are the interface (docs/architecture.md: `tragus validate` prints one line per
 //! problem). Line and column of each were counted in the fixture by hand (1-based, the
 //! column of the offending value, or of the key for unknown keys, or of the mapping's first
 //! key for missing keys).

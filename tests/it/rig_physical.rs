@@ -133,7 +133,7 @@ fn circuit_pa_per_v(m: &EarphoneModel, fixture: &Coupler, tap: usize, f: f64) ->
 }
 
 // The solver's small-signal response is the virtual earphone's Thévenin pair loaded by the
-// fixture, times the tap's pressure transfer (DESIGN.md correction physics): the two are
+// fixture, times the tap's pressure transfer (docs/architecture.md correction physics): the two are
 // algebraically identical, so they agree to rounding (1e-6 dB and 1e-6° are far above f64
 // rounding through a dozen complex products, far below anything measurable).
 #[test]

@@ -55,7 +55,7 @@ fn a_unit_30_db_louder_than_declared_trips_the_guard_within_the_documented_time(
     assert_eq!(trip.input, 0, "the loud channel is the left one");
     assert!(trip.peak_fs > trip.limit_fs);
 
-    // Documented (DEVELOPERS.md, hearing safety): on the simulated rig the output is silent
+    // Documented (docs/architecture.md, hearing safety): on the simulated rig the output is silent
     // at most one watch block plus one fade after the first sample over the limit.
     let documented_s = GUARD_BLOCK_S + tragus::safety::ramp::DEFAULT_FADE_S;
     let took_s = (trip.silent_from_sample - trip.first_over_sample) as f64 / fs;

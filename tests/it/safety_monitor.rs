@@ -90,7 +90,7 @@ fn an_amplifier_turned_up_during_the_sweep_trips_the_guard_on_its_monitor() {
     assert!(trip.first_over_sample < at as usize + 96 + 4800, "{trip:?}");
     let volts = trip.peak_fs * MONITOR_V_PER_FS;
     assert!(volts > limit_v && volts <= 0.0158 * 2.0 * 1.01, "{volts} V");
-    // Silent within one watch block plus one fade (DEVELOPERS.md, hearing safety).
+    // Silent within one watch block plus one fade (docs/architecture.md, hearing safety).
     let documented_s = GUARD_BLOCK_S + tragus::safety::ramp::DEFAULT_FADE_S;
     let took_s = (trip.silent_from_sample - trip.first_over_sample) as f64 / fs;
     assert!(

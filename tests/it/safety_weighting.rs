@@ -100,7 +100,7 @@ fn pole_frequencies_from_the_design_inputs() {
     assert_eq!(f4.round(), 12194.0);
     // The same formulas evaluated in double precision by public implementations of IEC
     // 61672-1 (a widely copied Python A/C-weighting module: 20.598997057568145,
-    // 107.65264864304628, 737.8622307362899, 12194.21714799801 Hz; REFERENCE-VALUES.md has
+    // 107.65264864304628, 737.8622307362899, 12194.21714799801 Hz; docs/reference-values.md has
     // the same to the last digit or two). 1e-12 relative: the digits the two sources share.
     for (got, want) in [
         (f1, 20.598997057568145),
@@ -119,7 +119,7 @@ fn pole_frequencies_from_the_design_inputs() {
 fn normalisation_constants_at_1_khz() {
     // IEC 61672-1:2002 §5.4.11: A1000 = −2.000 dB and C1000 = −0.062 dB (rounded to
     // 0.001 dB in the standard); exact values −1.9996555 and −0.0619019 dB evaluated from the
-    // same formulas in double precision (REFERENCE-VALUES.md), to their 7 decimals.
+    // same formulas in double precision (docs/reference-values.md), to their 7 decimals.
     assert_eq!((a1000_db() * 1000.0).round() / 1000.0, -2.000);
     assert_eq!((c1000_db() * 1000.0).round() / 1000.0, -0.062);
     assert!((a1000_db() - -1.9996555).abs() < 1e-7, "{}", a1000_db());

@@ -388,7 +388,7 @@ fn a_stalled_or_killed_server_mid_sweep_is_a_retest() {
 #[test]
 fn a_wrong_device_name_is_bad_input() {
     // Needs the ALSA host only, not a server: a device name the host does not know is the
-    // station's mistake (exit 2, DESIGN.md), and the message lists the devices it has.
+    // station's mistake (exit 2, docs/architecture.md), and the message lists the devices it has.
     let out = tragus(&[
         "run",
         "plans/loopback.yaml",

@@ -46,7 +46,7 @@ fn reads_a_table_and_interpolates_linearly_in_log_frequency() {
 
 #[test]
 fn the_ideal_volume_velocity_source_has_no_impedance() {
-    // Zs = ∞ (DESIGN.md): p = U·Z_L with U = 1 m³/s whatever the load.
+    // Zs = ∞ (docs/architecture.md): p = U·Z_L with U = 1 m³/s whatever the load.
     let s = Source::VolumeVelocity;
     assert_eq!(s.impedance(1e3).unwrap(), None);
     let z = C64::new(1e7, -3e7);

@@ -86,7 +86,7 @@ fn appended_records_survive_reopen_and_chain_verifies() {
     assert_eq!(report.n_captures_checked, 5);
     assert_eq!(report.head_hash, stored[4].record_hash);
 
-    // The database is in WAL mode (DESIGN.md "Store"); journal_mode persists in the file.
+    // The database is in WAL mode (docs/architecture.md "Store"); journal_mode persists in the file.
     let mode: String = raw(&dir)
         .query_row("PRAGMA journal_mode", [], |r| r.get(0))
         .unwrap();

@@ -5,7 +5,7 @@
 //!
 //! The outside reference here is physics, not a file: both stations simulate the same
 //! electro-mechano-acoustic unit in two different acoustic loads, and the correction
-//! (Thévenin's theorem, DESIGN.md formula) must take both to the same reference-coupler
+//! (Thévenin's theorem, docs/architecture.md formula) must take both to the same reference-coupler
 //! response.
 
 use crate::support::common;

@@ -126,7 +126,7 @@ def tables():
 
 
 def sanity():
-    """Published worked examples (REFERENCE-VALUES.md sources) the script must reproduce."""
+    """Published worked examples (docs/reference-values.md sources) the script must reproduce."""
     air = keefe_air()
     g, zc, fv = zk(3.75e-3, 1000.0, air)
     z0 = air[0] * air[2] / (math.pi * 3.75e-3**2)

@@ -13,7 +13,7 @@ pub static SERVER: Mutex<()> = Mutex::new(());
 
 /// Buffer size for the runs, frames: the device default of ALSA's pulse plugin drops
 /// samples now and then on a loaded 2-core machine (measured: 3 of 12 runs), 4096 frames
-/// (85 ms) never did in 12 (DEVELOPERS.md, "Sound-card rig").
+/// (85 ms) never did in 12 (docs/decisions.md, "Server underruns must be xruns").
 pub const BUFFER_FRAMES: &str = "4096";
 
 /// Repository root.
