@@ -13,3 +13,12 @@ pub fn spl_db(p_rms_pa: f64) -> f64 {
 pub fn pressure_pa(level_db_spl: f64) -> f64 {
     P_REF_PA * 10f64.powf(level_db_spl / 20.0)
 }
+
+/// The level of a tone in dBFS after AES17 (AES17-2020, §3.12.2: 0 dBFS is the rms of a
+/// full-scale sine), from its rms in full scale (sample value 1.0 = 1 FS): `20·lg(√2·rms)`.
+/// The one convention of every tone reading in tragus (the pilot, the calibration tones): a
+/// sine of peak amplitude a reads `20·lg(a)` dBFS, the same number as the generator's peak
+/// level.
+pub fn tone_dbfs(rms_fs: f64) -> f64 {
+    10.0 * (2.0 * rms_fs * rms_fs).max(1e-300).log10()
+}

@@ -280,7 +280,8 @@ pub fn parse_thevenin_csv(text: &str, path: &str) -> Result<Source, SourceError>
     Ok(Source::Thevenin { table })
 }
 
-/// Linear interpolation in log-frequency of (p_oc, Zs); exact at the table points.
+/// Linear interpolation in log-frequency of (p_oc, Zs) ([`crate::dsp::interp`]); exact at
+/// the table points.
 fn interpolate_table(table: &[(f64, C64, C64)], freq_hz: f64) -> Result<TheveninPair, SourceError> {
     let (first, last) = match (table.first(), table.last()) {
         (Some(a), Some(b)) => (a, b),
@@ -295,21 +296,24 @@ fn interpolate_table(table: &[(f64, C64, C64)], freq_hz: f64) -> Result<Thevenin
     if !(freq_hz >= first.0 && freq_hz <= last.0) {
         return Err(out_of_range());
     }
-    let hi = table
-        .partition_point(|p| p.0 < freq_hz)
-        .min(table.len() - 1);
-    let (f1, p1, z1) = table[hi];
-    if f1 == freq_hz || hi == 0 {
-        return Ok(TheveninPair {
-            p_oc_pa_per_v: p1,
-            z_s_pa_s_m3: z1,
-        });
-    }
-    let (f0, p0, z0) = table[hi - 1];
-    let t = (freq_hz / f0).ln() / (f1 / f0).ln();
-    Ok(TheveninPair {
-        p_oc_pa_per_v: p0 + (p1 - p0) * t,
-        z_s_pa_s_m3: z0 + (z1 - z0) * t,
+    use crate::dsp::interp::{bracket, Bracket};
+    let at = |i: usize| TheveninPair {
+        p_oc_pa_per_v: table[i].1,
+        z_s_pa_s_m3: table[i].2,
+    };
+    Ok(match bracket(table.len(), |i| table[i].0, freq_hz) {
+        Bracket::Below => at(0),
+        Bracket::Above => at(table.len() - 1),
+        Bracket::At(i) => at(i),
+        // The table's frequencies are checked ascending when it is read.
+        Bracket::Invalid { lo } => at(lo),
+        Bracket::Between { lo, t } => {
+            let ((_, p0, z0), (_, p1, z1)) = (table[lo], table[lo + 1]);
+            TheveninPair {
+                p_oc_pa_per_v: p0 + (p1 - p0) * t,
+                z_s_pa_s_m3: z0 + (z1 - z0) * t,
+            }
+        }
     })
 }
 

@@ -100,21 +100,11 @@ fn expm1_c(w: C64) -> C64 {
     C64::new(em1 * w.im.cos() - 2.0 * s * s, w.re.exp() * w.im.sin())
 }
 
+/// The tabulated impedance at `freq_hz`, linear in log frequency ([`crate::dsp::interp`]),
+/// held beyond the table; `None` for an empty table.
 fn table_impedance(points: &[(f64, C64)], freq_hz: f64) -> Option<C64> {
-    let (first, last) = (points.first()?, points.last()?);
-    if freq_hz <= first.0 {
-        return Some(first.1);
+    if points.is_empty() {
+        return None;
     }
-    if freq_hz >= last.0 {
-        return Some(last.1);
-    }
-    // First index whose frequency is above freq_hz; 1 ≤ i < len here.
-    let i = points.partition_point(|p| p.0 <= freq_hz);
-    let (f0, z0) = points[i - 1];
-    let (f1, z1) = points[i];
-    if f1 <= f0 || f0 <= 0.0 {
-        return Some(z0);
-    }
-    let t = (freq_hz / f0).ln() / (f1 / f0).ln();
-    Some(z0 + (z1 - z0) * t)
+    Some(crate::dsp::interp::interpolate_log_f_held(points, freq_hz))
 }

@@ -94,7 +94,8 @@ pub struct ToneReading {
     pub freq_hz: f64,
     /// Band-passed rms of the judged part, full scale (sample value 1.0 = 1 FS).
     pub rms_fs: f64,
-    /// Band-passed rms level, dBFS (rms re a sample value of 1.0).
+    /// Band-passed level, dBFS after AES17 ([`crate::units::tone_dbfs`]: 0 dBFS is a
+    /// full-scale sine, so a sine of peak a reads 20·lg(a)).
     pub level_dbfs: f64,
     /// Spread (max − min) of the sub-block levels, dB.
     pub level_spread_db: f64,
@@ -317,7 +318,7 @@ pub fn measure_tone(samples: &[f32], sample_rate_hz: u32) -> Result<ToneReading,
     Ok(ToneReading {
         freq_hz,
         rms_fs,
-        level_dbfs: db10(rms_fs * rms_fs),
+        level_dbfs: crate::units::tone_dbfs(rms_fs),
         level_spread_db: hi - lo,
         thd_percent,
         snr_db,

@@ -24,51 +24,16 @@ impl LimitLine {
 }
 
 /// Interpolate `n` points `point(i) = (freq_hz, level_db)`, frequencies ascending,
-/// linearly in dB versus log10 frequency at `freq_hz`. `None` outside the span, for no
-/// points, or for a non-positive or non-finite frequency (log-frequency is undefined there).
-/// A query at a point's frequency returns that point's level exactly.
+/// linearly in dB versus log10 frequency at `freq_hz` ([`crate::dsp::interp`]). `None`
+/// outside the span (widened by [`FREQ_REL_TOL`]), for no points, or for a non-positive or
+/// non-finite frequency (log-frequency is undefined there). A query at a point's frequency
+/// returns that point's level exactly.
 pub fn interpolate_log_f(
     n: usize,
     point: impl Fn(usize) -> (f64, f64),
     freq_hz: f64,
 ) -> Option<f64> {
-    if n == 0 || !(freq_hz > 0.0 && freq_hz.is_finite()) {
-        return None;
-    }
-    let (f_first, v_first) = point(0);
-    let (f_last, v_last) = point(n - 1);
-    if freq_hz < f_first * (1.0 - FREQ_REL_TOL) || freq_hz > f_last * (1.0 + FREQ_REL_TOL) {
-        return None;
-    }
-    if freq_hz <= f_first {
-        return Some(v_first);
-    }
-    if freq_hz >= f_last {
-        return Some(v_last);
-    }
-    // Binary search for the last point at or below freq_hz; f_first < freq_hz < f_last
-    // here, so 1 ≤ hi ≤ n − 1.
-    let (mut lo, mut hi) = (0usize, n - 1);
-    while hi - lo > 1 {
-        let mid = (lo + hi) / 2;
-        if point(mid).0 <= freq_hz {
-            lo = mid;
-        } else {
-            hi = mid;
-        }
-    }
-    let (f0, v0) = point(lo);
-    let (f1, v1) = point(hi);
-    if freq_hz == f0 {
-        return Some(v0);
-    }
-    if !(f0 > 0.0 && f1 > f0) {
-        // Not a valid segment (the plan stage guarantees positive ascending frequencies);
-        // refuse rather than divide by zero.
-        return None;
-    }
-    let t = (freq_hz.log10() - f0.log10()) / (f1.log10() - f0.log10());
-    Some(v0 + t * (v1 - v0))
+    crate::dsp::interp::interpolate_log_f(n, point, freq_hz, FREQ_REL_TOL)
 }
 
 #[cfg(test)]

@@ -506,12 +506,7 @@ fn drive(a: DriveArgs) -> Result<i32, Exit> {
 const DRIVE_FADE_S: f64 = 0.01;
 
 /// `amp · sin(2π f k / fs)` for `k = 0..n`, computed in f64.
-fn sine(amp: f64, freq_hz: f64, rate_hz: u32, n: usize) -> Vec<f32> {
-    let w = 2.0 * std::f64::consts::PI * freq_hz / f64::from(rate_hz);
-    (0..n)
-        .map(|i| (amp * (w * i as f64).sin()) as f32)
-        .collect()
-}
+use crate::dsp::signals::sine;
 
 /// Play the calibration sine on `output` and return the part of `input`'s recording that
 /// holds it (found by cross-correlation, never by an assumed latency).

@@ -5,7 +5,9 @@
 //! calls an inverse divides by N itself.
 
 pub mod bands;
+pub mod interp;
 pub mod ramp;
+pub mod signals;
 pub mod smoothing;
 pub mod spectrum;
 pub mod sweep;

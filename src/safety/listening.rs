@@ -103,16 +103,8 @@ pub fn reference_level_dba(
     a_weighted_level_db(&bins)
 }
 
-/// `response` (Hz, dB) at `freq_hz`: linear in log frequency between points, held beyond.
+/// `response` (Hz, dB) at `freq_hz`: linear in log frequency between points, held beyond
+/// ([`crate::dsp::interp`]).
 pub fn response_at(response: &[(f64, f64)], freq_hz: f64) -> f64 {
-    let k = response.partition_point(|&(f, _)| f < freq_hz);
-    if k == 0 {
-        return response[0].1;
-    }
-    if k >= response.len() {
-        return response[response.len() - 1].1;
-    }
-    let ((f0, y0), (f1, y1)) = (response[k - 1], response[k]);
-    let t = (freq_hz / f0).ln() / (f1 / f0).ln();
-    y0 + t * (y1 - y0)
+    crate::dsp::interp::interpolate_log_f_held(response, freq_hz)
 }

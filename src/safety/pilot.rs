@@ -10,8 +10,8 @@
 //! Drive and measured levels are in **dBFS after AES17**: re the rms of a full-scale sine, so
 //! a sine of peak amplitude a (sample value 1.0 = 1 FS) is `20·lg(a)` dBFS — the generator's
 //! peak dBFS and the reading's level are the same kind of number, and their difference is the
-//! unit's gain at the pilot frequency. (`calibration::tone` reads rms re a sample value of
-//! 1.0, which is 3.01 dB lower for the same sine.)
+//! unit's gain at the pilot frequency. It is the one convention of every tone reading
+//! ([`crate::units::tone_dbfs`]; `calibration::tone` reads the same way).
 //!
 //! # Reading (method)
 //!
@@ -248,11 +248,6 @@ pub enum PilotError {
     },
 }
 
-/// Raised-cosine fade-in gain at `n` of `n_fade`: `½·(1 − cos(π·n/F))`, 0 at n = 0.
-fn fade_in(n: usize, n_fade: usize) -> f64 {
-    0.5 * (1.0 - (PI * n as f64 / n_fade as f64).cos())
-}
-
 /// The pilot's samples at `rate_hz`: `a·e(n)·sin(2π·f·n/fs)` with `a = 10^(L/20)` and a
 /// raised-cosine envelope e rising over the first fade, 1 over the steady part, falling over
 /// the last fade (symmetric; 0 at the first and last sample).
@@ -264,19 +259,13 @@ fn fade_in(n: usize, n_fade: usize) -> f64 {
 pub fn generate_pilot(spec: &PilotSpec, rate_hz: u32) -> Result<Vec<f32>, PilotError> {
     let layout = spec.layout(rate_hz)?;
     let amplitude = 10f64.powf(spec.level_dbfs / 20.0);
-    let w = 2.0 * PI * spec.freq_hz / f64::from(rate_hz);
-    let n_total = layout.n_total;
-    Ok((0..n_total)
-        .map(|n| {
-            let from_edge = n.min(n_total - 1 - n);
-            let envelope = if from_edge < layout.n_fade {
-                fade_in(from_edge, layout.n_fade)
-            } else {
-                1.0
-            };
-            (amplitude * envelope * (w * n as f64).sin()) as f32
-        })
-        .collect())
+    Ok(crate::dsp::signals::faded_sine(
+        amplitude,
+        spec.freq_hz,
+        rate_hz,
+        layout.n_total,
+        layout.n_fade,
+    ))
 }
 
 /// Where the pilot is in the capture and what counts as present.
