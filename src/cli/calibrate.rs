@@ -323,7 +323,7 @@ fn add_instrument(cal: &mut Calibration, role: &str, model: &str, serial: &str) 
 fn finish(cal: &Calibration, what: &str) -> Result<i32, Exit> {
     let path = &cal.source;
     write_atomic(path, cal.to_yaml().as_bytes()).map_err(Exit::bad_input)?;
-    println!(
+    outln!(
         "{what}\nwrote {} (due {}, sha256 {})",
         path.display(),
         format_date(cal.due_date),
@@ -632,7 +632,7 @@ fn tone(a: ToneArgs) -> Result<i32, Exit> {
     channels[output - 1] = sine(amp, a.freq_hz, a.rate_hz, n);
     let bytes = crate::wav::encode_wav_f32(a.rate_hz, &channels).map_err(Exit::bad_input)?;
     write_atomic(&a.out, &bytes).map_err(Exit::bad_input)?;
-    println!(
+    outln!(
         "wrote {}: {} Hz at {} dBFS peak on output {output} of {n_ch}, {} s",
         a.out.display(),
         a.freq_hz,

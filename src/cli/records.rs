@@ -67,12 +67,12 @@ pub(crate) fn list(args: ListArgs) -> Result<i32, Exit> {
             return Ok(EXIT_PASS);
         }
     }
-    println!(
+    outln!(
         "{:>6}  {:<24}  {:<12}  {:<20}  {:<6}  record hash",
         "#", "time (UTC)", "serial", "plan", "verdict"
     );
     for r in &records {
-        println!(
+        outln!(
             "{:>6}  {:<24}  {:<12}  {:<20}  {:<6}  {}",
             r.id,
             r.time_utc,
@@ -88,11 +88,11 @@ pub(crate) fn list(args: ListArgs) -> Result<i32, Exit> {
 pub(crate) fn verify(args: VerifyArgs) -> Result<i32, Exit> {
     let store = open(&args.store)?;
     let report = store.verify().map_err(Exit::bad_input)?;
-    println!(
+    outln!(
         "{} record(s), {} capture file(s) rehashed, head hash {}",
         report.n_records, report.n_captures_checked, report.head_hash
     );
-    println!(
+    outln!(
         "{} safety event(s), head hash {}; {} exposure(s), head hash {}",
         report.n_safety_events,
         report.safety_events_head_hash,
@@ -100,18 +100,18 @@ pub(crate) fn verify(args: VerifyArgs) -> Result<i32, Exit> {
         report.exposures_head_hash
     );
     for p in &report.problems {
-        println!("PROBLEM {p}");
+        outln!("PROBLEM {p}");
     }
     for n in &report.notices {
-        println!("notice  {n}");
+        outln!("notice  {n}");
     }
     if report.is_intact() {
-        println!(
+        outln!(
             "INTACT: every record hash, chain link and raw capture, and every safety event and exposure hash and link, checks out"
         );
         Ok(EXIT_PASS)
     } else {
-        println!("NOT INTACT: {} problem(s)", report.problems.len());
+        outln!("NOT INTACT: {} problem(s)", report.problems.len());
         Ok(EXIT_FAIL)
     }
 }

@@ -28,7 +28,7 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
     for path in &args.plans {
         match load_plan(path) {
             Ok(plan) => {
-                println!(
+                outln!(
                     "{}: ok (plan {} revision {}, sha256 {})",
                     path.display(),
                     plan.id,
@@ -40,19 +40,19 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
                 // Problems go to stdout: they are the command's output, one per line, for
                 // editors and CI to parse.
                 for p in problems {
-                    println!("{p}");
+                    outln!("{p}");
                 }
                 code = EXIT_BAD_INPUT;
             }
             Err(e @ PlanError::Io { .. }) => {
-                println!("{e}");
+                outln!("{e}");
                 code = EXIT_BAD_INPUT;
             }
         }
     }
     for path in &args.station {
         match crate::station::load_station(path) {
-            Ok(st) => println!(
+            Ok(st) => outln!(
                 "{}: ok (station {}, {}, sha256 {})",
                 path.display(),
                 st.id,
@@ -61,12 +61,12 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
             ),
             Err(crate::station::StationError::Invalid(problems)) => {
                 for p in problems {
-                    println!("{p}");
+                    outln!("{p}");
                 }
                 code = EXIT_BAD_INPUT;
             }
             Err(e) => {
-                println!("{e}");
+                outln!("{e}");
                 code = EXIT_BAD_INPUT;
             }
         }
@@ -120,19 +120,19 @@ fn on_station(
                     )
                 })
                 .unwrap_or_default();
-            println!(
+            outln!(
                 "{} on {}: ok ({}){closest}",
                 plan.display(),
                 station_path.display(),
                 b.station.mode.as_str()
             );
             for u in &b.safety.budget.unchecked {
-                println!("  not bounded before playing: {u}");
+                outln!("  not bounded before playing: {u}");
             }
             EXIT_PASS
         }
         Err(e) => {
-            println!(
+            outln!(
                 "{} on {}: refused: {:#}",
                 plan.display(),
                 station_path.display(),
