@@ -22,8 +22,8 @@ pub const SERIAL_PUNCTUATION: &str = "-_./+";
 /// Arabic letter mark U+061C. Named apart from other refused characters because they
 /// reorder how the text around them is displayed.
 pub const BIDI_CONTROLS: [char; 12] = [
-    '\u{202A}', '\u{202B}', '\u{202C}', '\u{202D}', '\u{202E}', '\u{2066}', '\u{2067}',
-    '\u{2068}', '\u{2069}', '\u{200E}', '\u{200F}', '\u{061C}',
+    '\u{202A}', '\u{202B}', '\u{202C}', '\u{202D}', '\u{202E}', '\u{2066}', '\u{2067}', '\u{2068}',
+    '\u{2069}', '\u{200E}', '\u{200F}', '\u{061C}',
 ];
 
 /// Why a text is not a serial number. Messages never repeat a refused character as itself
@@ -151,7 +151,12 @@ mod tests {
 
     #[test]
     fn plausible_serials_pass() {
-        for s in ["E2-000123", "ab/12.x+y_z", "7", &"9".repeat(MAX_SERIAL_CHARS)] {
+        for s in [
+            "E2-000123",
+            "ab/12.x+y_z",
+            "7",
+            &"9".repeat(MAX_SERIAL_CHARS),
+        ] {
             assert_eq!(check_serial(s), Ok(()), "{s}");
         }
     }
@@ -161,10 +166,7 @@ mod tests {
         assert_eq!(check_serial(""), Err(SerialError::Empty));
         assert_eq!(
             check_serial(&"9".repeat(MAX_SERIAL_CHARS + 1)),
-            Err(SerialError::TooLong {
-                max: 64,
-                found: 65
-            })
+            Err(SerialError::TooLong { max: 64, found: 65 })
         );
         let e = check_serial(&"A".repeat(200)).unwrap_err();
         assert_eq!(
@@ -191,12 +193,22 @@ mod tests {
 
     #[test]
     fn control_characters_are_named_by_code_point() {
-        for (s, c) in [("E2\u{7}1", '\u{7}'), ("E2\u{7f}", '\u{7f}'), ("\u{85}E2", '\u{85}')] {
+        for (s, c) in [
+            ("E2\u{7}1", '\u{7}'),
+            ("E2\u{7f}", '\u{7f}'),
+            ("\u{85}E2", '\u{85}'),
+        ] {
             let e = check_serial(s).unwrap_err();
-            assert!(matches!(e, SerialError::Control { found, .. } if found == c), "{e:?}");
+            assert!(
+                matches!(e, SerialError::Control { found, .. } if found == c),
+                "{e:?}"
+            );
             let text = e.to_string();
             assert!(text.contains(&format!("U+{:04X}", u32::from(c))), "{text}");
-            assert!(!text.contains(c), "the message must not carry the raw character");
+            assert!(
+                !text.contains(c),
+                "the message must not carry the raw character"
+            );
         }
         assert_eq!(
             check_serial("E2\t1").unwrap_err().to_string(),
@@ -210,7 +222,13 @@ mod tests {
         for &c in &BIDI_CONTROLS {
             let s = format!("E2-{c}321");
             let e = check_serial(&s).unwrap_err();
-            assert_eq!(e, SerialError::Bidi { position: 4, found: c });
+            assert_eq!(
+                e,
+                SerialError::Bidi {
+                    position: 4,
+                    found: c
+                }
+            );
             assert!(!e.to_string().contains(c));
         }
         assert_eq!(

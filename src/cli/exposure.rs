@@ -191,7 +191,9 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
     );
     outln!(
         "at {:.1} dB(A): {:.1} min of listening left before a dose reaches {:.0} %",
-        args.at_dba, decision.minutes_left_at_level, policy.refuse_percent
+        args.at_dba,
+        decision.minutes_left_at_level,
+        policy.refuse_percent
     );
     outln!("{decision}");
     Ok(EXIT_PASS)

@@ -297,7 +297,10 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         }
     };
     let color_allowed = !cli.no_color && std::env::var_os("NO_COLOR").is_none();
-    init_tracing(cli.verbose, color_allowed && std::io::stderr().is_terminal());
+    init_tracing(
+        cli.verbose,
+        color_allowed && std::io::stderr().is_terminal(),
+    );
     let out = Output {
         color: color_allowed && std::io::stdout().is_terminal(),
         color_allowed,

@@ -69,7 +69,11 @@ pub(crate) fn list(args: ListArgs) -> Result<i32, Exit> {
     }
     outln!(
         "{:>6}  {:<24}  {:<12}  {:<20}  {:<6}  record hash",
-        "#", "time (UTC)", "serial", "plan", "verdict"
+        "#",
+        "time (UTC)",
+        "serial",
+        "plan",
+        "verdict"
     );
     for r in &records {
         outln!(
@@ -90,7 +94,9 @@ pub(crate) fn verify(args: VerifyArgs) -> Result<i32, Exit> {
     let report = store.verify().map_err(Exit::bad_input)?;
     outln!(
         "{} record(s), {} capture file(s) rehashed, head hash {}",
-        report.n_records, report.n_captures_checked, report.head_hash
+        report.n_records,
+        report.n_captures_checked,
+        report.head_hash
     );
     outln!(
         "{} safety event(s), head hash {}; {} exposure(s), head hash {}",
