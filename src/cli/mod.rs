@@ -74,7 +74,8 @@ pub struct Cli {
     #[arg(short, long, action = clap::ArgAction::Count, global = true)]
     pub verbose: u8,
 
-    /// Never colour the output (also when NO_COLOR is set or stdout is not a terminal).
+    /// Never colour the output, log lines included (also when NO_COLOR is set; colour only
+    /// ever goes to a terminal).
     #[arg(long, global = true)]
     pub no_color: bool,
 

@@ -18,7 +18,7 @@ pub struct ListArgs {
     /// Only units tested with this plan id.
     #[arg(long, value_name = "ID")]
     pub plan: Option<String>,
-    /// Only units with this verdict.
+    /// Only units with this verdict: pass, fail or retest.
     #[arg(long, value_name = "VERDICT", value_parser = parse_verdict)]
     pub verdict: Option<Verdict>,
     /// Only units measured at or after this instant (inclusive), UTC
