@@ -22,6 +22,7 @@ pub mod rig;
 /// Hearing safety: frequency weighting, exposure dose, the guard's fade and level watch, the
 /// pilot tone (issue 5).
 pub mod safety;
+pub mod serial;
 pub mod station;
 pub mod stimulus;
 pub mod store;

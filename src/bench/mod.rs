@@ -325,11 +325,9 @@ impl Bench {
         sim: &SimChoice,
         listen: &dyn Fn(&str) -> Option<bool>,
     ) -> Result<UnitOutcome, BenchError> {
-        if serial.trim().is_empty() {
-            return Err(BenchError::bad_input(
-                "--serial: expected a serial number, found an empty string",
-            ));
-        }
+        // The one serial rule (also checked by the command line before anything loads).
+        crate::serial::check_serial(serial)
+            .map_err(|e| BenchError::bad_input(format!("--serial: {e}")))?;
         let mut rig = self.make_rig(serial, sim)?;
         tracing::info!(serial = %serial, rig = rig.name(), "playing the stimulus");
         let started = std::time::Instant::now();
@@ -402,9 +400,10 @@ impl Bench {
             s.events.extend(listening.notes);
         }
         result.verdict = prepare::decide_verdict(&self.prep.plan, &result, n_listening);
-        // Every refusal, scale-down, trip and dose warning goes to the log too.
+        // Shown once by whoever reports the unit, kept in the store; the log has them only at
+        // debug level, so that no message is printed twice.
         for e in result.safety.iter().flat_map(|s| &s.events) {
-            tracing::warn!(serial = %result.serial, "hearing safety: {e}");
+            tracing::debug!(serial = %result.serial, "hearing safety: {e}");
         }
         let events = result
             .safety

@@ -38,7 +38,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         j.write(&result).map_err(Exit::bad_input)?;
     }
     if !args.json.as_ref().is_some_and(JsonOut::is_stdout) {
-        print!("{}", crate::report::render_human(&result, out.color));
+        out!("{}", crate::report::render_human(&result, out.color));
     }
     Ok(result.verdict.exit_code())
 }

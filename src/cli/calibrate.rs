@@ -14,7 +14,7 @@
 //! make an old drive reading younger.
 
 use super::soundcard_args::SoundcardArgs;
-use super::{write_atomic, Exit};
+use super::{write_atomic, Exit, JsonOut};
 use crate::calibration::{
     calibrate_microphone, drive_from_input, drive_from_meter, format_date, load_calibration,
     Calibration, CalibrationError, Instrument, DEFAULT_DUE_DAYS,
@@ -69,6 +69,10 @@ pub struct Common {
     /// Days until the calibration is due.
     #[arg(long, default_value_t = DEFAULT_DUE_DAYS, value_name = "DAYS")]
     pub due_days: u32,
+    /// Write what was measured and the calibration written as one JSON document here (`-`
+    /// for stdout: the human lines then go nowhere).
+    #[arg(long, value_name = "OUT")]
+    pub json: Option<JsonOut>,
     /// Sound-card options for `--record` (override the station's `audio:` settings).
     #[command(flatten)]
     pub soundcard: SoundcardArgs,
@@ -320,10 +324,46 @@ fn add_instrument(cal: &mut Calibration, role: &str, model: &str, serial: &str) 
     cal.instruments.push(i);
 }
 
-fn finish(cal: &Calibration, what: &str) -> Result<i32, Exit> {
+/// Write the file; say `what` was measured and what was written, in words and, with
+/// `--json`, as `{"measured": measured, "calibration": {...}}`.
+fn finish(
+    cal: &Calibration,
+    what: &str,
+    measured: serde_json::Value,
+    json: Option<&JsonOut>,
+) -> Result<i32, Exit> {
     let path = &cal.source;
     write_atomic(path, cal.to_yaml().as_bytes()).map_err(Exit::bad_input)?;
-    println!(
+    if let Some(j) = json {
+        let doc = serde_json::json!({
+            "measured": measured,
+            "calibration": {
+                "path": path,
+                "sha256": cal.sha256(),
+                "station": cal.station,
+                "date_utc": cal.date_utc,
+                "due_date": format_date(cal.due_date),
+                "operator": cal.operator,
+                "instruments": cal.instruments.iter().map(|i| serde_json::json!({
+                    "role": i.role, "model": i.model, "serial": i.serial,
+                })).collect::<Vec<_>>(),
+                "microphone": cal.microphone.iter().map(|(n, m)| serde_json::json!({
+                    "input": n, "fs_per_pa": m.fs_per_pa,
+                })).collect::<Vec<_>>(),
+                "drive": cal.drive.iter().map(|(n, d)| serde_json::json!({
+                    "output": n, "volts_peak_per_fs": d.volts_peak_per_fs,
+                })).collect::<Vec<_>>(),
+                "monitor": cal.monitor.iter().map(|(n, m)| serde_json::json!({
+                    "input": n, "volts_peak_per_fs": m.volts_peak_per_fs,
+                })).collect::<Vec<_>>(),
+            },
+        });
+        j.write(&doc).map_err(Exit::bad_input)?;
+        if j.is_stdout() {
+            return Ok(super::EXIT_PASS);
+        }
+    }
+    outln!(
         "{what}\nwrote {} (due {}, sha256 {})",
         path.display(),
         format_date(cal.due_date),
@@ -408,8 +448,19 @@ fn mic(a: MicArgs) -> Result<i32, Exit> {
         ),
         None => format!("input {input}: {:.6} FS/Pa", m.fs_per_pa),
     };
+    let measured = serde_json::json!({
+        "kind": "microphone",
+        "input": input,
+        "fs_per_pa": m.fs_per_pa,
+        "reading": m.reading.as_ref().map(|r| serde_json::json!({
+            "nominal_hz": r.nominal_hz, "level_db_spl": r.level_db_spl,
+            "measured_hz": r.measured_hz, "level_dbfs": r.level_dbfs,
+            "level_spread_db": r.level_spread_db, "thd_percent": r.thd_percent,
+            "snr_db": r.snr_db, "measured_utc": r.measured_utc,
+        })),
+    });
     cal.microphone.insert(input, m);
-    finish(&cal, &what)
+    finish(&cal, &what, measured, a.common.json.as_ref())
 }
 
 fn monitor(a: MonitorArgs) -> Result<i32, Exit> {
@@ -431,6 +482,8 @@ fn monitor(a: MonitorArgs) -> Result<i32, Exit> {
     finish(
         &cal,
         &format!("drive-monitor input {input}: {v:.6} V peak per FS"),
+        serde_json::json!({"kind": "monitor", "input": input, "volts_peak_per_fs": v}),
+        a.common.json.as_ref(),
     )
 }
 
@@ -497,8 +550,19 @@ fn drive(a: DriveArgs) -> Result<i32, Exit> {
         d.volts_peak_per_fs,
         d.volts_peak_per_fs / std::f64::consts::SQRT_2
     );
+    let measured = serde_json::json!({
+        "kind": "drive",
+        "output": output,
+        "volts_peak_per_fs": d.volts_peak_per_fs,
+        "reading": d.reading.as_ref().map(|r| serde_json::json!({
+            "method": r.method, "tone_hz": r.tone_hz, "tone_dbfs": r.tone_dbfs,
+            "measured_v_rms": r.measured_v_rms,
+            "input_volts_peak_per_fs": r.input_volts_peak_per_fs,
+            "measured_utc": r.measured_utc,
+        })),
+    });
     cal.drive.insert(output, d);
-    finish(&cal, &what)
+    finish(&cal, &what, measured, a.common.json.as_ref())
 }
 
 /// Fade at each end of the tone `calibrate drive --record` plays, s: a hard start clicks
@@ -627,7 +691,7 @@ fn tone(a: ToneArgs) -> Result<i32, Exit> {
     channels[output - 1] = sine(amp, a.freq_hz, a.rate_hz, n);
     let bytes = crate::wav::encode_wav_f32(a.rate_hz, &channels).map_err(Exit::bad_input)?;
     write_atomic(&a.out, &bytes).map_err(Exit::bad_input)?;
-    println!(
+    outln!(
         "wrote {}: {} Hz at {} dBFS peak on output {output} of {n_ch}, {} s",
         a.out.display(),
         a.freq_hz,

@@ -345,7 +345,7 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
             .map_err(Exit::bad_input)?;
     }
     if !args.json.as_ref().is_some_and(JsonOut::is_stdout) {
-        print!("{}", table(&model, &evaluated, given));
+        out!("{}", table(&model, &evaluated, given));
     }
     Ok(EXIT_PASS)
 }

@@ -43,16 +43,16 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
         )
     };
     for h in &hosts {
-        println!(
+        outln!(
             "host {}{}",
             h.name,
             if h.default { " (default)" } else { "" }
         );
         if let Some(e) = &h.error {
-            println!("  cannot list devices: {e}");
+            outln!("  cannot list devices: {e}");
         }
         if h.devices.is_empty() && h.error.is_none() {
-            println!("  no devices");
+            outln!("  no devices");
         }
         for d in &h.devices {
             let mut marks = Vec::new();
@@ -68,19 +68,19 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
                 format!(" [{}]", marks.join(", "))
             };
             if d.id == d.name {
-                println!("  {}{marks}", d.id);
+                outln!("  {}{marks}", d.id);
             } else {
-                println!("  {} ({}){marks}", d.id, d.name);
+                outln!("  {} ({}){marks}", d.id, d.name);
             }
             if d.output_channels > 0 {
-                println!(
+                outln!(
                     "    output: up to {} channel(s); {}",
                     d.output_channels,
                     summary(&d.output_configs)
                 );
             }
             if d.input_channels > 0 {
-                println!(
+                outln!(
                     "    input:  up to {} channel(s); {}",
                     d.input_channels,
                     summary(&d.input_configs)

@@ -167,7 +167,7 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
             return Ok(EXIT_PASS);
         }
     }
-    println!(
+    outln!(
         "operator {}: shift {} to {} ({:.1} h), week {} to {}, {} exposure(s) in the store",
         args.operator,
         utc_text(shift_start_unix_s),
@@ -177,22 +177,24 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
         utc_text(now_unix_s),
         n_exposures
     );
-    println!(
+    outln!(
         "NIOSH shift dose: {:.1} % ({:.1} min listened in the shift; NIOSH REL 85 dB(A) for 8 h, 3 dB exchange rate)",
         status.niosh_percent,
         status.shift_listened_s / 60.0
     );
-    println!(
+    outln!(
         "weekly dose (WHO/ITU-T H.870, {} {} Pa²h): {:.4} Pa²h = {:.1} %",
         policy.weekly_reference.words(),
         status.weekly_reference_pa2h,
         status.weekly_pa2h,
         status.weekly_percent
     );
-    println!(
+    outln!(
         "at {:.1} dB(A): {:.1} min of listening left before a dose reaches {:.0} %",
-        args.at_dba, decision.minutes_left_at_level, policy.refuse_percent
+        args.at_dba,
+        decision.minutes_left_at_level,
+        policy.refuse_percent
     );
-    println!("{decision}");
+    outln!("{decision}");
     Ok(EXIT_PASS)
 }

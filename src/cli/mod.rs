@@ -4,6 +4,30 @@
 //! analysis → checks → store → report). One file per command. Exit codes (docs/architecture.md):
 //! 0 pass/success, 1 fail, 2 bad input, 3 retest (including "the record could not be
 //! written": a unit without a record must be tested again, never shipped).
+//!
+//! Standard output is written only through `out!` and `outln!` (or [`JsonOut`]): a
+//! reader that goes away (`tragus records | head -1`) ends the output quietly, as with
+//! other Unix tools, instead of a panic; the command still finishes and exits with its
+//! own code.
+
+/// `print!` to stdout through `write_stdout`: never panics, a closed pipe ends the output
+/// quietly.
+macro_rules! out {
+    ($($arg:tt)*) => {
+        $crate::cli::write_stdout(format_args!($($arg)*))
+    };
+}
+
+/// `println!` to stdout through `write_stdout`: never panics, a closed pipe ends the
+/// output quietly.
+macro_rules! outln {
+    () => {
+        $crate::cli::write_stdout(format_args!("\n"))
+    };
+    ($($arg:tt)*) => {
+        $crate::cli::write_stdout(format_args!("{}\n", format_args!($($arg)*)))
+    };
+}
 
 mod analyze;
 mod calibrate;
@@ -48,7 +72,8 @@ pub struct Cli {
     #[arg(short, long, action = clap::ArgAction::Count, global = true)]
     pub verbose: u8,
 
-    /// Never colour the output (also when NO_COLOR is set or stdout is not a terminal).
+    /// Never colour the output, log lines included (also when NO_COLOR is set; colour only
+    /// ever goes to a terminal).
     #[arg(long, global = true)]
     pub no_color: bool,
 
@@ -112,12 +137,7 @@ impl JsonOut {
         let mut text = serde_json::to_string_pretty(value)?;
         text.push('\n');
         match self {
-            JsonOut::Stdout => {
-                use std::io::Write;
-                let mut out = std::io::stdout().lock();
-                out.write_all(text.as_bytes())?;
-                out.flush()?;
-            }
+            JsonOut::Stdout => stdout_bytes(text.as_bytes())?,
             JsonOut::File(path) => write_atomic(path, text.as_bytes())?,
         }
         Ok(())
@@ -126,6 +146,43 @@ impl JsonOut {
     /// True when the document goes to stdout (human output then stays off stdout).
     pub fn is_stdout(&self) -> bool {
         matches!(self, JsonOut::Stdout)
+    }
+}
+
+/// Set once stdout can take no more (its reader went away, or a write failed): nothing
+/// more is written there.
+static STDOUT_CLOSED: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+/// The first failure writing stdout other than a closed pipe, reported when the command
+/// ends (a `println!` would have panicked mid-command).
+static STDOUT_ERROR: std::sync::Mutex<Option<std::io::Error>> = std::sync::Mutex::new(None);
+
+/// Write `bytes` to stdout and flush. A closed pipe is not an error: the reader has all it
+/// wanted, and the rest of the output is dropped.
+pub(crate) fn stdout_bytes(bytes: &[u8]) -> std::io::Result<()> {
+    use std::io::Write;
+    use std::sync::atomic::Ordering;
+    if STDOUT_CLOSED.load(Ordering::Relaxed) {
+        return Ok(());
+    }
+    let mut out = std::io::stdout().lock();
+    match out.write_all(bytes).and_then(|()| out.flush()) {
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => {
+            STDOUT_CLOSED.store(true, Ordering::Relaxed);
+            Ok(())
+        }
+        other => other,
+    }
+}
+
+/// What `out!` and `outln!` call: like [`stdout_bytes`], with any other failure kept
+/// for [`main_with_args`] to report once the command has finished.
+pub(crate) fn write_stdout(args: std::fmt::Arguments<'_>) {
+    let text = std::fmt::format(args);
+    if let Err(e) = stdout_bytes(text.as_bytes()) {
+        STDOUT_CLOSED.store(true, std::sync::atomic::Ordering::Relaxed);
+        let mut slot = STDOUT_ERROR.lock().unwrap_or_else(|p| p.into_inner());
+        slot.get_or_insert(e);
     }
 }
 
@@ -248,7 +305,8 @@ pub(crate) struct Output {
     pub color_allowed: bool,
 }
 
-fn init_tracing(verbose: u8) {
+/// `ansi`: colour the log lines (only when colour is allowed and stderr is a terminal).
+fn init_tracing(verbose: u8, ansi: bool) {
     let level = match verbose {
         0 => "warn",
         1 => "info",
@@ -261,6 +319,7 @@ fn init_tracing(verbose: u8) {
         .with_env_filter(filter)
         .with_writer(std::io::stderr)
         .with_target(false)
+        .with_ansi(ansi)
         .try_init();
 }
 
@@ -279,8 +338,11 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
             return code;
         }
     };
-    init_tracing(cli.verbose);
     let color_allowed = !cli.no_color && std::env::var_os("NO_COLOR").is_none();
+    init_tracing(
+        cli.verbose,
+        color_allowed && std::io::stderr().is_terminal(),
+    );
     let out = Output {
         color: color_allowed && std::io::stdout().is_terminal(),
         color_allowed,
@@ -298,13 +360,35 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Devices(a) => devices::run(a),
         Command::Exposure(a) => exposure::run(a),
     };
-    match result {
+    let code = match result {
         Ok(code) => code,
         Err(Exit { code, error }) => {
-            eprintln!("tragus: {}", format_error(&error));
+            error_line(&format_error(&error));
             code
         }
+    };
+    let failed = STDOUT_ERROR
+        .lock()
+        .unwrap_or_else(|p| p.into_inner())
+        .take();
+    match failed {
+        // Output the user asked for went missing: never a silent success.
+        Some(e) => {
+            error_line(&format!("cannot write to standard output: {e}"));
+            if code == EXIT_PASS {
+                EXIT_BAD_INPUT
+            } else {
+                code
+            }
+        }
+        None => code,
     }
+}
+
+/// `tragus: message` on stderr; a closed stderr leaves nowhere to say it, so no panic.
+fn error_line(message: &str) {
+    use std::io::Write;
+    let _ = writeln!(std::io::stderr().lock(), "tragus: {message}");
 }
 
 /// `outer: inner: innermost`, without repeating text a cause already contains.

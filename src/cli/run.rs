@@ -22,7 +22,8 @@ pub struct Args {
     /// The test plan.
     #[arg(value_name = "PLAN")]
     pub plan: PathBuf,
-    /// Serial number of the unit (as scanned).
+    /// Serial number of the unit (as scanned): 1 to 64 ASCII letters, digits and
+    /// - _ . / +, at least one letter or digit.
     #[arg(long, value_name = "SN")]
     pub serial: String,
     /// Station file: channel map, fixture, store, rig, station id and mode of this bench.
@@ -88,6 +89,10 @@ pub struct Args {
 }
 
 pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
+    // First: a refused serial must leave no trace (no store opened, no refusal recorded,
+    // nothing played).
+    crate::serial::check_serial(&args.serial)
+        .map_err(|e| Exit::bad_input(anyhow::anyhow!("--serial: {e}")))?;
     let station = args
         .station
         .as_deref()
@@ -130,15 +135,15 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         j.write(&result).map_err(Exit::bad_input)?;
     }
     if !args.json.as_ref().is_some_and(JsonOut::is_stdout) {
-        print!("{}", crate::report::render_human(&result, out.color));
+        out!("{}", crate::report::render_human(&result, out.color));
         if let Some(lag) = result.device_latency_samples {
             // The device path removed before the analysis (README: the sound-card rig).
-            println!(
+            outln!(
                 "sound card: device latency {lag} samples ({:.1} ms), removed before the analysis",
                 lag as f64 * 1e3 / f64::from(bench.prep.plan.sample_rate_hz)
             );
         }
-        println!(
+        outln!(
             "recorded as #{} in {} (capture {})",
             stored.id,
             bench.store.display(),

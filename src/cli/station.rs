@@ -1,10 +1,11 @@
 //! `tragus station --station FILE --plan PLAN [--operator NAME]`: the operator loop.
 //!
 //! Reads serial numbers as lines on stdin (a barcode scanner types them and presses
-//! Enter), tests and records each unit ([`super::unit`]), shows the verdict in large words
+//! Enter), tests and records each unit ([`crate::bench`]), shows the verdict in large words
 //! (colour only on a terminal), the failed checks with their margins and the running counts
 //! ([`crate::station::tally`] defines them). Blank lines are skipped; a line that is not a
-//! plausible serial is refused with a message and the loop goes on.
+//! serial number by [`crate::serial`]'s rule (the one `run --serial` keeps) once trimmed is
+//! refused with a message and the loop goes on.
 //!
 //! Stopping: end of input stops cleanly. The first Ctrl-C (SIGINT) while a unit is being
 //! tested lets it finish and be recorded, then stops; while waiting for a serial it stops
@@ -19,7 +20,8 @@
 use super::soundcard_args::SoundcardArgs;
 use super::{Exit, JsonOut, Output, EXIT_PASS};
 use crate::bench::{Bench, BenchOptions, SimChoice, Tested, UnitStop};
-use crate::station::tally::{check_serial, Counts, Tally};
+use crate::serial::check_serial;
+use crate::station::tally::{Counts, Tally};
 use anyhow::Context;
 use std::collections::HashMap;
 use std::io::{BufRead, IsTerminal, Write};

@@ -23,8 +23,10 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
         .map_err(Exit::bad_input)?;
     crate::wav::write_wav_f32(&args.out, stimulus.sample_rate_hz, &stimulus.channels)
         .map_err(Exit::bad_input)?;
-    eprintln!(
-        "tragus: wrote {} ({} channel(s), {} samples at {} Hz; sweep {}–{} Hz, L = {:.6} s, T = {:.6} s)",
+    // A success line: on stdout with the other commands' results, and without the
+    // `tragus:` prefix that marks errors.
+    outln!(
+        "wrote {} ({} channel(s), {} samples at {} Hz; sweep {}–{} Hz, L = {:.6} s, T = {:.6} s)",
         args.out.display(),
         stimulus.channels.len(),
         stimulus.n_samples(),

@@ -97,6 +97,12 @@ pub fn render_human(result: &UnitResult, color: bool) -> String {
             ("detail", Align::Left),
         ]);
         for c in &result.checks {
+            // A check not judged because its channel's measurement is not valid would only
+            // repeat that channel's reasons, which the retest reasons above already give.
+            let detail = match echoed_channel(result, c) {
+                Some(ch) => format!("not judged: measurement of {ch} not valid (retest reasons)"),
+                None => c.detail.clone(),
+            };
             t.row(vec![
                 Cell::plain(&c.id),
                 Cell::plain(&c.kind),
@@ -104,7 +110,7 @@ pub fn render_human(result: &UnitResult, color: bool) -> String {
                 Cell::verdict(c.verdict),
                 Cell::plain(&format_margin(c.worst_margin_db)),
                 Cell::plain(&c.at_hz.map_or(NONE_CELL.to_string(), format_hz)),
-                Cell::plain(&c.detail),
+                Cell::plain(&detail),
             ]);
         }
         t.render(&mut out, color);
@@ -168,15 +174,19 @@ pub fn render_human(result: &UnitResult, color: bool) -> String {
         }
     }
     if let Some(s) = &result.safety {
-        out.push_str(&safety_block(s, !result.channels.is_empty()));
+        out.push_str(&safety_block(
+            s,
+            !result.channels.is_empty(),
+            &safety_notes(result),
+        ));
     }
     out
 }
 
 /// The hearing-safety block: where the gains came from, the closest cap of the plan-time
 /// budget, the pilot's reading per channel, whether the sweep played (`swept`: the unit has
-/// measurements) and every event in words.
-fn safety_block(s: &crate::safety::setup::UnitSafety, swept: bool) -> String {
+/// measurements) and the `notes` ([`safety_notes`]) in words.
+fn safety_block(s: &crate::safety::setup::UnitSafety, swept: bool, notes: &[&str]) -> String {
     let mut out = String::from("\nhearing safety\n");
     out.push_str(&format!("  gains   {}\n", s.gains_source));
     if let Some(item) = s
@@ -232,10 +242,38 @@ fn safety_block(s: &crate::safety::setup::UnitSafety, swept: bool) -> String {
             "as planned".to_string()
         }
     ));
-    for e in &s.events {
+    for e in notes {
         out.push_str(&format!("  note    {e}\n"));
     }
     out
+}
+
+/// The hearing-safety events a reader has not already been given as a retest reason (an
+/// abandoned sweep is both; a guard trip is also every channel's rig fault), so each is
+/// said once.
+fn safety_notes(result: &UnitResult) -> Vec<&str> {
+    let reasons = retest_reasons(result);
+    result
+        .safety
+        .iter()
+        .flat_map(|s| &s.events)
+        .map(String::as_str)
+        .filter(|e| !reasons.iter().any(|r| r.contains(e)))
+        .collect()
+}
+
+/// The invalid channel a retest check only echoes (its verdict comes from that channel's
+/// measurement, whose reasons are listed on their own), if any.
+fn echoed_channel<'a>(result: &UnitResult, c: &'a crate::checks::CheckResult) -> Option<&'a str> {
+    if c.verdict != Verdict::Retest {
+        return None;
+    }
+    c.channel.split('/').find(|ch| {
+        result
+            .channels
+            .iter()
+            .any(|m| m.name == *ch && !m.is_valid())
+    })
 }
 
 /// One line after the verdict word: how many checks failed or could not be judged.
@@ -265,37 +303,40 @@ fn calibration_line(c: &crate::result::CalibrationInfo) -> String {
     }
 }
 
-/// Every reason for a retest in words: the unit's, each invalid channel's, and each check
-/// that could not be judged (without repeating the channel reasons it only echoes).
+/// Every reason for a retest in words, each once: the unit's, each invalid channel's (the
+/// unit's list usually holds them already, as `channel: reason`), and each check that could
+/// not be judged (without the checks that only echo an invalid channel).
 fn retest_reasons(result: &UnitResult) -> Vec<String> {
-    let mut out: Vec<String> = result.retest_reasons.clone();
+    let mut out: Vec<String> = Vec::new();
+    let mut add = |r: String| {
+        if !out.contains(&r) {
+            out.push(r);
+        }
+    };
+    for r in &result.retest_reasons {
+        add(r.clone());
+    }
     for m in &result.channels {
         for r in &m.retest_reasons {
-            out.push(format!("{}: {r}", m.name));
+            add(format!("{}: {r}", m.name));
         }
     }
-    let invalid: Vec<&str> = result
-        .channels
-        .iter()
-        .filter(|m| !m.is_valid())
-        .map(|m| m.name.as_str())
-        .collect();
     for c in result
         .checks
         .iter()
         .filter(|c| c.verdict == Verdict::Retest)
     {
-        let echoes_channel = c.channel.split('/').any(|ch| invalid.contains(&ch));
-        if !echoes_channel {
-            out.push(format!("check {} on {}: {}", c.id, c.channel, c.detail));
+        if echoed_channel(result, c).is_none() {
+            add(format!("check {} on {}: {}", c.id, c.channel, c.detail));
         }
     }
     out
 }
 
 /// The operator's view of one unit, read from a step away: the verdict in block letters
-/// and as a word, the reasons for a retest, and one line per failed check with its worst
-/// margin (negative: outside the limit) and where it is. `color` adds ANSI colour.
+/// and as a word, the reasons for a retest, the hearing-safety notes not among them (a
+/// scaled-down sweep), and one line per failed check with its worst margin (negative:
+/// outside the limit) and where it is. `color` adds ANSI colour.
 pub fn render_operator(result: &UnitResult, color: bool) -> String {
     let mut out = String::new();
     out.push_str(&format!("unit {}\n", result.serial));
@@ -311,6 +352,10 @@ pub fn render_operator(result: &UnitResult, color: bool) -> String {
     ));
     for r in retest_reasons(result) {
         out.push_str(&format!("  retest: {r}\n"));
+    }
+    // The operator reads this screen, not the log: a scaled-down sweep belongs here.
+    for e in safety_notes(result) {
+        out.push_str(&format!("  note: {e}\n"));
     }
     for c in result.checks.iter().filter(|c| c.verdict != Verdict::Pass) {
         let at = c

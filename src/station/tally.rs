@@ -99,38 +99,6 @@ impl Tally {
     }
 }
 
-/// Longest serial number accepted, characters (barcode serials are short; longer input is
-/// a scanner or keyboard accident).
-pub const MAX_SERIAL_CHARS: usize = 64;
-
-/// Whether a scanned line is a plausible serial number: 1 to [`MAX_SERIAL_CHARS`] ASCII
-/// letters, digits and `-`, `_`, `.`, `/`, `+`, with at least one letter or digit. Returns
-/// what is wrong otherwise. The line must already be trimmed.
-pub fn check_serial(line: &str) -> Result<(), String> {
-    let n = line.chars().count();
-    if n == 0 {
-        return Err("expected a serial number, found an empty line".into());
-    }
-    if n > MAX_SERIAL_CHARS {
-        return Err(format!(
-            "expected a serial number of at most {MAX_SERIAL_CHARS} characters, found {n}"
-        ));
-    }
-    if let Some(c) = line
-        .chars()
-        .find(|c| !(c.is_ascii_alphanumeric() || "-_./+".contains(*c)))
-    {
-        return Err(format!(
-            "expected letters, digits and - _ . / + only, found {:?}",
-            c
-        ));
-    }
-    if !line.chars().any(|c| c.is_ascii_alphanumeric()) {
-        return Err("expected at least one letter or digit".into());
-    }
-    Ok(())
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -166,16 +134,5 @@ mod tests {
     #[test]
     fn empty_session_has_no_yield() {
         assert_eq!(Tally::new().counts().first_pass_yield, None);
-    }
-
-    #[test]
-    fn serials() {
-        assert!(check_serial("E2-000123").is_ok());
-        assert!(check_serial("ab/12.x+y_z").is_ok());
-        assert!(check_serial("---").is_err());
-        assert!(check_serial("E2 000123").is_err());
-        assert!(check_serial("%%%%").is_err());
-        assert!(check_serial(&"9".repeat(65)).is_err());
-        assert!(check_serial("").is_err());
     }
 }
