@@ -11,6 +11,7 @@
 mod error;
 mod prepare;
 mod record;
+pub mod tally;
 
 pub use error::{BenchError, Cause, ErrorKind};
 pub use prepare::{load, load_coupler, load_station, Prepared};

@@ -34,10 +34,10 @@ mod calibrate;
 mod coupler;
 mod devices;
 mod exposure;
+mod operator_loop;
 mod records;
 mod run;
 mod soundcard_args;
-mod station;
 mod stimulus;
 mod validate;
 
@@ -95,7 +95,7 @@ pub enum Command {
     /// Test one unit end to end on a rig and record it in the store.
     Run(run::Args),
     /// The operator loop: scan serial numbers, test and record each unit, show the counts.
-    Station(station::Args),
+    Station(operator_loop::Args),
     /// List records from a store, newest first.
     Records(records::ListArgs),
     /// Recompute every record hash, the chain and every raw capture's SHA-256.
@@ -352,7 +352,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Stimulus(a) => stimulus::run(a),
         Command::Analyze(a) => analyze::run(a, out),
         Command::Run(a) => run::run(a, out),
-        Command::Station(a) => station::run(a, out),
+        Command::Station(a) => operator_loop::run(a, out),
         Command::Records(a) => records::list(a),
         Command::Verify(a) => records::verify(a),
         Command::Coupler(a) => coupler::run(a),

@@ -124,7 +124,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
     let listen = move |prompt: &str| -> Option<bool> {
         match answer {
             Some(a) => Some(a == ListenAnswer::Pass),
-            None => super::station::ask_terminal(prompt),
+            None => super::operator_loop::ask_terminal(prompt),
         }
     };
     // `run` never asks to abandon.

@@ -62,7 +62,6 @@
 /// The sound-card settings of a station (plain data, read by the sound-card rig).
 pub mod audio;
 mod load;
-pub mod tally;
 
 pub use load::{load_station, load_station_str};
 

@@ -4,7 +4,7 @@
 //!
 //! Oracles: the store itself (`tragus records --json -`): exactly one record per completed
 //! unit; and the counts recomputed here from those records by the definitions in
-//! the README ("The station loop"), independently of `station::tally`.
+//! the README ("The station loop"), independently of `bench::tally`.
 
 use crate::support::common;
 

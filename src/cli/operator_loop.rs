@@ -3,7 +3,7 @@
 //! Reads serial numbers as lines on stdin (a barcode scanner types them and presses
 //! Enter), tests and records each unit ([`crate::bench`]), shows the verdict in large words
 //! (colour only on a terminal), the failed checks with their margins and the running counts
-//! ([`crate::station::tally`] defines them). Blank lines are skipped; a line that is not a
+//! ([`crate::bench::tally`] defines them). Blank lines are skipped; a line that is not a
 //! serial number by [`crate::serial`]'s rule (the one `run --serial` keeps) once trimmed is
 //! refused with a message and the loop goes on.
 //!
@@ -19,9 +19,9 @@
 
 use super::soundcard_args::SoundcardArgs;
 use super::{Exit, JsonOut, Output, EXIT_PASS};
+use crate::bench::tally::{Counts, Tally};
 use crate::bench::{Bench, BenchOptions, SimChoice, Tested, UnitStop};
 use crate::serial::check_serial;
-use crate::station::tally::{Counts, Tally};
 use anyhow::Context;
 use std::collections::HashMap;
 use std::io::{BufRead, IsTerminal, Write};
