@@ -569,8 +569,7 @@ fn drive(a: DriveArgs) -> Result<i32, Exit> {
 /// in the transducer; the reading judges only the middle 80 % of the tone anyway.
 const DRIVE_FADE_S: f64 = 0.01;
 
-/// `amp · sin(2π f k / fs)` for `k = 0..n`, computed in f64.
-use crate::dsp::signals::sine;
+use crate::dsp::signals::{faded_sine, sine};
 
 /// Play the calibration sine on `output` and return the part of `input`'s recording that
 /// holds it (found by cross-correlation, never by an assumed latency).
@@ -597,14 +596,8 @@ fn record_drive_tone(
         )));
     }
     let amp = 10f64.powf(a.tone_dbfs / 20.0);
-    let mut tone = sine(amp, a.freq_hz, a.rate_hz, n);
     let fade = ((DRIVE_FADE_S * f64::from(a.rate_hz)) as usize).min(n / 2);
-    for k in 0..fade {
-        // Raised-cosine ramp, 0 at the first sample.
-        let g = (0.5 - 0.5 * (std::f64::consts::PI * k as f64 / fade as f64).cos()) as f32;
-        tone[k] *= g;
-        tone[n - 1 - k] *= g;
-    }
+    let tone = faded_sine(amp, a.freq_hz, a.rate_hz, n, fade);
     let mut outputs = vec![vec![0.0f32; n]; output];
     outputs[output - 1] = tone;
     let spec = a.common.soundcard.spec_for(station);
