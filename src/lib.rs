@@ -11,6 +11,7 @@ pub mod analysis;
 pub mod calibration;
 pub mod checks;
 pub mod cli;
+pub mod config;
 pub mod dsp;
 pub mod plan;
 pub mod report;

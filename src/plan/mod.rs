@@ -15,9 +15,9 @@ pub mod validate;
 
 use crate::acoustics::model::CouplerModel;
 use crate::acoustics::source::Source;
-use std::fmt;
 use std::path::{Path, PathBuf};
 
+pub use crate::config::{Location, Problem};
 pub use validate::{load_plan, load_plan_str};
 
 /// Default number of points per octave of the analysis grid.
@@ -399,36 +399,6 @@ impl CheckKind {
     }
 }
 
-/// A position in a source file, 1-based line and column.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct Location {
-    /// File path as given by the user.
-    pub path: String,
-    /// 1-based line (0 when unknown).
-    pub line: usize,
-    /// 1-based column (0 when unknown).
-    pub col: usize,
-}
-
-/// One problem found in a plan.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct Problem {
-    /// Where the problem is.
-    pub location: Location,
-    /// What was expected and what was found, lowercase, no trailing period.
-    pub message: String,
-}
-
-impl fmt::Display for Problem {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(
-            f,
-            "{}:{}:{}: {}",
-            self.location.path, self.location.line, self.location.col, self.message
-        )
-    }
-}
-
 /// Every problem found in a plan (never empty), or the file could not be read.
 #[derive(Debug, thiserror::Error)]
 pub enum PlanError {
@@ -443,4 +413,20 @@ pub enum PlanError {
     /// The plan was read but is not valid; one line per problem.
     #[error("{}", .0.iter().map(|p| p.to_string()).collect::<Vec<_>>().join("\n"))]
     Invalid(Vec<Problem>),
+}
+
+impl crate::config::FileError for PlanError {
+    fn unreadable(path: String, source: std::io::Error) -> Self {
+        PlanError::Io { path, source }
+    }
+
+    fn invalid(problems: Vec<Problem>) -> Self {
+        PlanError::Invalid(problems)
+    }
+
+    fn not_utf8(mut problem: Problem, byte: u8) -> Self {
+        // Plans have always named the byte; the other file kinds say "invalid bytes".
+        problem.message = format!("expected UTF-8 text, found byte 0x{byte:02x}");
+        PlanError::Invalid(vec![problem])
+    }
 }

@@ -35,6 +35,7 @@ use super::{
 use crate::acoustics::earphone_file::{load_earphone_str, EarphoneFileError};
 use crate::acoustics::model::{load_model_str, CouplerModel, ModelError};
 use crate::acoustics::source::{parse_thevenin_csv, Source, SourceError};
+use crate::config::read_data_file;
 use crate::dsp::sweep::SweepParams;
 use marked_yaml::Spanned;
 use std::path::{Path, PathBuf};
@@ -75,32 +76,10 @@ pub const MAX_SMOOTHING_FRACTION: u32 = 48;
 /// stimulus allocates (64 covers station interfaces; common practice).
 pub const MAX_CHANNEL_NUMBER: usize = 64;
 
-/// Load, validate and hash a plan file.
+/// Load, validate and hash a plan file (read by [`crate::config::load_file`]: a regular
+/// file of at most [`crate::config::MAX_CONFIG_BYTES`], UTF-8).
 pub fn load_plan(path: &Path) -> Result<Plan, PlanError> {
-    let bytes = std::fs::read(path).map_err(|source| PlanError::Io {
-        path: path.display().to_string(),
-        source,
-    })?;
-    match std::str::from_utf8(&bytes) {
-        Ok(text) => load_plan_str(text, path),
-        Err(e) => {
-            let good = &bytes[..e.valid_up_to()];
-            let good = std::str::from_utf8(good).unwrap_or_default();
-            let line = good.matches('\n').count() + 1;
-            let col = good.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
-            Err(PlanError::Invalid(vec![Problem {
-                location: Location {
-                    path: path.display().to_string(),
-                    line,
-                    col,
-                },
-                message: format!(
-                    "expected UTF-8 text, found byte 0x{:02x}",
-                    bytes[e.valid_up_to()]
-                ),
-            }]))
-        }
-    }
+    crate::config::load_file(path, load_plan_str)
 }
 
 /// Load a plan from text; `path` is used in messages and to resolve relative CSV paths.
@@ -121,25 +100,8 @@ pub fn load_plan_str(text: &str, path: &Path) -> Result<Plan, PlanError> {
             message: "the plan could not be read".into(),
         });
     }
-    sort_problems(&mut problems, &label);
+    crate::config::sort_problems(&mut problems, &label);
     Err(PlanError::Invalid(problems))
-}
-
-/// Problems of the main file (plan or coupler model) first, then those of other files
-/// (limit or impedance CSVs) by path; within a
-/// file by line and column, keeping the order found for the same position.
-pub(crate) fn sort_problems(problems: &mut [Problem], plan_path: &str) {
-    problems.sort_by(|a, b| {
-        let key = |p: &Problem| {
-            (
-                p.location.path != plan_path,
-                p.location.path.clone(),
-                p.location.line,
-                p.location.col,
-            )
-        };
-        key(a).cmp(&key(b))
-    });
 }
 
 impl Plan {
@@ -1020,7 +982,7 @@ impl Validator {
     /// Load a coupler model file named at `v` (relative to the plan).
     fn coupler_file(&mut self, v: &Spanned<String>, what: &str) -> Option<CouplerModel> {
         let file = self.dir.join(v.as_str());
-        let text = match read_text_file(&file, "coupler model") {
+        let text = match read_data_file(&file, "coupler model") {
             Ok(t) => t,
             Err(why) => {
                 self.report(Pos::of_value(v), format!("{what}: {why}"));
@@ -1126,7 +1088,7 @@ impl Validator {
 
     fn earphone_file(&mut self, v: &Spanned<String>, what: &str) -> Option<Source> {
         let file = self.dir.join(v.as_str());
-        let text = match read_text_file(&file, "earphone") {
+        let text = match read_data_file(&file, "earphone") {
             Ok(t) => t,
             Err(why) => {
                 self.report(Pos::of_value(v), format!("{what}: {why}"));
@@ -1154,7 +1116,7 @@ impl Validator {
     ) -> Option<Source> {
         let file = self.dir.join(v.as_str());
         let file_label = file.display().to_string();
-        let text = match read_text_file(&file, "thevenin") {
+        let text = match read_data_file(&file, "thevenin") {
             Ok(t) => t,
             Err(why) => {
                 self.report(Pos::of_value(v), format!("{what}: {why}"));
@@ -1833,7 +1795,7 @@ impl Validator {
                 }
                 let file = self.dir.join(rel);
                 let file_label = file.display().to_string();
-                let text = match read_text_file(&file, "limit") {
+                let text = match read_data_file(&file, "limit") {
                     Ok(t) => t,
                     Err(why) => {
                         self.report(value_pos, format!("{what}: {why}"));
@@ -1911,33 +1873,5 @@ impl Validator {
             points: points.iter().map(|(hz, db, _)| (*hz, *db)).collect(),
             origin,
         })
-    }
-}
-
-/// Read a data file named by a plan or model (`kind`: "limit", "impedance") as UTF-8 text;
-/// the error is the message tail: `cannot read limit file PATH: file not found`, or
-/// `limit file PATH is not UTF-8 text`.
-pub(crate) fn read_text_file(file: &std::path::Path, kind: &str) -> Result<String, String> {
-    let label = file.display();
-    match std::fs::read(file) {
-        Ok(bytes) => {
-            String::from_utf8(bytes).map_err(|_| format!("{kind} file {label} is not UTF-8 text"))
-        }
-        Err(e) => {
-            let why = if e.kind() == std::io::ErrorKind::NotFound {
-                "file not found".to_string()
-            } else {
-                lower_first(&e.to_string())
-            };
-            Err(format!("cannot read {kind} file {label}: {why}"))
-        }
-    }
-}
-
-fn lower_first(s: &str) -> String {
-    let mut c = s.chars();
-    match c.next() {
-        Some(f) => f.to_lowercase().chain(c).collect(),
-        None => String::new(),
     }
 }
