@@ -17,6 +17,7 @@ mod checks_kinds;
 mod checks_report;
 mod checks_verdict;
 mod cli;
+mod config_loader;
 mod correction_models;
 mod correction_thevenin;
 mod coupler_cli;
