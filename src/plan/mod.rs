@@ -9,8 +9,15 @@
 //! coupler model and earphone files; they are loaded and checked in stage two too, and their
 //! problems are reported at their own files' positions.
 
+mod analysis;
+mod channels;
+pub mod checks;
+mod correction;
 pub mod hash;
+mod product;
 pub mod raw;
+mod rig;
+mod stimulus;
 pub mod validate;
 
 use crate::acoustics::model::CouplerModel;

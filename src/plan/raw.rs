@@ -24,6 +24,16 @@ use serde::de::{DeserializeOwned, IgnoredAny, SeqAccess, Visitor};
 use serde::{Deserialize, Deserializer};
 use std::fmt;
 
+// Each section's schema lives with its validation; listed here under the paths they have
+// always had.
+pub use super::analysis::RawAnalysis;
+pub use super::channels::RawChannel;
+pub use super::checks::{RawCheck, RawLimit, RawNormalize};
+pub use super::correction::{RawCorrection, RawCorrectionEntry, RawSource, RawSourceMap};
+pub use super::product::RawProduct;
+pub use super::rig::RawRig;
+pub use super::stimulus::RawStimulus;
+
 // The diagnostics kit of every project file, under the names plans have always used.
 pub use crate::config::{
     found, found_scalar, is_channel_name, is_id, label, show_text, suggest, Pos, Section,
@@ -98,230 +108,6 @@ pub struct RawTop {
     pub correction: Option<IgnoredAny>,
 }
 
-/// `stimulus:` keys (frequencies Hz, durations s, level dBFS).
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a mapping")]
-pub struct RawStimulus {
-    /// Sweep start frequency, Hz.
-    pub start_hz: Option<Spanned<f64>>,
-    /// Sweep stop frequency, Hz.
-    pub stop_hz: Option<Spanned<f64>>,
-    /// Requested sweep duration, s.
-    pub duration_s: Option<Spanned<f64>>,
-    /// Peak level, dBFS.
-    pub level_dbfs: Option<Spanned<f64>>,
-    /// Fade-in, s.
-    pub fade_in_s: Option<Spanned<f64>>,
-    /// Fade-out, s.
-    pub fade_out_s: Option<Spanned<f64>>,
-    /// Silence before the sweep, s.
-    pub silence_before_s: Option<Spanned<f64>>,
-    /// Silence after the sweep, s.
-    pub silence_after_s: Option<Spanned<f64>>,
-}
-
-/// `analysis:` keys.
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a mapping")]
-pub struct RawAnalysis {
-    /// Highest harmonic order analysed.
-    pub max_harmonic: Option<Spanned<i128>>,
-    /// Points per octave of the analysis grid.
-    pub points_per_octave: Option<Spanned<i128>>,
-    /// Minimum SNR, dB.
-    pub min_snr_db: Option<Spanned<f64>>,
-}
-
-/// One item of `channels:` (channel numbers 1-based, as written).
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a mapping")]
-pub struct RawChannel {
-    /// Channel name.
-    pub name: Option<Spanned<String>>,
-    /// Output channel number, 1-based.
-    pub output: Option<Spanned<i128>>,
-    /// Input channel number, 1-based.
-    pub input: Option<Spanned<i128>>,
-    /// Decoded on its own into [`RawPlan::channel_corrections`].
-    pub correction: Option<IgnoredAny>,
-}
-
-/// A `correction:` entry as written: a mapping of correction keys, or `none` (a channel
-/// that is not corrected although the plan has a plan-wide correction).
-#[derive(Debug, Clone)]
-pub enum RawCorrectionEntry {
-    /// `correction: none`, at this position.
-    Off(Pos),
-    /// A mapping of correction keys.
-    On(Box<Section<RawCorrection>>),
-}
-
-/// `correction:` keys (paths relative to the plan file).
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a mapping")]
-pub struct RawCorrection {
-    /// Coupler model file of the station's fixture.
-    pub fixture: Option<Spanned<String>>,
-    /// Microphone tap in the fixture model.
-    pub fixture_tap: Option<Spanned<String>>,
-    /// Coupler model file of the reference coupler.
-    pub reference: Option<Spanned<String>>,
-    /// Microphone tap in the reference model.
-    pub reference_tap: Option<Spanned<String>>,
-    /// The source: `volume_velocity`, `{virtual_earphone: FILE}` or `{thevenin_csv: FILE}`.
-    pub source: Option<Spanned<RawSource>>,
-}
-
-/// A correction's `source:` as written; stage two checks the name or the file.
-#[derive(Debug, Clone)]
-pub enum RawSource {
-    /// A bare name (`volume_velocity`).
-    Name(String),
-    /// A mapping naming a file.
-    Map(RawSourceMap),
-}
-
-/// The mapping form of `source:` (exactly one key; stage two checks the count).
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(
-    deny_unknown_fields,
-    expecting = "a mapping with virtual_earphone or thevenin_csv"
-)]
-pub struct RawSourceMap {
-    /// Virtual-earphone parameter file.
-    pub virtual_earphone: Option<Spanned<String>>,
-    /// Thévenin table CSV (`hz,p_re,p_im,z_re,z_im`).
-    pub thevenin_csv: Option<Spanned<String>>,
-}
-
-impl<'de> Deserialize<'de> for RawSource {
-    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        struct V;
-        impl<'de> Visitor<'de> for V {
-            type Value = RawSource;
-            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-                f.write_str("volume_velocity, {virtual_earphone: FILE} or {thevenin_csv: FILE}")
-            }
-            fn visit_str<E: serde::de::Error>(self, s: &str) -> Result<RawSource, E> {
-                Ok(RawSource::Name(s.to_string()))
-            }
-            fn visit_map<A: serde::de::MapAccess<'de>>(
-                self,
-                map: A,
-            ) -> Result<RawSource, A::Error> {
-                RawSourceMap::deserialize(serde::de::value::MapAccessDeserializer::new(map))
-                    .map(RawSource::Map)
-            }
-        }
-        d.deserialize_any(V)
-    }
-}
-
-/// `product:` keys: what the product's specification declares, in the reference coupler.
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a mapping")]
-pub struct RawProduct {
-    /// Declared nominal sensitivity.
-    pub sensitivity_db: Option<Spanned<f64>>,
-    /// Its unit: `db_spl_per_v` or `db_spl_per_mw`.
-    pub sensitivity_unit: Option<Spanned<String>>,
-    /// Declared tolerance of the sensitivity, ± dB.
-    pub tolerance_db: Option<Spanned<f64>>,
-    /// Highest response above the sensitivity anywhere in the sweep band, dB.
-    pub response_peak_db: Option<Spanned<f64>>,
-}
-
-/// `rig:` keys.
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a mapping")]
-pub struct RawRig {
-    /// `simulated` or `soundcard`.
-    pub kind: Option<Spanned<String>>,
-    /// Seed of the simulated population.
-    pub seed: Option<Spanned<i128>>,
-}
-
-/// One item of `checks:`: the keys of every kind; stage two says which a kind allows.
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a mapping")]
-pub struct RawCheck {
-    /// Check identifier.
-    pub id: Option<Spanned<String>>,
-    /// Check kind name.
-    pub kind: Option<Spanned<String>>,
-    /// Channel names the check applies to.
-    pub channels: Option<Spanned<Vec<Spanned<String>>>>,
-    /// Upper limit line (response).
-    pub upper: Option<Spanned<RawLimit>>,
-    /// Lower limit line (response).
-    pub lower: Option<Spanned<RawLimit>>,
-    /// Fractional-octave smoothing, `1/N` (response, balance).
-    pub smoothing: Option<Spanned<String>>,
-    /// Normalisation (response).
-    pub normalize: Option<Spanned<RawNormalize>>,
-    /// Band, Hz (every kind but response and polarity).
-    pub band_hz: Option<Spanned<RawPair>>,
-    /// Lower limit, dB (sensitivity).
-    pub min_db: Option<Spanned<f64>>,
-    /// Upper limit, dB (sensitivity, harmonic, rub_buzz).
-    pub max_db: Option<Spanned<f64>>,
-    /// Upper limit, % (thd).
-    pub max_percent: Option<Spanned<f64>>,
-    /// Harmonic order (harmonic).
-    pub order: Option<Spanned<i128>>,
-    /// Expected polarity (polarity).
-    pub expected: Option<Spanned<String>>,
-    /// Allowed difference, dB (balance).
-    pub max_diff_db: Option<Spanned<f64>>,
-    /// Unit of the limits (sensitivity): `db`, `db_spl_per_v`, `db_spl_per_mw`.
-    pub unit: Option<Spanned<String>>,
-    /// Peak level of a listening step's signal, dBFS.
-    pub level_dbfs: Option<Spanned<f64>>,
-    /// Duration of a listening step's signal, s.
-    pub duration_s: Option<Spanned<f64>>,
-}
-
-impl RawCheck {
-    /// Keys present in this check, with the position of each value, in schema order.
-    pub fn present_keys(&self) -> Vec<(&'static str, Pos)> {
-        fn p<T>(v: &Option<Spanned<T>>) -> Option<Pos> {
-            v.as_ref().map(Pos::of_value)
-        }
-        let all = [
-            ("id", p(&self.id)),
-            ("kind", p(&self.kind)),
-            ("channels", p(&self.channels)),
-            ("upper", p(&self.upper)),
-            ("lower", p(&self.lower)),
-            ("smoothing", p(&self.smoothing)),
-            ("normalize", p(&self.normalize)),
-            ("band_hz", p(&self.band_hz)),
-            ("min_db", p(&self.min_db)),
-            ("max_db", p(&self.max_db)),
-            ("max_percent", p(&self.max_percent)),
-            ("order", p(&self.order)),
-            ("expected", p(&self.expected)),
-            ("max_diff_db", p(&self.max_diff_db)),
-            ("level_dbfs", p(&self.level_dbfs)),
-            ("duration_s", p(&self.duration_s)),
-            ("unit", p(&self.unit)),
-        ];
-        all.into_iter()
-            .filter_map(|(k, pos)| pos.map(|pos| (k, pos)))
-            .collect()
-    }
-}
-
-/// `normalize:` of a response check: exactly one of the two keys.
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a mapping with at_hz or band_hz")]
-pub struct RawNormalize {
-    /// Normalise at this frequency, Hz.
-    pub at_hz: Option<Spanned<f64>>,
-    /// Normalise to the mean over this band, Hz.
-    pub band_hz: Option<Spanned<RawPair>>,
-}
-
 /// A list of numbers meant to hold two (a band `[low_hz, high_hz]` or a point `[hz, db]`);
 /// stage two checks the count, so that `[1, 2, 3]` gets a message of its own.
 #[derive(Debug, Clone, Default)]
@@ -344,38 +130,6 @@ impl<'de> Deserialize<'de> for RawPair {
             }
         }
         d.deserialize_seq(V)
-    }
-}
-
-/// A limit line as written: a CSV path (relative to the plan) or inline `[[hz, db], ...]`.
-#[derive(Debug, Clone)]
-pub enum RawLimit {
-    /// Path of a CSV file with columns hz,db.
-    Csv(String),
-    /// Inline points.
-    Points(Vec<Spanned<RawPair>>),
-}
-
-impl<'de> Deserialize<'de> for RawLimit {
-    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        struct V;
-        impl<'de> Visitor<'de> for V {
-            type Value = RawLimit;
-            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-                f.write_str("a CSV file path or a list of [hz, db] points")
-            }
-            fn visit_str<E: serde::de::Error>(self, s: &str) -> Result<RawLimit, E> {
-                Ok(RawLimit::Csv(s.to_string()))
-            }
-            fn visit_seq<A: SeqAccess<'de>>(self, mut seq: A) -> Result<RawLimit, A::Error> {
-                let mut v = Vec::new();
-                while let Some(x) = seq.next_element()? {
-                    v.push(x);
-                }
-                Ok(RawLimit::Points(v))
-            }
-        }
-        d.deserialize_any(V)
     }
 }
 
