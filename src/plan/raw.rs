@@ -20,7 +20,7 @@
 use crate::config::{mapping_pos, Decoder, Problem};
 use marked_yaml::types::MarkedMappingNode;
 use marked_yaml::{Node, Spanned};
-use serde::de::{DeserializeOwned, IgnoredAny, SeqAccess, Visitor};
+use serde::de::{IgnoredAny, SeqAccess, Visitor};
 use serde::{Deserialize, Deserializer};
 use std::fmt;
 
@@ -28,7 +28,8 @@ use std::fmt;
 // always had.
 pub use super::analysis::RawAnalysis;
 pub use super::channels::RawChannel;
-pub use super::checks::{RawCheck, RawLimit, RawNormalize};
+pub use super::checks::response::{RawLimit, RawNormalize};
+pub use super::checks::RawCheck;
 pub use super::correction::{RawCorrection, RawCorrectionEntry, RawSource, RawSourceMap};
 pub use super::product::RawProduct;
 pub use super::rig::RawRig;
@@ -155,8 +156,22 @@ fn parse_plan(d: &mut Decoder, text: &str) -> Option<RawPlan> {
     let analysis = d.sub_section(top_map, "analysis", &mut top.rejected);
     let rig = d.sub_section(top_map, "rig", &mut top.rejected);
     let product = d.sub_section(top_map, "product", &mut top.rejected);
-    let channels = list(d, top_map, "channels", "channel", &mut top.rejected);
-    let checks = list(d, top_map, "checks", "check", &mut top.rejected);
+    let channels = list(
+        d,
+        top_map,
+        "channels",
+        "channel",
+        &mut top.rejected,
+        |d, m, pos, ctx| d.section(m, pos, ctx),
+    );
+    let checks = list(
+        d,
+        top_map,
+        "checks",
+        "check",
+        &mut top.rejected,
+        super::checks::decode_item,
+    );
     let correction = top_map
         .get_key_value("correction")
         .and_then(|(k, n)| correction_entry(d, Pos::of(k.span()), n, "correction"));
@@ -223,14 +238,15 @@ fn correction_entry(
     }
 }
 
-/// Decode the list of mappings under top-level `key`, if present; a value that is not a
-/// list is reported and `key` added to `rejected`.
-fn list<T: DeserializeOwned + Default>(
+/// Decode the list of mappings under top-level `key`, if present, each item with
+/// `decode`; a value that is not a list is reported and `key` added to `rejected`.
+fn list<T>(
     d: &mut Decoder,
     top_map: &MarkedMappingNode,
     key: &str,
     item_word: &str,
     rejected: &mut Vec<String>,
+    decode: fn(&mut Decoder, &MarkedMappingNode, Pos, &str) -> Section<T>,
 ) -> Option<RawList<T>> {
     let (k, node) = top_map.get_key_value(key)?;
     let key_pos = Pos::of(k.span());
@@ -260,7 +276,7 @@ fn list<T: DeserializeOwned + Default>(
         match item {
             Node::Mapping(m) => {
                 let pos = mapping_pos(m, Pos::of(item.span()));
-                items.push(Some(d.section(m, pos, &ctx)));
+                items.push(Some(decode(d, m, pos, &ctx)));
             }
             other => {
                 d.report(

@@ -1,60 +1,310 @@
-//! The `checks:` list: each check's id, kind, channels and the keys of its kind. The
-//! schema ([`RawCheck`]) and validation of every kind.
+//! The `checks:` list and the registry of check kinds.
+//!
+//! A check item holds the keys every check takes (`id`, `kind`, `channels`, read here) and
+//! the keys of its kind. Each kind lives in one file of this directory with everything the
+//! plan side knows about it: its schema (a serde struct of its keys), its validation into
+//! a [`CheckKind`] and its fields in the plan's canonical form ([`super::hash`]). `KINDS`
+//! lists them; judging a kind is [`crate::checks`]' business.
+//!
+//! Stage one decodes each key of a check item on its own (`decode_item`): a common key
+//! with the common schema, another key with the schema of the first kind that takes it (a
+//! key several kinds take has one type in all of them), an unknown key is reported with a
+//! "did you mean" over every key. Stage two reads the common keys, refuses keys the check's
+//! kind does not take, then decodes the kind's own schema from the keys left and lets the
+//! kind validate them.
+//!
+//! # Adding a check kind
+//!
+//! 1. `src/plan/checks/<kind>.rs`: a unit struct implementing `Kind` (name, keys, schema,
+//!    validation, canonical fields), its YAML and its canonical form in the module doc.
+//! 2. This file: `pub mod <kind>;`, the [`CheckKind`] variant (typed, units in field names)
+//!    with its name in [`CheckKind::name`], and its line in `KINDS`.
+//! 3. `src/checks/<kind>.rs`: judging, called from `checks::judge`.
+//! 4. `tests/reference/plan_canonical.py`: its canonical fields, for the independent hash.
 
-pub mod limit_csv;
+pub mod balance;
+pub mod harmonic;
+pub mod listening;
+pub mod polarity;
+pub mod response;
+pub mod rub_buzz;
+pub mod sensitivity;
+pub mod thd;
 
-use super::analysis::MAX_HARMONIC_LIMIT;
+pub use response::limit_csv;
+
+use super::hash::C;
 use super::raw::{RawList, RawPair, Section};
 use super::stimulus::SweepBand;
 use super::validate::Validator;
-use super::{CheckKind, CheckSpec, LimitLine, Normalize, Polarity, SensitivityUnit};
-use crate::config::read_data_file;
-use crate::config::{found_scalar, is_id, label, suggest, Location, Pos};
-use limit_csv::parse_limit_csv;
-use marked_yaml::Spanned;
-use serde::de::{SeqAccess, Visitor};
-use serde::{Deserialize, Deserializer};
-use std::fmt;
+use super::{Band, LimitLine, Normalize, Polarity, SensitivityUnit};
+use crate::config::{found_scalar, is_id, label, suggest, Decoder, Pos};
+use marked_yaml::types::MarkedMappingNode;
+use marked_yaml::{FromNodeError, Node, Spanned};
+use serde::de::DeserializeOwned;
+use serde::Deserialize;
 
 /// Finest fractional-octave smoothing, 1/N octave with N at most this.
 pub const MAX_SMOOTHING_FRACTION: u32 = 48;
 
-const CHECK_KINDS: [&str; 8] = [
-    "response",
-    "sensitivity",
-    "thd",
-    "harmonic",
-    "rub_buzz",
-    "polarity",
-    "balance",
-    "listening",
-];
+/// One check in the plan.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CheckSpec {
+    /// Check identifier, unique in the plan.
+    pub id: String,
+    /// Channels the check applies to (names; every channel when the plan gave none).
+    pub channels: Vec<String>,
+    /// What is checked.
+    pub kind: CheckKind,
+}
 
-/// Durations a listening step may have, s: long enough to hear a rattle through a slow
-/// sweep, short enough to keep the operator's exposure small (common practice).
-const LISTEN_DURATION_S: (f64, f64) = (0.5, 30.0);
+/// The kinds of check; each variant is validated and hashed by its file in this directory
+/// and judged by its file in `src/checks/`.
+#[derive(Debug, Clone, PartialEq)]
+pub enum CheckKind {
+    /// Frequency response between limit lines.
+    Response {
+        /// Upper limit line (at least one of upper/lower is present).
+        upper: Option<LimitLine>,
+        /// Lower limit line.
+        lower: Option<LimitLine>,
+        /// Fractional-octave smoothing, 1/N octave (power domain); `None` for none.
+        smoothing_fraction: Option<u32>,
+        /// Optional normalisation before comparison.
+        normalize: Option<Normalize>,
+    },
+    /// Mean level in a band within `[min_db, max_db]`.
+    Sensitivity {
+        /// Band over which the level is averaged.
+        band: Band,
+        /// Lower limit, dB.
+        min_db: f64,
+        /// Upper limit, dB.
+        max_db: f64,
+        /// What the limits are in.
+        unit: SensitivityUnit,
+    },
+    /// THD (re fundamental, %) below a maximum over a band of excitation frequencies.
+    Thd {
+        /// Band of excitation frequencies.
+        band: Band,
+        /// Upper limit, %.
+        max_percent: f64,
+    },
+    /// One harmonic (HDn re fundamental, dB) below a maximum over a band.
+    Harmonic {
+        /// Harmonic order n ≥ 2.
+        order: usize,
+        /// Band of excitation frequencies.
+        band: Band,
+        /// Upper limit, dB re fundamental.
+        max_db: f64,
+    },
+    /// Rub-and-buzz indicator (dB re fundamental) below a maximum over a band.
+    RubBuzz {
+        /// Band of excitation frequencies.
+        band: Band,
+        /// Upper limit, dB re fundamental.
+        max_db: f64,
+    },
+    /// Polarity equals the expected one.
+    Polarity {
+        /// Expected polarity.
+        expected: Polarity,
+    },
+    /// Level difference between exactly two channels within ±`max_diff_db` over a band.
+    Balance {
+        /// Band over which the difference is checked.
+        band: Band,
+        /// Allowed absolute difference, dB.
+        max_diff_db: f64,
+        /// Fractional-octave smoothing applied to both responses first.
+        smoothing_fraction: Option<u32>,
+    },
+    /// A listening step: a slow sweep over `band` played to the operator, who answers pass
+    /// or fail; its level is capped by its A-weighted level at the reference position and
+    /// counted in the operator's noise dose (hearing safety).
+    Listening {
+        /// Band the listening sweep covers.
+        band: Band,
+        /// Its peak level, dBFS (before any hearing-safety scale-down).
+        level_dbfs: f64,
+        /// Its duration, s.
+        duration_s: f64,
+    },
+}
 
-/// Keys every check takes.
-const COMMON_CHECK_KEYS: [&str; 3] = ["id", "kind", "channels"];
+impl CheckKind {
+    /// True when the check's limits are in dB SPL, so the run needs a calibration.
+    pub fn needs_calibration(&self) -> bool {
+        matches!(
+            self,
+            CheckKind::Sensitivity {
+                unit: SensitivityUnit::DbSplPerV | SensitivityUnit::DbSplPerMw,
+                ..
+            }
+        )
+    }
 
-/// Keys each check kind takes besides [`COMMON_CHECK_KEYS`].
-fn kind_keys(kind: &str) -> &'static [&'static str] {
-    match kind {
-        "response" => &["upper", "lower", "smoothing", "normalize"],
-        "sensitivity" => &["band_hz", "min_db", "max_db", "unit"],
-        "thd" => &["band_hz", "max_percent"],
-        "harmonic" => &["order", "band_hz", "max_db"],
-        "rub_buzz" => &["band_hz", "max_db"],
-        "polarity" => &["expected"],
-        "balance" => &["band_hz", "max_diff_db", "smoothing"],
-        "listening" => &["band_hz", "level_dbfs", "duration_s"],
-        _ => &[],
+    /// The kind's name as written in the plan.
+    pub fn name(&self) -> &'static str {
+        match self {
+            CheckKind::Response { .. } => "response",
+            CheckKind::Sensitivity { .. } => "sensitivity",
+            CheckKind::Thd { .. } => "thd",
+            CheckKind::Harmonic { .. } => "harmonic",
+            CheckKind::RubBuzz { .. } => "rub_buzz",
+            CheckKind::Polarity { .. } => "polarity",
+            CheckKind::Balance { .. } => "balance",
+            CheckKind::Listening { .. } => "listening",
+        }
     }
 }
 
-/// One item of `checks:`: the keys of every kind; stage two says which a kind allows.
+/// Every check kind, in the order messages list them ("expected one of response, …").
+///
+/// A plan's checks are validated only through this list, so a [`CheckKind`] in a loaded
+/// plan always has its entry here, and with it its canonical fields.
+pub(in crate::plan) const KINDS: &[KindDef] = &[
+    KindDef::of::<response::Response>(),
+    KindDef::of::<sensitivity::Sensitivity>(),
+    KindDef::of::<thd::Thd>(),
+    KindDef::of::<harmonic::Harmonic>(),
+    KindDef::of::<rub_buzz::RubBuzz>(),
+    KindDef::of::<polarity::PolarityCheck>(),
+    KindDef::of::<balance::Balance>(),
+    KindDef::of::<listening::Listening>(),
+];
+
+/// Keys every check takes, whatever its kind.
+const COMMON_KEYS: [&str; 3] = ["id", "kind", "channels"];
+
+/// The order an unknown-key message lists the keys of a check in: the order they were
+/// added to the schema, kept when the kinds moved to files of their own so that the
+/// message did not change. Keys of kinds registered later follow, in registry order.
+const KEY_ORDER: [&str; 17] = [
+    "id",
+    "kind",
+    "channels",
+    "upper",
+    "lower",
+    "smoothing",
+    "normalize",
+    "band_hz",
+    "min_db",
+    "max_db",
+    "max_percent",
+    "order",
+    "expected",
+    "max_diff_db",
+    "unit",
+    "level_dbfs",
+    "duration_s",
+];
+
+/// A check kind as the plan side sees it; each kind's file implements it on a unit struct
+/// and [`KINDS`] registers it.
+///
+/// Implementors uphold: `KEYS` are exactly the fields of `Raw`; a key another kind also
+/// takes has the same type in both (stage one decodes it with the first kind's schema);
+/// `validate` reports every problem it refuses for, at the value, through the validator;
+/// `canonical` returns `Some` for its own variant only.
+pub(in crate::plan) trait Kind {
+    /// The name written as `kind:`.
+    const NAME: &'static str;
+    /// Its keys besides `id`, `kind` and `channels`, in the order messages list them.
+    const KEYS: &'static [&'static str];
+    /// Its keys as written: a serde struct of `Option<Spanned<_>>` fields,
+    /// `deny_unknown_fields`.
+    type Raw: DeserializeOwned;
+    /// Stage two: check the kind's keys of one check and build the variant.
+    fn validate(v: &mut Validator, check: &CheckInput, raw: &Self::Raw) -> Option<CheckKind>;
+    /// The kind's fields in the plan's canonical form; `None` for a variant of another kind.
+    fn canonical(kind: &CheckKind) -> Option<Fields>;
+}
+
+/// Fields of one check in the canonical form, besides `id`, `kind` and `channels`.
+pub(in crate::plan) type Fields = Vec<(&'static str, C)>;
+
+/// One registered kind: [`Kind`] as plain data, so that [`KINDS`] can list them.
+pub(in crate::plan) struct KindDef {
+    /// The name written as `kind:`.
+    pub(in crate::plan) name: &'static str,
+    /// Its keys besides the common ones.
+    pub(in crate::plan) keys: &'static [&'static str],
+    /// Stage one: decode a mapping of one of its keys.
+    decode: fn(&Node) -> Result<(), FromNodeError>,
+    /// Stage two: decode its keys (a mapping) and validate them.
+    validate: fn(&mut Validator, &CheckInput, &Node) -> Option<CheckKind>,
+    /// Its canonical fields ([`Kind::canonical`]).
+    pub(in crate::plan) canonical: fn(&CheckKind) -> Option<Fields>,
+}
+
+impl KindDef {
+    const fn of<K: Kind>() -> KindDef {
+        KindDef {
+            name: K::NAME,
+            keys: K::KEYS,
+            decode: decode_as::<K::Raw>,
+            validate: validate_as::<K>,
+            canonical: K::canonical,
+        }
+    }
+}
+
+fn decode_as<R: DeserializeOwned>(map: &Node) -> Result<(), FromNodeError> {
+    marked_yaml::from_node::<R>(map).map(drop)
+}
+
+fn validate_as<K: Kind>(v: &mut Validator, check: &CheckInput, map: &Node) -> Option<CheckKind> {
+    match marked_yaml::from_node::<K::Raw>(map) {
+        Ok(raw) => K::validate(v, check, &raw),
+        Err(e) => {
+            // Each key decoded on its own in stage one, and every field is optional, so
+            // they decode together; reported rather than assumed, since this is outside
+            // input.
+            v.report(
+                check.sec.pos,
+                format!("{}: cannot decode: {}", check.ctx, *e),
+            );
+            None
+        }
+    }
+}
+
+/// The canonical fields of a check's kind (see [`super::hash`]).
+pub(in crate::plan) fn canonical_fields(kind: &CheckKind) -> Fields {
+    KINDS
+        .iter()
+        .find_map(|def| (def.canonical)(kind))
+        .unwrap_or_default()
+}
+
+/// Every key a check item may hold, in the order of [`KEY_ORDER`].
+fn all_keys() -> Vec<&'static str> {
+    let known = |k: &str| COMMON_KEYS.contains(&k) || KINDS.iter().any(|d| d.keys.contains(&k));
+    let mut keys: Vec<&'static str> = KEY_ORDER.into_iter().filter(|k| known(k)).collect();
+    for def in KINDS {
+        for k in def.keys {
+            if !keys.contains(k) {
+                keys.push(k);
+            }
+        }
+    }
+    keys
+}
+
+/// The common keys of a check item.
 #[derive(Debug, Clone, Default, Deserialize)]
 #[serde(deny_unknown_fields, expecting = "a mapping")]
+struct RawCommon {
+    id: Option<Spanned<String>>,
+    kind: Option<Spanned<String>>,
+    channels: Option<Spanned<Vec<Spanned<String>>>>,
+}
+
+/// One item of `checks:` as stage one decoded it.
+#[derive(Debug, Clone)]
 pub struct RawCheck {
     /// Check identifier.
     pub id: Option<Spanned<String>>,
@@ -62,113 +312,188 @@ pub struct RawCheck {
     pub kind: Option<Spanned<String>>,
     /// Channel names the check applies to.
     pub channels: Option<Spanned<Vec<Spanned<String>>>>,
-    /// Upper limit line (response).
-    pub upper: Option<Spanned<RawLimit>>,
-    /// Lower limit line (response).
-    pub lower: Option<Spanned<RawLimit>>,
-    /// Fractional-octave smoothing, `1/N` (response, balance).
-    pub smoothing: Option<Spanned<String>>,
-    /// Normalisation (response).
-    pub normalize: Option<Spanned<RawNormalize>>,
-    /// Band, Hz (every kind but response and polarity).
-    pub band_hz: Option<Spanned<RawPair>>,
-    /// Lower limit, dB (sensitivity).
-    pub min_db: Option<Spanned<f64>>,
-    /// Upper limit, dB (sensitivity, harmonic, rub_buzz).
-    pub max_db: Option<Spanned<f64>>,
-    /// Upper limit, % (thd).
-    pub max_percent: Option<Spanned<f64>>,
-    /// Harmonic order (harmonic).
-    pub order: Option<Spanned<i128>>,
-    /// Expected polarity (polarity).
-    pub expected: Option<Spanned<String>>,
-    /// Allowed difference, dB (balance).
-    pub max_diff_db: Option<Spanned<f64>>,
-    /// Unit of the limits (sensitivity): `db`, `db_spl_per_v`, `db_spl_per_mw`.
-    pub unit: Option<Spanned<String>>,
-    /// Peak level of a listening step's signal, dBFS.
-    pub level_dbfs: Option<Spanned<f64>>,
-    /// Duration of a listening step's signal, s.
-    pub duration_s: Option<Spanned<f64>>,
+    /// The other keys that decoded, as written (a key of some kind; stage two says which
+    /// the check's kind takes and decodes them with its schema).
+    pub fields: MarkedMappingNode,
 }
 
 impl RawCheck {
-    /// Keys present in this check, with the position of each value, in schema order.
-    pub fn present_keys(&self) -> Vec<(&'static str, Pos)> {
-        fn p<T>(v: &Option<Spanned<T>>) -> Option<Pos> {
-            v.as_ref().map(Pos::of_value)
-        }
-        let all = [
-            ("id", p(&self.id)),
-            ("kind", p(&self.kind)),
-            ("channels", p(&self.channels)),
-            ("upper", p(&self.upper)),
-            ("lower", p(&self.lower)),
-            ("smoothing", p(&self.smoothing)),
-            ("normalize", p(&self.normalize)),
-            ("band_hz", p(&self.band_hz)),
-            ("min_db", p(&self.min_db)),
-            ("max_db", p(&self.max_db)),
-            ("max_percent", p(&self.max_percent)),
-            ("order", p(&self.order)),
-            ("expected", p(&self.expected)),
-            ("max_diff_db", p(&self.max_diff_db)),
-            ("level_dbfs", p(&self.level_dbfs)),
-            ("duration_s", p(&self.duration_s)),
-            ("unit", p(&self.unit)),
-        ];
-        all.into_iter()
-            .filter_map(|(k, pos)| pos.map(|pos| (k, pos)))
+    /// Keys present besides the common ones, with the position of each value, in file
+    /// order.
+    pub fn present_keys(&self) -> Vec<(&str, Pos)> {
+        self.fields
+            .iter()
+            .map(|(k, v)| (k.as_str(), Pos::of(v.span())))
             .collect()
+    }
+
+    /// A mapping of the keys among [`RawCheck::fields`] that `keys` names.
+    fn fields_of(&self, keys: &[&str]) -> Node {
+        Node::Mapping(MarkedMappingNode::new(
+            *self.fields.span(),
+            self.fields
+                .iter()
+                .filter(|(k, _)| keys.contains(&k.as_str()))
+                .map(|(k, v)| (k.clone(), v.clone()))
+                .collect(),
+        ))
     }
 }
 
-/// `normalize:` of a response check: exactly one of the two keys.
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a mapping with at_hz or band_hz")]
-pub struct RawNormalize {
-    /// Normalise at this frequency, Hz.
-    pub at_hz: Option<Spanned<f64>>,
-    /// Normalise to the mean over this band, Hz.
-    pub band_hz: Option<Spanned<RawPair>>,
+/// Stage one of a check item (the mapping `map` at `pos`, named `ctx` in messages): each
+/// key decoded on its own, the ones that fail reported and listed as rejected.
+pub(in crate::plan) fn decode_item(
+    d: &mut Decoder,
+    map: &MarkedMappingNode,
+    pos: Pos,
+    ctx: &str,
+) -> Section<RawCheck> {
+    let mut common = Vec::new();
+    let mut fields = Vec::new();
+    let mut rejected = Vec::new();
+    for (key, value) in map.iter() {
+        let name = key.as_str();
+        let decoded = if COMMON_KEYS.contains(&name) {
+            let ok = d.entry(map, key, value, ctx, decode_as::<RawCommon>);
+            if ok {
+                common.push((key.clone(), value.clone()));
+            }
+            ok
+        } else if let Some(def) = KINDS.iter().find(|def| def.keys.contains(&name)) {
+            let ok = d.entry(map, key, value, ctx, def.decode);
+            if ok {
+                fields.push((key.clone(), value.clone()));
+            }
+            ok
+        } else {
+            d.unknown_key(key, ctx, &all_keys());
+            false
+        };
+        if !decoded {
+            rejected.push(name.to_string());
+        }
+    }
+    let common_map = Node::Mapping(MarkedMappingNode::new(
+        *map.span(),
+        common.into_iter().collect(),
+    ));
+    let RawCommon { id, kind, channels } = d.decode_all(&common_map, pos, ctx);
+    Section {
+        value: RawCheck {
+            id,
+            kind,
+            channels,
+            fields: MarkedMappingNode::new(*map.span(), fields.into_iter().collect()),
+        },
+        pos,
+        rejected,
+    }
 }
 
-/// A limit line as written: a CSV path (relative to the plan) or inline `[[hz, db], ...]`.
-#[derive(Debug, Clone)]
-pub enum RawLimit {
-    /// Path of a CSV file with columns hz,db.
-    Csv(String),
-    /// Inline points.
-    Points(Vec<Spanned<RawPair>>),
+/// What a kind's validation knows about the check besides its own keys.
+pub(in crate::plan) struct CheckInput<'a> {
+    /// The check item: where it is, which keys stage one rejected, its common keys.
+    pub(in crate::plan) sec: &'a Section<RawCheck>,
+    /// How messages name the check (`check fr`, or `check #2` without a valid id).
+    pub(in crate::plan) ctx: &'a str,
+    /// The `kind:` value.
+    pub(in crate::plan) kind: &'a Spanned<String>,
+    /// The channels the check applies to, when they are valid.
+    pub(in crate::plan) channels: Option<&'a [String]>,
+    /// The plan's channel names, when every channel has a valid unique one.
+    pub(in crate::plan) plan_channels: Option<&'a [String]>,
+    /// The sweep band, when valid.
+    pub(in crate::plan) sweep: Option<SweepBand>,
+    /// The highest harmonic analysed, when valid.
+    pub(in crate::plan) max_harmonic: Option<usize>,
 }
 
-impl<'de> Deserialize<'de> for RawLimit {
-    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        struct V;
-        impl<'de> Visitor<'de> for V {
-            type Value = RawLimit;
-            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-                f.write_str("a CSV file path or a list of [hz, db] points")
-            }
-            fn visit_str<E: serde::de::Error>(self, s: &str) -> Result<RawLimit, E> {
-                Ok(RawLimit::Csv(s.to_string()))
-            }
-            fn visit_seq<A: SeqAccess<'de>>(self, mut seq: A) -> Result<RawLimit, A::Error> {
-                let mut v = Vec::new();
-                while let Some(x) = seq.next_element()? {
-                    v.push(x);
-                }
-                Ok(RawLimit::Points(v))
+impl CheckInput<'_> {
+    /// How messages name the check's `key`.
+    pub(in crate::plan) fn label(&self, key: &str) -> String {
+        label(self.ctx, key)
+    }
+}
+
+/// Readers of the keys several kinds share, the same rules and words for each kind.
+impl Validator {
+    /// A required key of the check (missing reported unless stage one rejected it).
+    pub(in crate::plan) fn check_key<'v, T>(
+        &mut self,
+        check: &CheckInput,
+        value: &'v Option<Spanned<T>>,
+        key: &str,
+    ) -> Option<&'v Spanned<T>> {
+        self.required(check.sec, value, check.ctx, key)
+    }
+
+    /// A required finite number.
+    pub(in crate::plan) fn check_number(
+        &mut self,
+        check: &CheckInput,
+        value: &Option<Spanned<f64>>,
+        key: &str,
+    ) -> Option<f64> {
+        self.check_key(check, value, key)
+            .and_then(|v| self.finite(v, &check.label(key)))
+    }
+
+    /// A required limit above 0 (`unit` for the message).
+    pub(in crate::plan) fn check_positive(
+        &mut self,
+        check: &CheckInput,
+        value: &Option<Spanned<f64>>,
+        key: &str,
+        unit: &str,
+    ) -> Option<f64> {
+        self.required_positive(check.sec, value, check.ctx, key, unit)
+    }
+
+    /// The required `band_hz:`, inside the sweep.
+    pub(in crate::plan) fn check_band(
+        &mut self,
+        check: &CheckInput,
+        value: &Option<Spanned<RawPair>>,
+    ) -> Option<Band> {
+        self.check_key(check, value, "band_hz")
+            .and_then(|v| self.band(v, &check.label("band_hz"), check.sweep))
+    }
+
+    /// `smoothing:`, `1/N` octave; `Some(None)` when absent.
+    pub(in crate::plan) fn smoothing(
+        &mut self,
+        v: Option<&Spanned<String>>,
+        what: &str,
+    ) -> Option<Option<u32>> {
+        let Some(v) = v else {
+            return Some(None);
+        };
+        let n = v
+            .trim()
+            .strip_prefix("1/")
+            .and_then(|n| n.trim().parse::<u32>().ok())
+            .filter(|n| (1..=MAX_SMOOTHING_FRACTION).contains(n));
+        match n {
+            Some(n) => Some(Some(n)),
+            None => {
+                self.report(
+                    Pos::of_value(v),
+                    format!(
+                        "{what}: expected `1/N` octave with N from 1 to {MAX_SMOOTHING_FRACTION}, \
+                         found {}",
+                        found_scalar(v)
+                    ),
+                );
+                None
             }
         }
-        d.deserialize_any(V)
     }
 }
 
 impl Validator {
     /// `checks:`: every check, against the plan's channels, the sweep band and the
     /// highest harmonic analysed (each `None` when not valid).
-    pub(super) fn checks(
+    pub(in crate::plan) fn checks(
         &mut self,
         list: &RawList<RawCheck>,
         channels: Option<&[String]>,
@@ -200,7 +525,7 @@ impl Validator {
         ok.then_some(out)
     }
 
-    /// One check: id, channels, kind, the keys its kind allows, then the kind's own rules.
+    /// One check: id, channels, kind, the keys its kind takes, then the kind's own rules.
     fn check(
         &mut self,
         sec: &Section<RawCheck>,
@@ -253,8 +578,9 @@ impl Validator {
 
         let kind_v = self.required(sec, &c.kind, &ctx, "kind")?;
         let kind = kind_v.as_str();
-        if !CHECK_KINDS.contains(&kind) {
-            let hint = match suggest(kind, CHECK_KINDS) {
+        let Some(def) = KINDS.iter().find(|d| d.name == kind) else {
+            let names = KINDS.iter().map(|d| d.name);
+            let hint = match suggest(kind, names.clone()) {
                 Some(s) => format!(", did you mean `{s}`?"),
                 None => String::new(),
             };
@@ -263,22 +589,21 @@ impl Validator {
                 format!(
                     "{}: expected one of {}, found {}{hint}",
                     l("kind"),
-                    CHECK_KINDS.join(", "),
+                    names.collect::<Vec<_>>().join(", "),
                     found_scalar(kind)
                 ),
             );
             return None;
-        }
-        let allowed = kind_keys(kind);
+        };
         let mut keys_ok = true;
         for (key, pos) in c.present_keys() {
-            if COMMON_CHECK_KEYS.contains(&key) || allowed.contains(&key) {
+            if def.keys.contains(&key) {
                 continue;
             }
-            let users: Vec<&str> = CHECK_KINDS
+            let users: Vec<&str> = KINDS
                 .iter()
-                .copied()
-                .filter(|k| kind_keys(k).contains(&key))
+                .filter(|d| d.keys.contains(&key))
+                .map(|d| d.name)
                 .collect();
             self.report(
                 pos,
@@ -287,9 +612,9 @@ impl Validator {
                      takes {}",
                     l(key),
                     users.join(" and "),
-                    COMMON_CHECK_KEYS
+                    COMMON_KEYS
                         .iter()
-                        .chain(allowed)
+                        .chain(def.keys)
                         .copied()
                         .collect::<Vec<_>>()
                         .join(", ")
@@ -298,266 +623,16 @@ impl Validator {
             keys_ok = false;
         }
 
-        let req_f64 = |me: &mut Self, v: &Option<Spanned<f64>>, key: &str| {
-            me.required(sec, v, &ctx, key)
-                .and_then(|v| me.finite(v, &label(&ctx, key)))
+        let input = CheckInput {
+            sec,
+            ctx: &ctx,
+            kind: kind_v,
+            channels: check_channels.as_deref(),
+            plan_channels: channels,
+            sweep: band,
+            max_harmonic,
         };
-        let band_of = |me: &mut Self| {
-            me.required(sec, &c.band_hz, &ctx, "band_hz")
-                .and_then(|v| me.band(v, &label(&ctx, "band_hz"), band))
-        };
-
-        let kind_spec = match kind {
-            "response" => {
-                let upper = c
-                    .upper
-                    .as_ref()
-                    .and_then(|v| self.limit(v, &l("upper"), band));
-                let lower = c
-                    .lower
-                    .as_ref()
-                    .and_then(|v| self.limit(v, &l("lower"), band));
-                if c.upper.is_none()
-                    && c.lower.is_none()
-                    && !sec.was_rejected("upper")
-                    && !sec.was_rejected("lower")
-                {
-                    self.report(
-                        sec.pos,
-                        format!(
-                            "{ctx}: expected at least one of `upper` or `lower`, found neither"
-                        ),
-                    );
-                }
-                let smoothing = self.smoothing(c.smoothing.as_ref(), &l("smoothing"));
-                let normalize = match &c.normalize {
-                    None => Some(None),
-                    Some(n) => self.normalize(n, &ctx, band).map(Some),
-                };
-                let upper = match (&c.upper, upper) {
-                    (None, _) => Some(None),
-                    (Some(_), Some(u)) => Some(Some(u)),
-                    (Some(_), None) => None,
-                };
-                let lower = match (&c.lower, lower) {
-                    (None, _) => Some(None),
-                    (Some(_), Some(u)) => Some(Some(u)),
-                    (Some(_), None) => None,
-                };
-                (|| {
-                    let (upper, lower) = (upper?, lower?);
-                    (upper.is_some() || lower.is_some()).then_some(())?;
-                    Some(CheckKind::Response {
-                        upper,
-                        lower,
-                        smoothing_fraction: smoothing?,
-                        normalize: normalize?,
-                    })
-                })()
-            }
-            "sensitivity" => {
-                let b = band_of(self);
-                let min_db = req_f64(self, &c.min_db, "min_db");
-                let max_db = req_f64(self, &c.max_db, "max_db");
-                if let (Some(lo), Some(hi), Some(v)) = (min_db, max_db, &c.max_db) {
-                    if lo > hi {
-                        self.report(
-                            Pos::of_value(v),
-                            format!(
-                                "{}: expected at least min_db {lo} dB, found {hi}",
-                                l("max_db")
-                            ),
-                        );
-                        return None;
-                    }
-                }
-                let unit = match &c.unit {
-                    None => Some(SensitivityUnit::Db),
-                    Some(u) => match u.as_str() {
-                        "db" => Some(SensitivityUnit::Db),
-                        "db_spl_per_v" => Some(SensitivityUnit::DbSplPerV),
-                        "db_spl_per_mw" => Some(SensitivityUnit::DbSplPerMw),
-                        other => {
-                            self.report(
-                                Pos::of_value(u),
-                                format!(
-                                    "{}: expected db, db_spl_per_v or db_spl_per_mw, found {}",
-                                    l("unit"),
-                                    found_scalar(other)
-                                ),
-                            );
-                            None
-                        }
-                    },
-                };
-                if let (Some(SensitivityUnit::DbSplPerMw), Some(u), None) =
-                    (unit, &c.unit, self.nominal_impedance_ohm)
-                {
-                    self.report(
-                        Pos::of_value(u),
-                        format!(
-                            "{}: db_spl_per_mw needs the plan's `nominal_impedance_ohm` (the \
-                             earphone's declared impedance), found none",
-                            l("unit")
-                        ),
-                    );
-                    return None;
-                }
-                (|| {
-                    Some(CheckKind::Sensitivity {
-                        band: b?,
-                        min_db: min_db?,
-                        max_db: max_db?,
-                        unit: unit?,
-                    })
-                })()
-            }
-            "thd" => {
-                let b = band_of(self);
-                let max_percent =
-                    self.required_positive(sec, &c.max_percent, &ctx, "max_percent", "%");
-                (|| {
-                    Some(CheckKind::Thd {
-                        band: b?,
-                        max_percent: max_percent?,
-                    })
-                })()
-            }
-            "harmonic" => {
-                let b = band_of(self);
-                let order = self.required(sec, &c.order, &ctx, "order").and_then(|v| {
-                    let hi = max_harmonic.unwrap_or(MAX_HARMONIC_LIMIT);
-                    if **v >= 2 && **v <= hi as i128 {
-                        Some(**v as usize)
-                    } else {
-                        let why = if max_harmonic.is_some() {
-                            format!("max_harmonic {hi}")
-                        } else {
-                            format!("{hi}")
-                        };
-                        self.report(
-                            Pos::of_value(v),
-                            format!(
-                                "{}: expected a harmonic order from 2 to {why}, found {}",
-                                l("order"),
-                                **v
-                            ),
-                        );
-                        None
-                    }
-                });
-                let max_db = req_f64(self, &c.max_db, "max_db");
-                (|| {
-                    Some(CheckKind::Harmonic {
-                        order: order?,
-                        band: b?,
-                        max_db: max_db?,
-                    })
-                })()
-            }
-            "rub_buzz" => {
-                let b = band_of(self);
-                let max_db = req_f64(self, &c.max_db, "max_db");
-                (|| {
-                    Some(CheckKind::RubBuzz {
-                        band: b?,
-                        max_db: max_db?,
-                    })
-                })()
-            }
-            "listening" => {
-                let b = band_of(self);
-                let level_dbfs = self
-                    .required(sec, &c.level_dbfs, &ctx, "level_dbfs")
-                    .and_then(|v| self.in_range(v, &l("level_dbfs"), -80.0, 0.0, " dBFS"));
-                let duration_s = self
-                    .required(sec, &c.duration_s, &ctx, "duration_s")
-                    .and_then(|v| {
-                        self.in_range(
-                            v,
-                            &l("duration_s"),
-                            LISTEN_DURATION_S.0,
-                            LISTEN_DURATION_S.1,
-                            " s",
-                        )
-                    });
-                (|| {
-                    Some(CheckKind::Listening {
-                        band: b?,
-                        level_dbfs: level_dbfs?,
-                        duration_s: duration_s?,
-                    })
-                })()
-            }
-            "polarity" => self
-                .required(sec, &c.expected, &ctx, "expected")
-                .and_then(|v| match v.as_str() {
-                    "positive" => Some(CheckKind::Polarity {
-                        expected: Polarity::Positive,
-                    }),
-                    "negative" => Some(CheckKind::Polarity {
-                        expected: Polarity::Negative,
-                    }),
-                    other => {
-                        let hint = match suggest(other, ["positive", "negative"]) {
-                            Some(s) => format!(", did you mean `{s}`?"),
-                            None => String::new(),
-                        };
-                        self.report(
-                            Pos::of_value(v),
-                            format!(
-                                "{}: expected `positive` or `negative`, found {}{hint}",
-                                l("expected"),
-                                found_scalar(other)
-                            ),
-                        );
-                        None
-                    }
-                }),
-            "balance" => {
-                let b = band_of(self);
-                let max_diff_db =
-                    self.required_positive(sec, &c.max_diff_db, &ctx, "max_diff_db", "dB");
-                let smoothing = self.smoothing(c.smoothing.as_ref(), &l("smoothing"));
-                let n = match (&c.channels, &check_channels) {
-                    (Some(_), Some(list)) => Some(list.len()),
-                    (None, _) => channels.map(<[_]>::len),
-                    _ => None,
-                };
-                let mut two = true;
-                if let Some(n) = n {
-                    if n != 2 {
-                        two = false;
-                        let (pos, msg) = match &c.channels {
-                            Some(v) => (
-                                Pos::of_value(v),
-                                format!(
-                                    "{}: a balance check compares exactly two channels, found {n}",
-                                    l("channels")
-                                ),
-                            ),
-                            None => (
-                                Pos::of_value(kind_v),
-                                format!(
-                                    "{ctx}: a balance check compares exactly two channels, found \
-                                     {n} in the plan; name two with `channels: [a, b]`"
-                                ),
-                            ),
-                        };
-                        self.report(pos, msg);
-                    }
-                }
-                (|| {
-                    two.then_some(())?;
-                    Some(CheckKind::Balance {
-                        band: b?,
-                        max_diff_db: max_diff_db?,
-                        smoothing_fraction: smoothing?,
-                    })
-                })()
-            }
-            _ => None,
-        };
+        let kind_spec = (def.validate)(self, &input, &c.fields_of(def.keys));
         keys_ok.then_some(())?;
         Some(CheckSpec {
             id: id?,
@@ -623,177 +698,122 @@ impl Validator {
         }
         ok.then_some(out)
     }
+}
 
-    /// `1/N` octave smoothing; `Some(None)` when absent.
-    fn smoothing(&mut self, v: Option<&Spanned<String>>, what: &str) -> Option<Option<u32>> {
-        let Some(v) = v else {
-            return Some(None);
-        };
-        let n = v
-            .trim()
-            .strip_prefix("1/")
-            .and_then(|n| n.trim().parse::<u32>().ok())
-            .filter(|n| (1..=MAX_SMOOTHING_FRACTION).contains(n));
-        match n {
-            Some(n) => Some(Some(n)),
-            None => {
-                self.report(
-                    Pos::of_value(v),
-                    format!(
-                        "{what}: expected `1/N` octave with N from 1 to {MAX_SMOOTHING_FRACTION}, \
-                         found {}",
-                        found_scalar(v)
-                    ),
-                );
-                None
-            }
-        }
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn unknown_keys_are_listed_in_the_schema_order_messages_have_always_used() {
+        // A kind added later appends its new keys; the order of these stays.
+        assert_eq!(all_keys()[..KEY_ORDER.len()], KEY_ORDER);
     }
 
-    /// A response's `normalize:`: a frequency or a band inside the sweep.
-    fn normalize(
-        &mut self,
-        v: &Spanned<RawNormalize>,
-        ctx: &str,
-        sweep: Option<SweepBand>,
-    ) -> Option<Normalize> {
-        match (&v.at_hz, &v.band_hz) {
-            (Some(at), None) => {
-                let what = label(ctx, "normalize.at_hz");
-                let f = self.finite(at, &what)?;
-                if let Some(s) = sweep {
-                    if f < s.start_hz || f > s.stop_hz {
-                        self.report(
-                            Pos::of_value(at),
-                            format!(
-                                "{what}: expected a frequency inside the sweep, {} to {} Hz, found {f}",
-                                s.start_hz, s.stop_hz
-                            ),
-                        );
-                        return None;
-                    }
-                }
-                Some(Normalize::AtHz(f))
-            }
-            (None, Some(b)) => self
-                .band(b, &label(ctx, "normalize.band_hz"), sweep)
-                .map(Normalize::Band),
-            (Some(_), Some(_)) | (None, None) => {
-                let found = if v.at_hz.is_some() { "both" } else { "neither" };
-                self.report(
-                    Pos::of_value(v),
-                    format!(
-                        "{}: expected exactly one of `at_hz` or `band_hz`, found {found}",
-                        label(ctx, "normalize")
-                    ),
-                );
-                None
-            }
-        }
-    }
-
-    /// Resolve a limit line (reading its CSV) and check its points.
-    fn limit(
-        &mut self,
-        v: &Spanned<RawLimit>,
-        what: &str,
-        sweep: Option<SweepBand>,
-    ) -> Option<LimitLine> {
-        let value_pos = Pos::of_value(v);
-        let mut all_points_ok = true;
-        // (hz, db, where) per point.
-        let (points, origin): (Vec<(f64, f64, Location)>, String) = match &**v {
-            RawLimit::Csv(rel) => {
-                if rel.trim().parse::<f64>().is_ok() {
-                    self.report(
-                        value_pos,
-                        format!(
-                            "{what}: expected a CSV file path or a list of [hz, db] points, \
-                             found the number {}",
-                            rel.trim()
-                        ),
-                    );
-                    return None;
-                }
-                let file = self.dir.join(rel);
-                let file_label = file.display().to_string();
-                let text = match read_data_file(&file, "limit") {
-                    Ok(t) => t,
-                    Err(why) => {
-                        self.report(value_pos, format!("{what}: {why}"));
-                        return None;
-                    }
-                };
-                let (points, problems) = parse_limit_csv(&text, &file_label);
-                for p in problems {
-                    all_points_ok = false;
-                    let message = format!("{what}: {}", p.message);
-                    self.report_at(p.location, message);
-                }
-                (
-                    points
-                        .into_iter()
-                        .map(|p| (p.freq_hz, p.level_db, p.location))
-                        .collect(),
-                    rel.clone(),
-                )
-            }
-            RawLimit::Points(items) => {
-                // Bad points are reported and left out, so that the good ones are still
-                // checked for order and range; the line is refused at the end.
-                let mut pts = Vec::new();
-                for item in items {
-                    match self.pair(item, what, "[hz, db]") {
-                        Some((hz, db)) => pts.push((hz, db, Pos::of_value(item).at(&self.path))),
-                        None => all_points_ok = false,
-                    }
-                }
-                (pts, "inline".to_string())
-            }
-        };
-        let mut ok = all_points_ok;
-        if all_points_ok && points.len() < 2 {
-            self.report(
-                value_pos,
-                format!("{what}: expected at least 2 points, found {}", points.len()),
+    #[test]
+    fn every_key_in_the_message_order_belongs_to_a_registered_kind() {
+        for k in KEY_ORDER {
+            assert!(
+                COMMON_KEYS.contains(&k) || KINDS.iter().any(|d| d.keys.contains(&k)),
+                "{k}"
             );
-            ok = false;
         }
-        for (k, (hz, _, loc)) in points.iter().enumerate() {
-            if k > 0 {
-                let (prev, _, prev_loc) = &points[k - 1];
-                if hz <= prev {
-                    let at = if prev_loc.path == loc.path {
-                        format!("line {}", prev_loc.line)
-                    } else {
-                        prev_loc.path.clone()
-                    };
-                    self.report_at(
-                        loc.clone(),
-                        format!(
-                            "{what}: expected frequencies in strictly ascending order, found {hz} Hz \
-                             after {prev} Hz ({at})"
-                        ),
-                    );
-                    ok = false;
-                }
-            }
-            if let Some(s) = sweep {
-                if *hz < s.start_hz || *hz > s.stop_hz {
-                    self.report_at(
-                        loc.clone(),
-                        format!(
-                            "{what}: expected a frequency inside the sweep, {} to {} Hz, found {hz}",
-                            s.start_hz, s.stop_hz
-                        ),
-                    );
-                    ok = false;
-                }
+    }
+
+    #[test]
+    fn kind_names_are_unique_and_keys_do_not_repeat_the_common_ones() {
+        for (i, a) in KINDS.iter().enumerate() {
+            assert!(
+                KINDS[i + 1..].iter().all(|b| b.name != a.name),
+                "{}",
+                a.name
+            );
+            assert!(
+                a.keys.iter().all(|k| !COMMON_KEYS.contains(k)),
+                "{}",
+                a.name
+            );
+        }
+    }
+
+    #[test]
+    fn a_key_several_kinds_take_decodes_alike_in_each() {
+        // Stage one decodes a shared key with its first kind's schema only; the others must
+        // accept and refuse the same values with the same words.
+        let samples = [
+            "1", "-2.5", "abc", "1/3", "[1, 2]", "[1, x]", "[]", "{a: 1}", "''", "true",
+        ];
+        for key in all_keys() {
+            let owners: Vec<&KindDef> = KINDS.iter().filter(|d| d.keys.contains(&key)).collect();
+            for sample in samples {
+                let text = format!("{key}: {sample}\n");
+                let node = marked_yaml::parse_yaml(0, &text).expect("sample parses");
+                let results: Vec<String> = owners
+                    .iter()
+                    .map(|d| format!("{:?}", (d.decode)(&node).map_err(|e| e.to_string())))
+                    .collect();
+                assert!(
+                    results.windows(2).all(|w| w[0] == w[1]),
+                    "{key}: {sample}: {results:?}"
+                );
             }
         }
-        ok.then(|| LimitLine {
-            points: points.iter().map(|(hz, db, _)| (*hz, *db)).collect(),
-            origin,
-        })
+    }
+
+    #[test]
+    fn each_kind_hashes_its_own_variant_only() {
+        let band = Band {
+            low_hz: 100.0,
+            high_hz: 1000.0,
+        };
+        let samples = [
+            CheckKind::Response {
+                upper: None,
+                lower: None,
+                smoothing_fraction: None,
+                normalize: None,
+            },
+            CheckKind::Sensitivity {
+                band,
+                min_db: -1.0,
+                max_db: 1.0,
+                unit: SensitivityUnit::Db,
+            },
+            CheckKind::Thd {
+                band,
+                max_percent: 1.0,
+            },
+            CheckKind::Harmonic {
+                order: 2,
+                band,
+                max_db: -40.0,
+            },
+            CheckKind::RubBuzz {
+                band,
+                max_db: -40.0,
+            },
+            CheckKind::Polarity {
+                expected: Polarity::Positive,
+            },
+            CheckKind::Balance {
+                band,
+                max_diff_db: 1.0,
+                smoothing_fraction: None,
+            },
+            CheckKind::Listening {
+                band,
+                level_dbfs: -20.0,
+                duration_s: 2.0,
+            },
+        ];
+        assert_eq!(samples.len(), KINDS.len());
+        for kind in &samples {
+            let claimed: Vec<&str> = KINDS
+                .iter()
+                .filter(|d| (d.canonical)(kind).is_some())
+                .map(|d| d.name)
+                .collect();
+            assert_eq!(claimed, [kind.name()]);
+        }
     }
 }
