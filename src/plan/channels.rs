@@ -24,7 +24,7 @@ pub struct RawChannel {
     pub output: Option<Spanned<i128>>,
     /// Input channel number, 1-based.
     pub input: Option<Spanned<i128>>,
-    /// Decoded on its own into [`RawPlan::channel_corrections`].
+    /// Decoded on its own into [`RawPlan::channel_corrections`](super::raw::RawPlan::channel_corrections).
     pub correction: Option<IgnoredAny>,
 }
 
