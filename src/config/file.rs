@@ -67,9 +67,9 @@ pub trait FileError: Sized {
     fn unreadable(path: String, source: io::Error) -> Self;
     /// The file was read and has these problems (never empty).
     fn invalid(problems: Vec<Problem>) -> Self;
-    /// The text is not UTF-8: `problem` is at the first invalid byte, which is `byte`.
-    fn not_utf8(problem: Problem, byte: u8) -> Self {
-        let _ = byte;
+    /// The text is not UTF-8: `problem` is at the first invalid byte, whose value is given
+    /// for a kind that names it.
+    fn not_utf8(problem: Problem, _byte: u8) -> Self {
         Self::invalid(vec![problem])
     }
 }
@@ -85,7 +85,8 @@ pub fn load_file<T, E: FileError>(
     match String::from_utf8(bytes) {
         Ok(text) => parse(&text, path),
         Err(e) => {
-            let (problem, byte) = not_utf8(e.as_bytes(), e.utf8_error().valid_up_to(), &label);
+            let valid_up_to = e.utf8_error().valid_up_to();
+            let (problem, byte) = utf8_problem(e.as_bytes(), valid_up_to, &label);
             Err(E::not_utf8(problem, byte))
         }
     }
@@ -176,7 +177,7 @@ fn not_regular(kind: &std::fs::FileType) -> &'static str {
 
 /// The problem for text whose first `valid_up_to` bytes are UTF-8: at the line and column
 /// (in characters) of the first invalid byte, which is returned with it.
-fn not_utf8(bytes: &[u8], valid_up_to: usize, label: &str) -> (Problem, u8) {
+fn utf8_problem(bytes: &[u8], valid_up_to: usize, label: &str) -> (Problem, u8) {
     let good = std::str::from_utf8(&bytes[..valid_up_to]).unwrap_or_default();
     let line = good.matches('\n').count() + 1;
     let col = good.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
@@ -196,5 +197,37 @@ fn lower_first(s: &str) -> String {
     match c.next() {
         Some(f) => f.to_lowercase().chain(c).collect(),
         None => String::new(),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_first_invalid_byte_is_located_in_characters() {
+        // "é" is two bytes but one column; 0xFF never occurs in UTF-8 (RFC 3629).
+        let bytes = "a: 1\nbé: ".as_bytes().iter().copied().chain([0xff, b'\n']);
+        let bytes: Vec<u8> = bytes.collect();
+        let valid_up_to = std::str::from_utf8(&bytes).unwrap_err().valid_up_to();
+        let (p, byte) = utf8_problem(&bytes, valid_up_to, "f.yaml");
+        assert_eq!(
+            p.to_string(),
+            "f.yaml:2:5: expected UTF-8 text, found invalid bytes"
+        );
+        assert_eq!(byte, 0xff);
+    }
+
+    #[test]
+    fn a_data_file_that_is_a_directory_is_refused_in_the_message_tail() {
+        let dir = std::env::temp_dir();
+        let why = read_data_file(&dir, "limit").unwrap_err();
+        assert_eq!(
+            why,
+            format!(
+                "cannot read limit file {}: expected a regular file, found a directory",
+                dir.display()
+            )
+        );
     }
 }
