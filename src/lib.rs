@@ -12,6 +12,7 @@ pub mod bench;
 pub mod calibration;
 pub mod checks;
 pub mod cli;
+pub mod config;
 pub mod correction;
 pub mod digest;
 pub mod dsp;

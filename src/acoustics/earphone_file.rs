@@ -4,7 +4,7 @@
 //! as its source (`source: {virtual_earphone: FILE}`), and the fixture→reference correction
 //! needs the source impedance it gives. Every problem is reported at once as
 //! `PATH:LINE:COL: message`, with the same YAML guards as plans
-//! ([`crate::plan::raw::parse_tree`]) and the element syntax and messages of coupler models
+//! ([`crate::config::parse_tree`]) and the element syntax and messages of coupler models
 //! (the rear vent is a `tube` or `slit` element written as in a coupler file).
 //!
 //! # Schema (human units; converted to the SI fields of [`EarphoneModel`])
@@ -52,13 +52,15 @@
 use super::air::Air;
 use super::elements::{Element, TubeLoss};
 use super::model::{
-    element_value, loss_name, real, ChainCtx, Validator, DEFAULT_STATIC_PRESSURE_PA,
+    element_value, item, loss, loss_name, real, ChainCtx, DEFAULT_STATIC_PRESSURE_PA,
     DEFAULT_TEMPERATURE_C, STATIC_PRESSURE_RANGE_PA, TEMPERATURE_RANGE_C,
 };
 use super::network::ChainItem;
 use super::source::EarphoneModel;
-use crate::plan::raw::{self, is_id, Pos};
-use crate::plan::Problem;
+use crate::config::{
+    found, found_scalar, is_id, parse_tree, show_text, sort_problems, FileError, NodeReader, Pos,
+    Problem,
+};
 use marked_yaml::types::MarkedMappingNode;
 use marked_yaml::Node;
 use serde_json::{json, Value};
@@ -102,23 +104,26 @@ pub enum EarphoneFileError {
     Invalid(Vec<Problem>),
 }
 
-/// Load and validate an earphone parameter file.
+/// Load and validate an earphone parameter file (read by [`crate::config::load_file`]).
 pub fn load_earphone(path: &Path) -> Result<EarphoneModel, EarphoneFileError> {
-    match raw::read_text_file(path) {
-        Ok(text) => load_earphone_str(&text, path),
-        Err(raw::TextFileError::Io(source)) => Err(EarphoneFileError::Io {
-            path: path.display().to_string(),
-            source,
-        }),
-        Err(raw::TextFileError::NotUtf8(p)) => Err(EarphoneFileError::Invalid(vec![p])),
+    crate::config::load_file(path, load_earphone_str)
+}
+
+impl FileError for EarphoneFileError {
+    fn unreadable(path: String, source: std::io::Error) -> Self {
+        EarphoneFileError::Io { path, source }
+    }
+
+    fn invalid(problems: Vec<Problem>) -> Self {
+        EarphoneFileError::Invalid(problems)
     }
 }
 
 /// Load an earphone file from text; `path` labels the problems.
 pub fn load_earphone_str(text: &str, path: &Path) -> Result<EarphoneModel, EarphoneFileError> {
     let label = path.display().to_string();
-    let (root, mut problems) = raw::parse_tree(text, &label, "earphone file");
-    let mut v = Validator::new(
+    let (root, mut problems) = parse_tree(text, &label, "earphone file");
+    let mut v = NodeReader::new(
         label.clone(),
         path.parent().unwrap_or(Path::new(".")).to_path_buf(),
     );
@@ -136,7 +141,7 @@ pub fn load_earphone_str(text: &str, path: &Path) -> Result<EarphoneModel, Earph
                     message: "the earphone file could not be read".into(),
                 });
             }
-            crate::plan::validate::sort_problems(&mut problems, &label);
+            sort_problems(&mut problems, &label);
             Err(EarphoneFileError::Invalid(problems))
         }
     }
@@ -149,7 +154,7 @@ enum Sign {
     NonNegative,
 }
 
-fn value(v: &mut Validator, n: &Node, what: &str, unit: &str, sign: Sign) -> Option<f64> {
+fn value(v: &mut NodeReader, n: &Node, what: &str, unit: &str, sign: Sign) -> Option<f64> {
     match sign {
         Sign::Positive => v.positive(n, what, unit),
         Sign::NonNegative => {
@@ -167,7 +172,7 @@ fn value(v: &mut Validator, n: &Node, what: &str, unit: &str, sign: Sign) -> Opt
     }
 }
 
-fn earphone(v: &mut Validator, top: &MarkedMappingNode) -> Option<EarphoneModel> {
+fn earphone(v: &mut NodeReader, top: &MarkedMappingNode) -> Option<EarphoneModel> {
     let top_pos = top
         .keys()
         .next()
@@ -182,7 +187,7 @@ fn earphone(v: &mut Validator, top: &MarkedMappingNode) -> Option<EarphoneModel>
                     format!(
                         "earphone: expected an id of lowercase letters, digits, `.`, `_` and \
                          `-`, starting with a letter or digit, found {}",
-                        raw::found_scalar(&s)
+                        found_scalar(&s)
                     ),
                 );
             }
@@ -199,7 +204,7 @@ fn earphone(v: &mut Validator, top: &MarkedMappingNode) -> Option<EarphoneModel>
         None => Some(DEFAULT_STATIC_PRESSURE_PA),
         Some(n) => v.number_in(n, "static_pressure_pa", STATIC_PRESSURE_RANGE_PA, " Pa"),
     };
-    let required = |v: &mut Validator, key: &str, unit: &str, sign: Sign, scale: f64| match top
+    let required = |v: &mut NodeReader, key: &str, unit: &str, sign: Sign, scale: f64| match top
         .get_node(key)
     {
         None => {
@@ -262,7 +267,7 @@ fn earphone(v: &mut Validator, top: &MarkedMappingNode) -> Option<EarphoneModel>
 }
 
 /// `rear_vent: {tube: {...}}` or `{slit: {...}}`, read by the coupler element parser.
-fn vent(v: &mut Validator, n: &Node) -> Option<Element> {
+fn vent(v: &mut NodeReader, n: &Node) -> Option<Element> {
     let kind = match n {
         Node::Mapping(m) if m.len() == 1 => m.keys().next().map(|k| k.as_str().to_string()),
         _ => None,
@@ -271,9 +276,9 @@ fn vent(v: &mut Validator, n: &Node) -> Option<Element> {
         Some("tube" | "slit") => {}
         _ => {
             let found = match (n, kind.as_deref()) {
-                (_, Some(k)) => format!("`{}`", raw::show_text(k)),
+                (_, Some(k)) => format!("`{}`", show_text(k)),
                 (Node::Mapping(m), None) => format!("a mapping with {} keys", m.len()),
-                (other, None) => raw::found(other),
+                (other, None) => found(other),
             };
             v.report(
                 Pos::of(n.span()),
@@ -289,14 +294,14 @@ fn vent(v: &mut Validator, n: &Node) -> Option<Element> {
         prefix: "rear_vent",
         taps_allowed: false,
     };
-    match v.item(n, "rear_vent", &ctx)? {
+    match item(v, n, "rear_vent", &ctx)? {
         ChainItem::Element(e) => Some(e),
         ChainItem::Tap(_) => None,
     }
 }
 
 /// `outlet: {length_mm, radius_mm, loss}` → (length m, radius m, loss).
-fn outlet(v: &mut Validator, n: &Node) -> Option<(f64, f64, TubeLoss)> {
+fn outlet(v: &mut NodeReader, n: &Node) -> Option<(f64, f64, TubeLoss)> {
     let f = v.fields(
         n,
         "outlet",
@@ -307,13 +312,13 @@ fn outlet(v: &mut Validator, n: &Node) -> Option<(f64, f64, TubeLoss)> {
     let radius = f[1].and_then(|n| v.positive(n, "outlet.radius_mm", "mm"));
     let loss = match f[2] {
         None => Some(TubeLoss::ZwikkerKosten),
-        Some(n) => v.loss(n, "outlet.loss"),
+        Some(n) => loss(v, n, "outlet.loss"),
     };
     Some((length? / 1e3, radius? / 1e3, loss?))
 }
 
 /// `damper: {resistance_pa_s_m3, inertance_kg_m4}`.
-fn damper(v: &mut Validator, n: &Node) -> Option<(f64, f64)> {
+fn damper(v: &mut NodeReader, n: &Node) -> Option<(f64, f64)> {
     let keys = ["resistance_pa_s_m3", "inertance_kg_m4"];
     let f = v.fields(n, "damper", &keys, &keys)?;
     let r = f[0].and_then(|n| {

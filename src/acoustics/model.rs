@@ -66,8 +66,10 @@ use super::elements::{Element, TubeLoss};
 use super::network::{ChainItem, Coupler};
 use super::termination::Termination;
 use super::C64;
-use crate::plan::raw::{self, is_channel_name, is_id, suggest, Pos};
-use crate::plan::{Location, Problem};
+use crate::config::{
+    found, found_scalar, is_channel_name, is_id, parse_tree, read_data_file, show_text,
+    sort_problems, suggest, FileError, Location, NodeReader, Pos, Problem,
+};
 use marked_yaml::types::MarkedMappingNode;
 use marked_yaml::Node;
 use serde_json::{json, Value};
@@ -162,29 +164,31 @@ pub enum ModelError {
     Invalid(Vec<Problem>),
 }
 
-/// Load, validate and hash a coupler model file.
+/// Load, validate and hash a coupler model file (read by [`crate::config::load_file`]).
 pub fn load_model(path: &Path) -> Result<CouplerModel, ModelError> {
-    match raw::read_text_file(path) {
-        Ok(text) => load_model_str(&text, path),
-        Err(raw::TextFileError::Io(source)) => Err(ModelError::Io {
-            path: path.display().to_string(),
-            source,
-        }),
-        Err(raw::TextFileError::NotUtf8(p)) => Err(ModelError::Invalid(vec![p])),
+    crate::config::load_file(path, load_model_str)
+}
+
+impl FileError for ModelError {
+    fn unreadable(path: String, source: std::io::Error) -> Self {
+        ModelError::Io { path, source }
+    }
+
+    fn invalid(problems: Vec<Problem>) -> Self {
+        ModelError::Invalid(problems)
     }
 }
 
 /// Load a model from text; `path` labels problems and anchors relative CSV paths.
 pub fn load_model_str(text: &str, path: &Path) -> Result<CouplerModel, ModelError> {
     let label = path.display().to_string();
-    let (root, mut problems) = raw::parse_tree(text, &label, "coupler model");
-    let mut v = Validator {
-        path: label.clone(),
-        dir: path.parent().unwrap_or(Path::new(".")).to_path_buf(),
-        problems: Vec::new(),
-    };
+    let (root, mut problems) = parse_tree(text, &label, "coupler model");
+    let mut v = NodeReader::new(
+        label.clone(),
+        path.parent().unwrap_or(Path::new(".")).to_path_buf(),
+    );
     let model = root.as_ref().and_then(|r| match r {
-        Node::Mapping(m) => v.model(m, path),
+        Node::Mapping(m) => model(&mut v, m, path),
         _ => None,
     });
     problems.append(&mut v.problems);
@@ -197,22 +201,13 @@ pub fn load_model_str(text: &str, path: &Path) -> Result<CouplerModel, ModelErro
                     message: "the coupler model could not be read".into(),
                 });
             }
-            crate::plan::validate::sort_problems(&mut problems, &label);
+            sort_problems(&mut problems, &label);
             Err(ModelError::Invalid(problems))
         }
     }
 }
 
-/// The node-level checks of project YAML files (coupler models, earphone files): each
-/// problem is recorded at the node that caused it, in the file labelled `path`. Shared so
-/// that another file kind reuses the element syntax and the messages of coupler models.
-pub(crate) struct Validator {
-    pub(crate) path: String,
-    pub(crate) dir: PathBuf,
-    pub(crate) problems: Vec<Problem>,
-}
-
-/// What [`Validator::chain`] read.
+/// What [`chain`] read.
 #[derive(Default)]
 struct ChainRead {
     /// The items that could be read, each with its position.
@@ -231,716 +226,577 @@ pub(crate) struct ChainCtx<'a> {
     pub(crate) taps_allowed: bool,
 }
 
-impl Validator {
-    /// A validator for the file labelled `path`, whose relative paths resolve against `dir`.
-    pub(crate) fn new(path: String, dir: PathBuf) -> Self {
-        Validator {
-            path,
-            dir,
-            problems: Vec::new(),
+fn model(v: &mut NodeReader, top: &MarkedMappingNode, source: &Path) -> Option<CouplerModel> {
+    let top_pos = top
+        .keys()
+        .next()
+        .map_or(Pos { line: 1, col: 1 }, |k| Pos::of(k.span()));
+    v.unknown_keys(top, &TOP_KEYS, "");
+
+    let id = match top.get_node("coupler") {
+        None => {
+            v.report(top_pos, "missing required key `coupler`".into());
+            None
+        }
+        Some(n) => {
+            let s = v.scalar(n, "coupler", "an id");
+            s.and_then(|s| {
+                if is_id(&s) {
+                    Some(s)
+                } else {
+                    v.report(
+                        Pos::of(n.span()),
+                        format!(
+                            "coupler: expected an id of lowercase letters, digits, `.`, `_` \
+                             and `-`, starting with a letter or digit, found {}",
+                            found_scalar(&s)
+                        ),
+                    );
+                    None
+                }
+            })
+        }
+    };
+    let description = match top.get_node("description") {
+        None => Some(String::new()),
+        Some(n) => v.scalar(n, "description", "text"),
+    };
+    let temperature_c = match top.get_node("temperature_c") {
+        None => Some(DEFAULT_TEMPERATURE_C),
+        Some(n) => v.number_in(n, "temperature_c", TEMPERATURE_RANGE_C, " °C"),
+    };
+    let static_pressure_pa = match top.get_node("static_pressure_pa") {
+        None => Some(DEFAULT_STATIC_PRESSURE_PA),
+        Some(n) => v.number_in(n, "static_pressure_pa", STATIC_PRESSURE_RANGE_PA, " Pa"),
+    };
+
+    let read = match top.get_node("elements") {
+        None => {
+            v.report(top_pos, "missing required key `elements`".into());
+            None
+        }
+        Some(n) => {
+            let read = chain(
+                v,
+                n,
+                &ChainCtx {
+                    prefix: "elements",
+                    taps_allowed: true,
+                },
+            );
+            check_taps(v, &read.items, n);
+            Some(read)
+        }
+    };
+    let last_radius = read.as_ref().and_then(|r| r.last_radius_m);
+    let termination = match top.get_node("termination") {
+        None => {
+            v.report(top_pos, "missing required key `termination`".into());
+            None
+        }
+        Some(n) => termination(v, n, "termination", last_radius),
+    };
+
+    let read = read.filter(|r| r.ok)?;
+    if let (Some(Termination::Rigid), Some(n)) = (&termination, top.get_node("termination")) {
+        // Only series elements in front of a rigid wall: no volume velocity can flow, so
+        // the input impedance is infinite at every frequency and no source can drive the
+        // coupler. Refused here rather than carried as a non-finite number.
+        let drivable = read.items.iter().any(|(item, _)| {
+            matches!(item, ChainItem::Element(e) if !matches!(e, Element::Series { .. }))
+        });
+        if !drivable {
+            v.report(
+                Pos::of(n.span()),
+                "termination: a rigid end behind series elements only has an infinite \
+                 input impedance; expected a tube, slit, cavity or branch in the chain, \
+                 or a termination that admits flow (open_baffled, open_unbaffled, \
+                 impedance_csv, eardrum)"
+                    .into(),
+            );
+            return None;
         }
     }
+    let chain: Vec<ChainItem> = read.items.into_iter().map(|(item, _)| item).collect();
+    let mut model = CouplerModel {
+        id: id?,
+        description: description?,
+        temperature_c: temperature_c?,
+        static_pressure_pa: static_pressure_pa?,
+        chain,
+        termination: termination?,
+        sha256: String::new(),
+        source: source.to_path_buf(),
+    };
+    model.sha256 = model_sha256(&model);
+    Some(model)
+}
 
-    pub(crate) fn report(&mut self, pos: Pos, message: String) {
-        self.problems.push(Problem {
-            location: pos.at(&self.path),
-            message,
-        });
+/// A chain of elements (with taps when allowed). Each item comes with its position;
+/// also returns the radius of the last tube, m (for a bare open end).
+/// The items that could be read are returned even when others could not (so that tap
+/// names are still checked); `ok` says whether all could.
+fn chain(v: &mut NodeReader, node: &Node, ctx: &ChainCtx) -> ChainRead {
+    let Node::Sequence(seq) = node else {
+        v.report(
+            Pos::of(node.span()),
+            format!(
+                "{}: expected a list of elements, found {}",
+                ctx.prefix,
+                found(node)
+            ),
+        );
+        return ChainRead::default();
+    };
+    let mut items = Vec::new();
+    let mut ok = true;
+    let mut last_radius = None;
+    let mut n_elements = 0usize;
+    for (i, node) in seq.iter().enumerate() {
+        let what = format!("{}[{}]", ctx.prefix, i + 1);
+        // A block mapping's own mark points past its first key; use the key.
+        let pos = match node {
+            Node::Mapping(m) => m
+                .keys()
+                .next()
+                .map_or(Pos::of(node.span()), |k| Pos::of(k.span())),
+            _ => Pos::of(node.span()),
+        };
+        match item(v, node, &what, ctx) {
+            Some(ci) => {
+                if let ChainItem::Element(e) = &ci {
+                    n_elements += 1;
+                    if let Element::Tube { radius_m, .. } = e {
+                        last_radius = Some(*radius_m);
+                    }
+                }
+                items.push((ci, pos));
+            }
+            None => ok = false,
+        }
     }
+    if seq.is_empty() {
+        v.report(
+            Pos::of(node.span()),
+            format!(
+                "{}: expected at least one element, found an empty list",
+                ctx.prefix
+            ),
+        );
+        ok = false;
+    } else if ok && n_elements == 0 {
+        v.report(
+            Pos::of(node.span()),
+            format!(
+                "{}: expected at least one element besides taps, found none",
+                ctx.prefix
+            ),
+        );
+        ok = false;
+    }
+    ChainRead {
+        items,
+        ok,
+        last_radius_m: last_radius,
+    }
+}
 
-    fn model(&mut self, top: &MarkedMappingNode, source: &Path) -> Option<CouplerModel> {
-        let top_pos = top
-            .keys()
-            .next()
-            .map_or(Pos { line: 1, col: 1 }, |k| Pos::of(k.span()));
-        self.unknown_keys(top, &TOP_KEYS, "");
-
-        let id = match top.get_node("coupler") {
-            None => {
-                self.report(top_pos, "missing required key `coupler`".into());
+/// One list item: a mapping with exactly one element kind (the element syntax of coupler
+/// files, shared with earphone files' rear vent).
+pub(crate) fn item(
+    v: &mut NodeReader,
+    item: &Node,
+    what: &str,
+    ctx: &ChainCtx,
+) -> Option<ChainItem> {
+    let map = match item {
+        Node::Mapping(m) if m.len() == 1 => m,
+        Node::Mapping(m) => {
+            let found = if m.is_empty() {
+                "an empty mapping".to_string()
+            } else {
+                let keys: Vec<&str> = m.keys().map(|k| k.as_str()).collect();
+                format!("{} keys ({})", m.len(), keys.join(", "))
+            };
+            v.report(
+                Pos::of(item.span()),
+                format!(
+                    "{what}: expected one element ({}), found {found}",
+                    ELEMENT_KINDS.join(", ")
+                ),
+            );
+            return None;
+        }
+        other => {
+            v.report(
+                Pos::of(other.span()),
+                format!(
+                    "{what}: expected an element such as `tube: {{...}}`, found {}",
+                    found(other)
+                ),
+            );
+            return None;
+        }
+    };
+    let (key, value) = map.iter().next()?;
+    let kind = key.as_str();
+    let w = format!("{what}.{kind}");
+    let mm = |x: f64| x * 1e-3;
+    match kind {
+        "tap" => {
+            if !ctx.taps_allowed {
+                v.report(
+                    Pos::of(key.span()),
+                    format!(
+                        "{what}: expected an element, found a tap; taps are allowed only \
+                         in the main chain (a branch is a shunt impedance)"
+                    ),
+                );
+                return None;
+            }
+            let name = v.scalar(value, &w, "a tap name")?;
+            if is_channel_name(&name) {
+                Some(ChainItem::Tap(name))
+            } else {
+                v.report(
+                    Pos::of(value.span()),
+                    format!(
+                        "{w}: expected a name of lowercase letters, digits, `_` and `-`, \
+                         found {}",
+                        found_scalar(&name)
+                    ),
+                );
                 None
             }
-            Some(n) => {
-                let s = self.scalar(n, "coupler", "an id");
-                s.and_then(|s| {
-                    if is_id(&s) {
-                        Some(s)
+        }
+        "tube" => {
+            let f = v.fields(
+                value,
+                &w,
+                &["length_mm", "radius_mm", "loss"],
+                &["length_mm", "radius_mm"],
+            );
+            let f = f?;
+            let length = f[0].and_then(|n| v.positive(n, &format!("{w}.length_mm"), "mm"));
+            let radius = f[1].and_then(|n| v.positive(n, &format!("{w}.radius_mm"), "mm"));
+            let loss = match f[2] {
+                None => Some(TubeLoss::ZwikkerKosten),
+                Some(n) => loss(v, n, &format!("{w}.loss")),
+            };
+            Some(ChainItem::Element(Element::Tube {
+                length_m: mm(length?),
+                radius_m: mm(radius?),
+                loss: loss?,
+            }))
+        }
+        "slit" => {
+            let keys = ["length_mm", "width_mm", "gap_mm"];
+            let f = v.fields(value, &w, &keys, &keys)?;
+            let mut vals = [None; 3];
+            for (k, key) in keys.iter().enumerate() {
+                vals[k] = f[k].and_then(|n| v.positive(n, &format!("{w}.{key}"), "mm"));
+            }
+            let [l, wd, g] = vals;
+            let (l, wd, g) = (l?, wd?, g?);
+            if g > wd {
+                v.report(
+                    Pos::of(value.span()),
+                    format!(
+                        "{w}: expected gap_mm no larger than width_mm (the gap is the short \
+                         side), found gap {g} mm and width {wd} mm"
+                    ),
+                );
+                return None;
+            }
+            Some(ChainItem::Element(Element::Slit {
+                length_m: mm(l),
+                width_m: mm(wd),
+                gap_m: mm(g),
+            }))
+        }
+        "cavity" => {
+            let f = v.fields(value, &w, &["volume_mm3"], &["volume_mm3"])?;
+            let volume_mm3 = f[0].and_then(|n| v.positive(n, &format!("{w}.volume_mm3"), "mm³"))?;
+            Some(ChainItem::Element(Element::Cavity {
+                volume_m3: volume_mm3 * 1e-9,
+            }))
+        }
+        "series" => {
+            let keys = ["resistance_pa_s_m3", "inertance_kg_m4", "compliance_m3_pa"];
+            let f = v.fields(value, &w, &keys, &[])?;
+            if f.iter().all(Option::is_none) {
+                v.report(
+                    Pos::of(value.span()),
+                    format!(
+                        "{w}: expected at least one of {}, found none",
+                        keys.join(", ")
+                    ),
+                );
+                return None;
+            }
+            let mut nonneg = |n: Option<&Node>, key: &str| -> Option<f64> {
+                let Some(n) = n else { return Some(0.0) };
+                let what = format!("{w}.{key}");
+                let x = v.number(n, &what)?;
+                if x >= 0.0 {
+                    Some(x)
+                } else {
+                    v.report(
+                        Pos::of(n.span()),
+                        format!("{what}: expected a value of 0 or more, found {x}"),
+                    );
+                    None
+                }
+            };
+            let r = nonneg(f[0], keys[0]);
+            let m = nonneg(f[1], keys[1]);
+            let c = match f[2] {
+                None => Some(None),
+                Some(n) => v
+                    .positive(n, &format!("{w}.{}", keys[2]), "m³/Pa")
+                    .map(Some),
+            };
+            Some(ChainItem::Element(Element::Series {
+                resistance_pa_s_m3: r?,
+                inertance_kg_m4: m?,
+                compliance_m3_pa: c?,
+            }))
+        }
+        "branch" => {
+            let f = v.fields(
+                value,
+                &w,
+                &["elements", "termination"],
+                &["elements", "termination"],
+            );
+            let f = f?;
+            let prefix = format!("{w}.elements");
+            let read = match f[0] {
+                Some(n) => chain(
+                    v,
+                    n,
+                    &ChainCtx {
+                        prefix: &prefix,
+                        taps_allowed: false,
+                    },
+                ),
+                None => ChainRead::default(),
+            };
+            let term = f[1]
+                .and_then(|n| termination(v, n, &format!("{w}.termination"), read.last_radius_m));
+            let elements = read
+                .ok
+                .then_some(read.items)?
+                .into_iter()
+                .filter_map(|(i, _)| match i {
+                    ChainItem::Element(e) => Some(e),
+                    ChainItem::Tap(_) => None,
+                })
+                .collect();
+            Some(ChainItem::Element(Element::Branch {
+                elements,
+                termination: term?,
+            }))
+        }
+        other => {
+            let hint = match suggest(other, ELEMENT_KINDS) {
+                Some(s) => format!("did you mean `{s}`?"),
+                None => format!("expected one of {}", ELEMENT_KINDS.join(", ")),
+            };
+            v.report(
+                Pos::of(key.span()),
+                format!("{what}: unknown element `{}`, {hint}", show_text(other)),
+            );
+            None
+        }
+    }
+}
+
+/// A tube's loss model by name (`zwikker_kosten`, `keefe`, `lossless`).
+pub(crate) fn loss(v: &mut NodeReader, n: &Node, what: &str) -> Option<TubeLoss> {
+    let s = v.scalar(n, what, "a loss model")?;
+    match s.as_str() {
+        "zwikker_kosten" => Some(TubeLoss::ZwikkerKosten),
+        "keefe" => Some(TubeLoss::Keefe),
+        "lossless" => Some(TubeLoss::Lossless),
+        other => {
+            let hint = match suggest(other, LOSS_NAMES) {
+                Some(s) => format!(", did you mean `{s}`?"),
+                None => String::new(),
+            };
+            v.report(
+                Pos::of(n.span()),
+                format!(
+                    "{what}: expected one of {}, found {}{hint}",
+                    LOSS_NAMES.join(", "),
+                    found_scalar(other)
+                ),
+            );
+            None
+        }
+    }
+}
+
+/// Tap names unique, and at least one tap.
+fn check_taps(v: &mut NodeReader, chain: &[(ChainItem, Pos)], elements: &Node) {
+    let mut seen: Vec<(&str, Pos)> = Vec::new();
+    for (item, pos) in chain {
+        if let ChainItem::Tap(name) = item {
+            if let Some((_, first)) = seen.iter().find(|(n, _)| n == name) {
+                v.report(
+                    *pos,
+                    format!(
+                        "elements: expected each tap name once, found `{name}` again \
+                         (first at line {})",
+                        first.line
+                    ),
+                );
+            } else {
+                seen.push((name, *pos));
+            }
+        }
+    }
+    if seen.is_empty() {
+        v.report(
+            Pos::of(elements.span()),
+            "elements: expected at least one `tap: NAME` (a microphone), found none".into(),
+        );
+    }
+}
+
+/// A termination; `last_radius_m` is the radius of the last tube of its chain.
+fn termination(
+    v: &mut NodeReader,
+    n: &Node,
+    what: &str,
+    last_radius_m: Option<f64>,
+) -> Option<Termination> {
+    let pos = Pos::of(n.span());
+    let bare_open = |this: &mut NodeReader, name: &str| -> Option<f64> {
+        match last_radius_m {
+            Some(r) => Some(r),
+            None => {
+                this.report(
+                    pos,
+                    format!(
+                        "{what}: `{name}` takes the radius of the last tube of its chain, \
+                         found no tube; write `{{{name}: {{radius_mm: R}}}}`"
+                    ),
+                );
+                None
+            }
+        }
+    };
+    match n {
+        Node::Scalar(s) => match s.as_str() {
+            "rigid" => Some(Termination::Rigid),
+            "open_baffled" => Some(Termination::OpenBaffled {
+                radius_m: bare_open(v, "open_baffled")?,
+            }),
+            "open_unbaffled" => Some(Termination::OpenUnbaffled {
+                radius_m: bare_open(v, "open_unbaffled")?,
+            }),
+            other => {
+                let all: Vec<&str> = TERMINATION_NAMES
+                    .iter()
+                    .chain(&TERMINATION_KEYS[2..])
+                    .copied()
+                    .collect();
+                let hint = match suggest(other, all.iter().copied()) {
+                    Some(s) => format!(", did you mean `{s}`?"),
+                    None => String::new(),
+                };
+                v.report(
+                    pos,
+                    format!(
+                        "{what}: expected rigid, open_baffled, open_unbaffled, \
+                         {{impedance_csv: FILE}} or {{eardrum: MODEL}}, found {}{hint}",
+                        found_scalar(other)
+                    ),
+                );
+                None
+            }
+        },
+        Node::Mapping(m) if m.len() == 1 => {
+            let (k, value) = m.iter().next()?;
+            let w = format!("{what}.{}", k.as_str());
+            match k.as_str() {
+                "open_baffled" | "open_unbaffled" => {
+                    let f = v.fields(value, &w, &["radius_mm"], &["radius_mm"])?;
+                    let r = f[0].and_then(|n| v.positive(n, &format!("{w}.radius_mm"), "mm"))?;
+                    Some(if k.as_str() == "open_baffled" {
+                        Termination::OpenBaffled { radius_m: r * 1e-3 }
                     } else {
-                        self.report(
-                            Pos::of(n.span()),
+                        Termination::OpenUnbaffled { radius_m: r * 1e-3 }
+                    })
+                }
+                "eardrum" => {
+                    let s = v.scalar(value, &w, "an eardrum model")?;
+                    if EARDRUM_MODELS.contains(&s.as_str()) {
+                        Some(Termination::Eardrum)
+                    } else {
+                        v.report(
+                            Pos::of(value.span()),
                             format!(
-                                "coupler: expected an id of lowercase letters, digits, `.`, `_` \
-                                 and `-`, starting with a letter or digit, found {}",
-                                raw::found_scalar(&s)
+                                "{w}: expected {}, found {}",
+                                EARDRUM_MODELS.join(", "),
+                                found_scalar(&s)
                             ),
                         );
                         None
                     }
-                })
-            }
-        };
-        let description = match top.get_node("description") {
-            None => Some(String::new()),
-            Some(n) => self.scalar(n, "description", "text"),
-        };
-        let temperature_c = match top.get_node("temperature_c") {
-            None => Some(DEFAULT_TEMPERATURE_C),
-            Some(n) => self.number_in(n, "temperature_c", TEMPERATURE_RANGE_C, " °C"),
-        };
-        let static_pressure_pa = match top.get_node("static_pressure_pa") {
-            None => Some(DEFAULT_STATIC_PRESSURE_PA),
-            Some(n) => self.number_in(n, "static_pressure_pa", STATIC_PRESSURE_RANGE_PA, " Pa"),
-        };
-
-        let read = match top.get_node("elements") {
-            None => {
-                self.report(top_pos, "missing required key `elements`".into());
-                None
-            }
-            Some(n) => {
-                let read = self.chain(
-                    n,
-                    &ChainCtx {
-                        prefix: "elements",
-                        taps_allowed: true,
-                    },
-                );
-                self.check_taps(&read.items, n);
-                Some(read)
-            }
-        };
-        let last_radius = read.as_ref().and_then(|r| r.last_radius_m);
-        let termination = match top.get_node("termination") {
-            None => {
-                self.report(top_pos, "missing required key `termination`".into());
-                None
-            }
-            Some(n) => self.termination(n, "termination", last_radius),
-        };
-
-        let read = read.filter(|r| r.ok)?;
-        if let (Some(Termination::Rigid), Some(n)) = (&termination, top.get_node("termination")) {
-            // Only series elements in front of a rigid wall: no volume velocity can flow, so
-            // the input impedance is infinite at every frequency and no source can drive the
-            // coupler. Refused here rather than carried as a non-finite number.
-            let drivable = read.items.iter().any(|(item, _)| {
-                matches!(item, ChainItem::Element(e) if !matches!(e, Element::Series { .. }))
-            });
-            if !drivable {
-                self.report(
-                    Pos::of(n.span()),
-                    "termination: a rigid end behind series elements only has an infinite \
-                     input impedance; expected a tube, slit, cavity or branch in the chain, \
-                     or a termination that admits flow (open_baffled, open_unbaffled, \
-                     impedance_csv, eardrum)"
-                        .into(),
-                );
-                return None;
-            }
-        }
-        let chain: Vec<ChainItem> = read.items.into_iter().map(|(item, _)| item).collect();
-        let mut model = CouplerModel {
-            id: id?,
-            description: description?,
-            temperature_c: temperature_c?,
-            static_pressure_pa: static_pressure_pa?,
-            chain,
-            termination: termination?,
-            sha256: String::new(),
-            source: source.to_path_buf(),
-        };
-        model.sha256 = model_sha256(&model);
-        Some(model)
-    }
-
-    /// Report keys of `map` not in `known`, with a suggestion.
-    pub(crate) fn unknown_keys(&mut self, map: &MarkedMappingNode, known: &[&str], ctx: &str) {
-        for k in map.keys() {
-            if !known.contains(&k.as_str()) {
-                let hint = match suggest(k.as_str(), known.iter().copied()) {
-                    Some(s) => format!("did you mean `{s}`?"),
-                    None => format!("expected one of {}", known.join(", ")),
-                };
-                let at = if ctx.is_empty() {
-                    String::new()
-                } else {
-                    format!("{ctx}: ")
-                };
-                self.report(
-                    Pos::of(k.span()),
-                    format!("{at}unknown key `{}`, {hint}", raw::show_text(k.as_str())),
-                );
-            }
-        }
-    }
-
-    /// A scalar's text, or a problem.
-    pub(crate) fn scalar(&mut self, n: &Node, what: &str, expected: &str) -> Option<String> {
-        match n {
-            Node::Scalar(s) if !s.is_empty() => Some(s.as_str().to_string()),
-            other => {
-                self.report(
-                    Pos::of(other.span()),
-                    format!("{what}: expected {expected}, found {}", raw::found(other)),
-                );
-                None
-            }
-        }
-    }
-
-    /// A finite number, or a problem.
-    pub(crate) fn number(&mut self, n: &Node, what: &str) -> Option<f64> {
-        let text = self.scalar(n, what, "a number")?;
-        match text.trim().replace('_', "").parse::<f64>() {
-            Ok(x) if x.is_finite() => Some(x),
-            _ => {
-                self.report(
-                    Pos::of(n.span()),
-                    format!(
-                        "{what}: expected a number, found {}",
-                        raw::found_scalar(&text)
-                    ),
-                );
-                None
-            }
-        }
-    }
-
-    pub(crate) fn number_in(
-        &mut self,
-        n: &Node,
-        what: &str,
-        range: (f64, f64),
-        unit: &str,
-    ) -> Option<f64> {
-        let x = self.number(n, what)?;
-        if x >= range.0 && x <= range.1 {
-            Some(x)
-        } else {
-            self.report(
-                Pos::of(n.span()),
-                format!(
-                    "{what}: expected {} to {}{unit}, found {x}",
-                    range.0, range.1
-                ),
-            );
-            None
-        }
-    }
-
-    /// A number above 0 (a size), in the unit written.
-    pub(crate) fn positive(&mut self, n: &Node, what: &str, unit: &str) -> Option<f64> {
-        let x = self.number(n, what)?;
-        if x > 0.0 {
-            Some(x)
-        } else {
-            self.report(
-                Pos::of(n.span()),
-                format!("{what}: expected a value above 0 {unit}, found {x}"),
-            );
-            None
-        }
-    }
-
-    /// The keys of an element's mapping: unknown ones reported, required ones checked.
-    /// Returns the value nodes of `keys` (in order); `None` per missing key.
-    pub(crate) fn fields<'n>(
-        &mut self,
-        node: &'n Node,
-        what: &str,
-        keys: &[&str],
-        required: &[&str],
-    ) -> Option<Vec<Option<&'n Node>>> {
-        let Node::Mapping(m) = node else {
-            self.report(
-                Pos::of(node.span()),
-                format!(
-                    "{what}: expected a mapping with {}, found {}",
-                    keys.join(", "),
-                    raw::found(node)
-                ),
-            );
-            return None;
-        };
-        self.unknown_keys(m, keys, what);
-        let pos = m
-            .keys()
-            .next()
-            .map_or(Pos::of(node.span()), |k| Pos::of(k.span()));
-        let mut ok = true;
-        for r in required {
-            if m.get_node(r).is_none() {
-                self.report(pos, format!("{what}: missing required key `{r}`"));
-                ok = false;
-            }
-        }
-        let out = keys.iter().map(|k| m.get_node(k)).collect();
-        ok.then_some(out)
-    }
-
-    /// A chain of elements (with taps when allowed). Each item comes with its position;
-    /// also returns the radius of the last tube, m (for a bare open end).
-    /// The items that could be read are returned even when others could not (so that tap
-    /// names are still checked); `ok` says whether all could.
-    fn chain(&mut self, node: &Node, ctx: &ChainCtx) -> ChainRead {
-        let Node::Sequence(seq) = node else {
-            self.report(
-                Pos::of(node.span()),
-                format!(
-                    "{}: expected a list of elements, found {}",
-                    ctx.prefix,
-                    raw::found(node)
-                ),
-            );
-            return ChainRead::default();
-        };
-        let mut items = Vec::new();
-        let mut ok = true;
-        let mut last_radius = None;
-        let mut n_elements = 0usize;
-        for (i, item) in seq.iter().enumerate() {
-            let what = format!("{}[{}]", ctx.prefix, i + 1);
-            // A block mapping's own mark points past its first key; use the key.
-            let pos = match item {
-                Node::Mapping(m) => m
-                    .keys()
-                    .next()
-                    .map_or(Pos::of(item.span()), |k| Pos::of(k.span())),
-                _ => Pos::of(item.span()),
-            };
-            match self.item(item, &what, ctx) {
-                Some(ci) => {
-                    if let ChainItem::Element(e) = &ci {
-                        n_elements += 1;
-                        if let Element::Tube { radius_m, .. } = e {
-                            last_radius = Some(*radius_m);
-                        }
-                    }
-                    items.push((ci, pos));
                 }
-                None => ok = false,
-            }
-        }
-        if seq.is_empty() {
-            self.report(
-                Pos::of(node.span()),
-                format!(
-                    "{}: expected at least one element, found an empty list",
-                    ctx.prefix
-                ),
-            );
-            ok = false;
-        } else if ok && n_elements == 0 {
-            self.report(
-                Pos::of(node.span()),
-                format!(
-                    "{}: expected at least one element besides taps, found none",
-                    ctx.prefix
-                ),
-            );
-            ok = false;
-        }
-        ChainRead {
-            items,
-            ok,
-            last_radius_m: last_radius,
-        }
-    }
-
-    /// One list item: a mapping with exactly one element kind.
-    pub(crate) fn item(&mut self, item: &Node, what: &str, ctx: &ChainCtx) -> Option<ChainItem> {
-        let map = match item {
-            Node::Mapping(m) if m.len() == 1 => m,
-            Node::Mapping(m) => {
-                let found = if m.is_empty() {
-                    "an empty mapping".to_string()
-                } else {
-                    let keys: Vec<&str> = m.keys().map(|k| k.as_str()).collect();
-                    format!("{} keys ({})", m.len(), keys.join(", "))
-                };
-                self.report(
-                    Pos::of(item.span()),
-                    format!(
-                        "{what}: expected one element ({}), found {found}",
-                        ELEMENT_KINDS.join(", ")
-                    ),
-                );
-                return None;
-            }
-            other => {
-                self.report(
-                    Pos::of(other.span()),
-                    format!(
-                        "{what}: expected an element such as `tube: {{...}}`, found {}",
-                        raw::found(other)
-                    ),
-                );
-                return None;
-            }
-        };
-        let (key, value) = map.iter().next()?;
-        let kind = key.as_str();
-        let w = format!("{what}.{kind}");
-        let mm = |x: f64| x * 1e-3;
-        match kind {
-            "tap" => {
-                if !ctx.taps_allowed {
-                    self.report(
-                        Pos::of(key.span()),
-                        format!(
-                            "{what}: expected an element, found a tap; taps are allowed only \
-                             in the main chain (a branch is a shunt impedance)"
-                        ),
-                    );
-                    return None;
+                "impedance_csv" => {
+                    let rel = v.scalar(value, &w, "a CSV file path")?;
+                    impedance_file(v, &rel, &w, Pos::of(value.span()))
                 }
-                let name = self.scalar(value, &w, "a tap name")?;
-                if is_channel_name(&name) {
-                    Some(ChainItem::Tap(name))
-                } else {
-                    self.report(
-                        Pos::of(value.span()),
-                        format!(
-                            "{w}: expected a name of lowercase letters, digits, `_` and `-`, \
-                             found {}",
-                            raw::found_scalar(&name)
-                        ),
-                    );
-                    None
-                }
-            }
-            "tube" => {
-                let f = self.fields(
-                    value,
-                    &w,
-                    &["length_mm", "radius_mm", "loss"],
-                    &["length_mm", "radius_mm"],
-                );
-                let f = f?;
-                let length = f[0].and_then(|n| self.positive(n, &format!("{w}.length_mm"), "mm"));
-                let radius = f[1].and_then(|n| self.positive(n, &format!("{w}.radius_mm"), "mm"));
-                let loss = match f[2] {
-                    None => Some(TubeLoss::ZwikkerKosten),
-                    Some(n) => self.loss(n, &format!("{w}.loss")),
-                };
-                Some(ChainItem::Element(Element::Tube {
-                    length_m: mm(length?),
-                    radius_m: mm(radius?),
-                    loss: loss?,
-                }))
-            }
-            "slit" => {
-                let keys = ["length_mm", "width_mm", "gap_mm"];
-                let f = self.fields(value, &w, &keys, &keys)?;
-                let mut vals = [None; 3];
-                for (k, key) in keys.iter().enumerate() {
-                    vals[k] = f[k].and_then(|n| self.positive(n, &format!("{w}.{key}"), "mm"));
-                }
-                let [l, wd, g] = vals;
-                let (l, wd, g) = (l?, wd?, g?);
-                if g > wd {
-                    self.report(
-                        Pos::of(value.span()),
-                        format!(
-                            "{w}: expected gap_mm no larger than width_mm (the gap is the short \
-                             side), found gap {g} mm and width {wd} mm"
-                        ),
-                    );
-                    return None;
-                }
-                Some(ChainItem::Element(Element::Slit {
-                    length_m: mm(l),
-                    width_m: mm(wd),
-                    gap_m: mm(g),
-                }))
-            }
-            "cavity" => {
-                let f = self.fields(value, &w, &["volume_mm3"], &["volume_mm3"])?;
-                let v = f[0].and_then(|n| self.positive(n, &format!("{w}.volume_mm3"), "mm³"))?;
-                Some(ChainItem::Element(Element::Cavity {
-                    volume_m3: v * 1e-9,
-                }))
-            }
-            "series" => {
-                let keys = ["resistance_pa_s_m3", "inertance_kg_m4", "compliance_m3_pa"];
-                let f = self.fields(value, &w, &keys, &[])?;
-                if f.iter().all(Option::is_none) {
-                    self.report(
-                        Pos::of(value.span()),
-                        format!(
-                            "{w}: expected at least one of {}, found none",
-                            keys.join(", ")
-                        ),
-                    );
-                    return None;
-                }
-                let mut nonneg = |n: Option<&Node>, key: &str| -> Option<f64> {
-                    let Some(n) = n else { return Some(0.0) };
-                    let what = format!("{w}.{key}");
-                    let x = self.number(n, &what)?;
-                    if x >= 0.0 {
-                        Some(x)
-                    } else {
-                        self.report(
-                            Pos::of(n.span()),
-                            format!("{what}: expected a value of 0 or more, found {x}"),
-                        );
-                        None
-                    }
-                };
-                let r = nonneg(f[0], keys[0]);
-                let m = nonneg(f[1], keys[1]);
-                let c = match f[2] {
-                    None => Some(None),
-                    Some(n) => self
-                        .positive(n, &format!("{w}.{}", keys[2]), "m³/Pa")
-                        .map(Some),
-                };
-                Some(ChainItem::Element(Element::Series {
-                    resistance_pa_s_m3: r?,
-                    inertance_kg_m4: m?,
-                    compliance_m3_pa: c?,
-                }))
-            }
-            "branch" => {
-                let f = self.fields(
-                    value,
-                    &w,
-                    &["elements", "termination"],
-                    &["elements", "termination"],
-                );
-                let f = f?;
-                let prefix = format!("{w}.elements");
-                let read = match f[0] {
-                    Some(n) => self.chain(
-                        n,
-                        &ChainCtx {
-                            prefix: &prefix,
-                            taps_allowed: false,
-                        },
-                    ),
-                    None => ChainRead::default(),
-                };
-                let term = f[1].and_then(|n| {
-                    self.termination(n, &format!("{w}.termination"), read.last_radius_m)
-                });
-                let elements = read
-                    .ok
-                    .then_some(read.items)?
-                    .into_iter()
-                    .filter_map(|(i, _)| match i {
-                        ChainItem::Element(e) => Some(e),
-                        ChainItem::Tap(_) => None,
-                    })
-                    .collect();
-                Some(ChainItem::Element(Element::Branch {
-                    elements,
-                    termination: term?,
-                }))
-            }
-            other => {
-                let hint = match suggest(other, ELEMENT_KINDS) {
-                    Some(s) => format!("did you mean `{s}`?"),
-                    None => format!("expected one of {}", ELEMENT_KINDS.join(", ")),
-                };
-                self.report(
-                    Pos::of(key.span()),
-                    format!(
-                        "{what}: unknown element `{}`, {hint}",
-                        raw::show_text(other)
-                    ),
-                );
-                None
-            }
-        }
-    }
-
-    pub(crate) fn loss(&mut self, n: &Node, what: &str) -> Option<TubeLoss> {
-        let s = self.scalar(n, what, "a loss model")?;
-        match s.as_str() {
-            "zwikker_kosten" => Some(TubeLoss::ZwikkerKosten),
-            "keefe" => Some(TubeLoss::Keefe),
-            "lossless" => Some(TubeLoss::Lossless),
-            other => {
-                let hint = match suggest(other, LOSS_NAMES) {
-                    Some(s) => format!(", did you mean `{s}`?"),
-                    None => String::new(),
-                };
-                self.report(
-                    Pos::of(n.span()),
-                    format!(
-                        "{what}: expected one of {}, found {}{hint}",
-                        LOSS_NAMES.join(", "),
-                        raw::found_scalar(other)
-                    ),
-                );
-                None
-            }
-        }
-    }
-
-    /// Tap names unique, and at least one tap.
-    fn check_taps(&mut self, chain: &[(ChainItem, Pos)], elements: &Node) {
-        let mut seen: Vec<(&str, Pos)> = Vec::new();
-        for (item, pos) in chain {
-            if let ChainItem::Tap(name) = item {
-                if let Some((_, first)) = seen.iter().find(|(n, _)| n == name) {
-                    self.report(
-                        *pos,
-                        format!(
-                            "elements: expected each tap name once, found `{name}` again \
-                             (first at line {})",
-                            first.line
-                        ),
-                    );
-                } else {
-                    seen.push((name, *pos));
-                }
-            }
-        }
-        if seen.is_empty() {
-            self.report(
-                Pos::of(elements.span()),
-                "elements: expected at least one `tap: NAME` (a microphone), found none".into(),
-            );
-        }
-    }
-
-    /// A termination; `last_radius_m` is the radius of the last tube of its chain.
-    fn termination(
-        &mut self,
-        n: &Node,
-        what: &str,
-        last_radius_m: Option<f64>,
-    ) -> Option<Termination> {
-        let pos = Pos::of(n.span());
-        let bare_open = |this: &mut Self, name: &str| -> Option<f64> {
-            match last_radius_m {
-                Some(r) => Some(r),
-                None => {
-                    this.report(
-                        pos,
-                        format!(
-                            "{what}: `{name}` takes the radius of the last tube of its chain, \
-                             found no tube; write `{{{name}: {{radius_mm: R}}}}`"
-                        ),
-                    );
-                    None
-                }
-            }
-        };
-        match n {
-            Node::Scalar(s) => match s.as_str() {
-                "rigid" => Some(Termination::Rigid),
-                "open_baffled" => Some(Termination::OpenBaffled {
-                    radius_m: bare_open(self, "open_baffled")?,
-                }),
-                "open_unbaffled" => Some(Termination::OpenUnbaffled {
-                    radius_m: bare_open(self, "open_unbaffled")?,
-                }),
                 other => {
-                    let all: Vec<&str> = TERMINATION_NAMES
-                        .iter()
-                        .chain(&TERMINATION_KEYS[2..])
-                        .copied()
-                        .collect();
-                    let hint = match suggest(other, all.iter().copied()) {
-                        Some(s) => format!(", did you mean `{s}`?"),
-                        None => String::new(),
+                    let hint = match suggest(other, TERMINATION_KEYS) {
+                        Some(s) => format!("did you mean `{s}`?"),
+                        None => format!("expected one of {}", TERMINATION_KEYS.join(", ")),
                     };
-                    self.report(
-                        pos,
-                        format!(
-                            "{what}: expected rigid, open_baffled, open_unbaffled, \
-                             {{impedance_csv: FILE}} or {{eardrum: MODEL}}, found {}{hint}",
-                            raw::found_scalar(other)
-                        ),
+                    v.report(
+                        Pos::of(k.span()),
+                        format!("{what}: unknown key `{}`, {hint}", show_text(other)),
                     );
                     None
                 }
-            },
-            Node::Mapping(m) if m.len() == 1 => {
-                let (k, v) = m.iter().next()?;
-                let w = format!("{what}.{}", k.as_str());
-                match k.as_str() {
-                    "open_baffled" | "open_unbaffled" => {
-                        let f = self.fields(v, &w, &["radius_mm"], &["radius_mm"])?;
-                        let r =
-                            f[0].and_then(|n| self.positive(n, &format!("{w}.radius_mm"), "mm"))?;
-                        Some(if k.as_str() == "open_baffled" {
-                            Termination::OpenBaffled { radius_m: r * 1e-3 }
-                        } else {
-                            Termination::OpenUnbaffled { radius_m: r * 1e-3 }
-                        })
-                    }
-                    "eardrum" => {
-                        let s = self.scalar(v, &w, "an eardrum model")?;
-                        if EARDRUM_MODELS.contains(&s.as_str()) {
-                            Some(Termination::Eardrum)
-                        } else {
-                            self.report(
-                                Pos::of(v.span()),
-                                format!(
-                                    "{w}: expected {}, found {}",
-                                    EARDRUM_MODELS.join(", "),
-                                    raw::found_scalar(&s)
-                                ),
-                            );
-                            None
-                        }
-                    }
-                    "impedance_csv" => {
-                        let rel = self.scalar(v, &w, "a CSV file path")?;
-                        self.impedance_file(&rel, &w, Pos::of(v.span()))
-                    }
-                    other => {
-                        let hint = match suggest(other, TERMINATION_KEYS) {
-                            Some(s) => format!("did you mean `{s}`?"),
-                            None => format!("expected one of {}", TERMINATION_KEYS.join(", ")),
-                        };
-                        self.report(
-                            Pos::of(k.span()),
-                            format!("{what}: unknown key `{}`, {hint}", raw::show_text(other)),
-                        );
-                        None
-                    }
-                }
-            }
-            other => {
-                self.report(
-                    pos,
-                    format!(
-                        "{what}: expected rigid, open_baffled, open_unbaffled or a mapping with \
-                         one of {}, found {}",
-                        TERMINATION_KEYS.join(", "),
-                        match other {
-                            Node::Mapping(m) => format!("a mapping with {} keys", m.len()),
-                            o => raw::found(o),
-                        }
-                    ),
-                );
-                None
             }
         }
-    }
-
-    fn impedance_file(&mut self, rel: &str, what: &str, pos: Pos) -> Option<Termination> {
-        let file = self.dir.join(rel);
-        let file_label = file.display().to_string();
-        let text = match crate::plan::validate::read_text_file(&file, "impedance") {
-            Ok(t) => t,
-            Err(why) => {
-                self.report(pos, format!("{what}: {why}"));
-                return None;
-            }
-        };
-        let (points, problems) = parse_impedance_csv(&text, &file_label);
-        if problems.is_empty() {
-            Some(Termination::Table { points })
-        } else {
-            self.problems.extend(problems);
+        other => {
+            v.report(
+                pos,
+                format!(
+                    "{what}: expected rigid, open_baffled, open_unbaffled or a mapping with \
+                     one of {}, found {}",
+                    TERMINATION_KEYS.join(", "),
+                    match other {
+                        Node::Mapping(m) => format!("a mapping with {} keys", m.len()),
+                        o => found(o),
+                    }
+                ),
+            );
             None
         }
+    }
+}
+
+fn impedance_file(v: &mut NodeReader, rel: &str, what: &str, pos: Pos) -> Option<Termination> {
+    let file = v.dir.join(rel);
+    let file_label = file.display().to_string();
+    let text = match read_data_file(&file, "impedance") {
+        Ok(t) => t,
+        Err(why) => {
+            v.report(pos, format!("{what}: {why}"));
+            return None;
+        }
+    };
+    let (points, problems) = parse_impedance_csv(&text, &file_label);
+    if problems.is_empty() {
+        Some(Termination::Table { points })
+    } else {
+        v.problems.extend(problems);
+        None
     }
 }
 
@@ -1001,7 +857,7 @@ pub fn parse_impedance_csv(text: &str, path: &str) -> (Vec<(f64, C64)>, Vec<Prob
                     location: at(line_no, fields[k].1),
                     message: format!(
                         "{name}: expected a number, found {}",
-                        raw::found_scalar(fields[k].0)
+                        found_scalar(fields[k].0)
                     ),
                 });
                 ok = false;

@@ -55,9 +55,9 @@ use super::{
     Calibration, CalibrationError, DriveCalibration, DriveReading, Instrument, MicCalibration,
     MicReading, MonitorCalibration,
 };
-use crate::acoustics::model::Validator;
-use crate::plan::raw::{self, Pos};
-use crate::plan::{Location, Problem};
+use crate::config::{
+    found, found_scalar, parse_tree, sort_problems, FileError, Location, NodeReader, Pos, Problem,
+};
 use marked_yaml::Node;
 use serde_json::{json, Value};
 use std::collections::BTreeMap;
@@ -95,23 +95,26 @@ const DRIVE_READING_KEYS: [&str; 6] = [
     "measured_utc",
 ];
 
-/// Load and validate a calibration file.
+/// Load and validate a calibration file (read by [`crate::config::load_file`]).
 pub fn load_calibration(path: &Path) -> Result<Calibration, CalibrationError> {
-    match crate::plan::raw::read_text_file(path) {
-        Ok(text) => load_calibration_str(&text, path),
-        Err(crate::plan::raw::TextFileError::Io(source)) => Err(CalibrationError::Io {
-            path: path.display().to_string(),
-            source,
-        }),
-        Err(crate::plan::raw::TextFileError::NotUtf8(p)) => Err(CalibrationError::Invalid(vec![p])),
+    crate::config::load_file(path, load_calibration_str)
+}
+
+impl FileError for CalibrationError {
+    fn unreadable(path: String, source: std::io::Error) -> Self {
+        CalibrationError::Io { path, source }
+    }
+
+    fn invalid(problems: Vec<Problem>) -> Self {
+        CalibrationError::Invalid(problems)
     }
 }
 
 /// Load a calibration from text; `path` labels problems.
 pub fn load_calibration_str(text: &str, path: &Path) -> Result<Calibration, CalibrationError> {
     let label = path.display().to_string();
-    let (root, mut problems) = raw::parse_tree(text, &label, "calibration");
-    let mut v = Validator::new(label.clone(), PathBuf::from("."));
+    let (root, mut problems) = parse_tree(text, &label, "calibration");
+    let mut v = NodeReader::new(label.clone(), PathBuf::from("."));
     let cal = root.as_ref().and_then(|r| match r {
         Node::Mapping(m) => read_top(&mut v, m, path),
         other => {
@@ -119,7 +122,7 @@ pub fn load_calibration_str(text: &str, path: &Path) -> Result<Calibration, Cali
                 Pos::of(other.span()),
                 format!(
                     "expected a mapping of calibration keys, found {}",
-                    raw::found(other)
+                    found(other)
                 ),
             );
             None
@@ -139,14 +142,14 @@ pub fn load_calibration_str(text: &str, path: &Path) -> Result<Calibration, Cali
                     message: "the calibration could not be read".into(),
                 });
             }
-            crate::plan::validate::sort_problems(&mut problems, &label);
+            sort_problems(&mut problems, &label);
             Err(CalibrationError::Invalid(problems))
         }
     }
 }
 
 fn required<'n>(
-    v: &mut Validator,
+    v: &mut NodeReader,
     m: &'n marked_yaml::types::MarkedMappingNode,
     key: &str,
     at: Pos,
@@ -158,12 +161,12 @@ fn required<'n>(
     n
 }
 
-fn text(v: &mut Validator, n: &Node, what: &str) -> Option<String> {
+fn text(v: &mut NodeReader, n: &Node, what: &str) -> Option<String> {
     v.scalar(n, what, "text")
 }
 
 fn read_top(
-    v: &mut Validator,
+    v: &mut NodeReader,
     top: &marked_yaml::types::MarkedMappingNode,
     source: &Path,
 ) -> Option<Calibration> {
@@ -219,13 +222,13 @@ fn read_top(
     })
 }
 
-fn instruments(v: &mut Validator, n: &Node) -> Option<Vec<Instrument>> {
+fn instruments(v: &mut NodeReader, n: &Node) -> Option<Vec<Instrument>> {
     let Node::Sequence(seq) = n else {
         v.report(
             Pos::of(n.span()),
             format!(
                 "instruments: expected a list of {{role, model, serial}}, found {}",
-                raw::found(n)
+                found(n)
             ),
         );
         return None;
@@ -257,17 +260,17 @@ fn instruments(v: &mut Validator, n: &Node) -> Option<Vec<Instrument>> {
 
 /// A mapping from 1-based channel numbers to entries.
 fn channels<T>(
-    v: &mut Validator,
+    v: &mut NodeReader,
     n: &Node,
     what: &str,
-    entry: fn(&mut Validator, &Node, &str) -> Option<T>,
+    entry: fn(&mut NodeReader, &Node, &str) -> Option<T>,
 ) -> Option<BTreeMap<usize, T>> {
     let Node::Mapping(m) = n else {
         v.report(
             Pos::of(n.span()),
             format!(
                 "{what}: expected a mapping from channel numbers (1, 2, ...) to entries, found {}",
-                raw::found(n)
+                found(n)
             ),
         );
         return None;
@@ -282,7 +285,7 @@ fn channels<T>(
                     Pos::of(k.span()),
                     format!(
                         "{what}: expected a channel number from 1 to 1024 (1-based), found {}",
-                        raw::found_scalar(k.as_str())
+                        found_scalar(k.as_str())
                     ),
                 );
                 ok = false;
@@ -299,15 +302,15 @@ fn channels<T>(
     ok.then_some(out)
 }
 
-fn positive(v: &mut Validator, n: Option<&Node>, what: &str, unit: &str) -> Option<f64> {
+fn positive(v: &mut NodeReader, n: Option<&Node>, what: &str, unit: &str) -> Option<f64> {
     n.and_then(|n| v.positive(n, what, unit))
 }
 
-fn number(v: &mut Validator, n: Option<&Node>, what: &str) -> Option<f64> {
+fn number(v: &mut NodeReader, n: Option<&Node>, what: &str) -> Option<f64> {
     n.and_then(|n| v.number(n, what))
 }
 
-fn mic_entry(v: &mut Validator, n: &Node, what: &str) -> Option<MicCalibration> {
+fn mic_entry(v: &mut NodeReader, n: &Node, what: &str) -> Option<MicCalibration> {
     let f = v.fields(n, what, &["fs_per_pa", "reading"], &["fs_per_pa"])?;
     let fs_per_pa = positive(v, f[0], &format!("{what}.fs_per_pa"), "FS/Pa");
     let reading = match f[1] {
@@ -341,13 +344,13 @@ fn mic_entry(v: &mut Validator, n: &Node, what: &str) -> Option<MicCalibration> 
     })
 }
 
-fn monitor_entry(v: &mut Validator, n: &Node, what: &str) -> Option<MonitorCalibration> {
+fn monitor_entry(v: &mut NodeReader, n: &Node, what: &str) -> Option<MonitorCalibration> {
     let f = v.fields(n, what, &["volts_peak_per_fs"], &["volts_peak_per_fs"])?;
     let volts_peak_per_fs = positive(v, f[0], &format!("{what}.volts_peak_per_fs"), "V/FS")?;
     Some(MonitorCalibration { volts_peak_per_fs })
 }
 
-fn drive_entry(v: &mut Validator, n: &Node, what: &str) -> Option<DriveCalibration> {
+fn drive_entry(v: &mut NodeReader, n: &Node, what: &str) -> Option<DriveCalibration> {
     let f = v.fields(
         n,
         what,
@@ -376,7 +379,7 @@ fn drive_entry(v: &mut Validator, n: &Node, what: &str) -> Option<DriveCalibrati
                         Pos::of(n.span()),
                         format!(
                             "{w}.method: expected `meter` or `input`, found {}",
-                            raw::found_scalar(&m)
+                            found_scalar(&m)
                         ),
                     );
                     None
@@ -408,7 +411,7 @@ fn drive_entry(v: &mut Validator, n: &Node, what: &str) -> Option<DriveCalibrati
     })
 }
 
-fn date(v: &mut Validator, n: &Node, what: &str) -> Option<time::Date> {
+fn date(v: &mut NodeReader, n: &Node, what: &str) -> Option<time::Date> {
     let s = v.scalar(n, what, "a date YYYY-MM-DD")?;
     match parse_date(s.trim()) {
         Some(d) => Some(d),
@@ -417,7 +420,7 @@ fn date(v: &mut Validator, n: &Node, what: &str) -> Option<time::Date> {
                 Pos::of(n.span()),
                 format!(
                     "{what}: expected a date YYYY-MM-DD, found {}",
-                    raw::found_scalar(&s)
+                    found_scalar(&s)
                 ),
             );
             None
@@ -425,7 +428,7 @@ fn date(v: &mut Validator, n: &Node, what: &str) -> Option<time::Date> {
     }
 }
 
-fn time_utc(v: &mut Validator, n: &Node, what: &str) -> Option<String> {
+fn time_utc(v: &mut NodeReader, n: &Node, what: &str) -> Option<String> {
     let s = v.scalar(n, what, "a UTC time YYYY-MM-DDTHH:MM:SSZ")?;
     let s = s.trim().to_string();
     if parse_time_utc(&s).is_some() {
@@ -435,7 +438,7 @@ fn time_utc(v: &mut Validator, n: &Node, what: &str) -> Option<String> {
             Pos::of(n.span()),
             format!(
                 "{what}: expected a UTC time YYYY-MM-DDTHH:MM:SSZ, found {}",
-                raw::found_scalar(&s)
+                found_scalar(&s)
             ),
         );
         None

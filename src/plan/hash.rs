@@ -36,19 +36,9 @@
 //!              "silence_after_s":R,"silence_before_s":R,"start_hz":R,"stop_hz":R}}
 //! ```
 //!
-//! Kind fields (kind names as in the plan; defaults already applied):
-//!
-//! - `response`: `"upper"`, `"lower"`: `{"origin":S,"points":[[R,R],...]}` or `null`
-//!   (`origin` is `"inline"` or the CSV path as written); `"smoothing_fraction"`: I or
-//!   `null`; `"normalize"`: `{"at_hz":R}`, `{"band":{"high_hz":R,"low_hz":R}}` or `null`;
-//! - `sensitivity`: `"band"`, `"max_db"`, `"min_db"`, and `"unit"` (`"db_spl_per_v"` or
-//!   `"db_spl_per_mw"`) only when not the default `db`; `thd`: `"band"`, `"max_percent"`;
-//! - `harmonic`: `"band"`, `"max_db"`, `"order"`; `rub_buzz`: `"band"`, `"max_db"`;
-//! - `polarity`: `"expected"`: `"positive"` or `"negative"`;
-//! - `balance`: `"band"`, `"max_diff_db"`, `"smoothing_fraction"` (I or `null`);
-//! - `listening`: `"band"`, `"duration_s"`, `"level_dbfs"`;
-//!
-//! where `"band"` is `{"high_hz":R,"low_hz":R}`.
+//! Kind fields (kind names as in the plan; defaults already applied) are documented with
+//! each kind, in its file under [`super::checks`] (for example
+//! [`balance`](super::checks::balance)), where `"band"` is `{"high_hz":R,"low_hz":R}`.
 //!
 //! The top-level `"nominal_impedance_ohm":R` is present only when the plan declares it (so
 //! plans without it keep the hash they had before it existed). The top-level
@@ -78,10 +68,8 @@
 //! keeps the hash, changing any value, tap or source parameter changes it. `"canonical"` names this version of the
 //! form; a change to it gets a new name.
 
-use super::{
-    Band, CheckKind, CorrectionSpec, LevelUnit, LimitLine, Normalize, Plan, Polarity, RigSpec,
-    SensitivityUnit,
-};
+use super::checks::canonical_fields;
+use super::{Band, CorrectionSpec, LevelUnit, Plan, RigSpec};
 use crate::acoustics::earphone_file;
 use crate::acoustics::model::CouplerModel;
 use crate::acoustics::source::Source;
@@ -91,8 +79,9 @@ use std::collections::BTreeMap;
 /// Name of this version of the canonical form, written into it.
 pub const CANONICAL_FORM: &str = "tragus-plan/1";
 
-/// A value of the canonical document.
-enum C {
+/// A value of the canonical document (check kinds build theirs with [`real`], [`int`],
+/// [`s`], [`band`], [`fraction`] and [`obj`]).
+pub(in crate::plan) enum C {
     Null,
     Int(i128),
     Real(f64),
@@ -168,45 +157,33 @@ fn correction(c: &CorrectionSpec) -> C {
     ])
 }
 
-fn obj<const N: usize>(fields: [(&'static str, C); N]) -> C {
+/// An object of fixed keys.
+pub(in crate::plan) fn obj<const N: usize>(fields: [(&'static str, C); N]) -> C {
     C::Obj(fields.into_iter().collect())
 }
 
-fn s(text: &str) -> C {
+/// A string.
+pub(in crate::plan) fn s(text: &str) -> C {
     C::Str(text.to_string())
 }
 
-fn real(x: f64) -> C {
+/// A JSON real.
+pub(in crate::plan) fn real(x: f64) -> C {
     C::Real(x)
 }
 
-fn int<T: Into<i128>>(x: T) -> C {
+/// A JSON integer.
+pub(in crate::plan) fn int<T: Into<i128>>(x: T) -> C {
     C::Int(x.into())
 }
 
-fn band(b: &Band) -> C {
+/// A band, `{"high_hz":R,"low_hz":R}`.
+pub(in crate::plan) fn band(b: &Band) -> C {
     obj([("high_hz", real(b.high_hz)), ("low_hz", real(b.low_hz))])
 }
 
-fn limit(l: &Option<LimitLine>) -> C {
-    match l {
-        None => C::Null,
-        Some(l) => obj([
-            ("origin", s(&l.origin)),
-            (
-                "points",
-                C::List(
-                    l.points
-                        .iter()
-                        .map(|(hz, db)| C::List(vec![real(*hz), real(*db)]))
-                        .collect(),
-                ),
-            ),
-        ]),
-    }
-}
-
-fn fraction(f: Option<u32>) -> C {
+/// A fractional-octave smoothing, an integer or `null`.
+pub(in crate::plan) fn fraction(f: Option<u32>) -> C {
     f.map_or(C::Null, int)
 }
 
@@ -277,84 +254,7 @@ fn to_canonical(plan: &Plan) -> C {
                     "channels",
                     C::List(c.channels.iter().map(|n| s(n)).collect()),
                 );
-                match &c.kind {
-                    CheckKind::Response {
-                        upper,
-                        lower,
-                        smoothing_fraction,
-                        normalize,
-                    } => {
-                        m.insert("upper", limit(upper));
-                        m.insert("lower", limit(lower));
-                        m.insert("smoothing_fraction", fraction(*smoothing_fraction));
-                        let n = match normalize {
-                            None => C::Null,
-                            Some(Normalize::AtHz(f)) => obj([("at_hz", real(*f))]),
-                            Some(Normalize::Band(b)) => obj([("band", band(b))]),
-                        };
-                        m.insert("normalize", n);
-                    }
-                    CheckKind::Sensitivity {
-                        band: b,
-                        min_db,
-                        max_db,
-                        unit,
-                    } => {
-                        m.insert("band", band(b));
-                        m.insert("min_db", real(*min_db));
-                        m.insert("max_db", real(*max_db));
-                        // Only when not the default, so plans written before units existed
-                        // keep their hash.
-                        if *unit != SensitivityUnit::Db {
-                            m.insert("unit", s(unit.name()));
-                        }
-                    }
-                    CheckKind::Thd {
-                        band: b,
-                        max_percent,
-                    } => {
-                        m.insert("band", band(b));
-                        m.insert("max_percent", real(*max_percent));
-                    }
-                    CheckKind::Harmonic {
-                        order,
-                        band: b,
-                        max_db,
-                    } => {
-                        m.insert("order", int(*order as u64));
-                        m.insert("band", band(b));
-                        m.insert("max_db", real(*max_db));
-                    }
-                    CheckKind::RubBuzz { band: b, max_db } => {
-                        m.insert("band", band(b));
-                        m.insert("max_db", real(*max_db));
-                    }
-                    CheckKind::Polarity { expected } => {
-                        let e = match expected {
-                            Polarity::Positive => "positive",
-                            Polarity::Negative => "negative",
-                        };
-                        m.insert("expected", s(e));
-                    }
-                    CheckKind::Listening {
-                        band: b,
-                        level_dbfs,
-                        duration_s,
-                    } => {
-                        m.insert("band", band(b));
-                        m.insert("level_dbfs", real(*level_dbfs));
-                        m.insert("duration_s", real(*duration_s));
-                    }
-                    CheckKind::Balance {
-                        band: b,
-                        max_diff_db,
-                        smoothing_fraction,
-                    } => {
-                        m.insert("band", band(b));
-                        m.insert("max_diff_db", real(*max_diff_db));
-                        m.insert("smoothing_fraction", fraction(*smoothing_fraction));
-                    }
-                }
+                m.extend(canonical_fields(&c.kind));
                 C::Obj(m)
             })
             .collect(),

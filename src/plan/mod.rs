@@ -8,16 +8,31 @@
 //! change it. `tragus validate` stops after stage two. A plan's `correction:` section names
 //! coupler model and earphone files; they are loaded and checked in stage two too, and their
 //! problems are reported at their own files' positions.
+//!
+//! The file is read by the project's one loader ([`crate::config::load_file`]). Each plan
+//! section has a file holding its schema and its validation (`stimulus.rs`, `analysis.rs`,
+//! `channels.rs`, `correction.rs`, `product.rs`, `rig.rs`); the check kinds are registered
+//! in [`checks`], one file per kind with its schema, validation and canonical fields.
 
+mod analysis;
+mod channels;
+pub mod checks;
+mod correction;
 pub mod hash;
+mod product;
 pub mod raw;
+mod rig;
+mod stimulus;
 pub mod validate;
 
 use crate::acoustics::model::CouplerModel;
 use crate::acoustics::source::Source;
-use std::fmt;
 use std::path::{Path, PathBuf};
 
+pub use crate::config::{Location, Problem};
+pub use checks::polarity::Polarity;
+pub use checks::response::{LimitLine, Normalize};
+pub use checks::{CheckKind, CheckSpec};
 pub use validate::{load_plan, load_plan_str};
 
 /// Default number of points per octave of the analysis grid.
@@ -224,16 +239,6 @@ pub enum RigSpec {
     Soundcard,
 }
 
-/// A limit line: points (frequency Hz, level dB), frequencies strictly ascending.
-/// Interpolated linearly in log-frequency between points; undefined outside its span.
-#[derive(Debug, Clone, PartialEq)]
-pub struct LimitLine {
-    /// (frequency Hz, level dB) points.
-    pub points: Vec<(f64, f64)>,
-    /// Where the points came from: `inline` or the CSV path as written in the plan.
-    pub origin: String,
-}
-
 /// A frequency band, Hz, low < high.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Band {
@@ -241,111 +246,6 @@ pub struct Band {
     pub low_hz: f64,
     /// Upper edge, Hz.
     pub high_hz: f64,
-}
-
-/// How a response is normalised before it is compared with its limits.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub enum Normalize {
-    /// Subtract the level at this frequency.
-    AtHz(f64),
-    /// Subtract the mean level (dB, averaged on the log grid) over this band.
-    Band(Band),
-}
-
-/// Expected polarity.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum Polarity {
-    /// Positive drive gives positive pressure.
-    Positive,
-    /// Inverted.
-    Negative,
-}
-
-/// One check in the plan.
-#[derive(Debug, Clone, PartialEq)]
-pub struct CheckSpec {
-    /// Check identifier, unique in the plan.
-    pub id: String,
-    /// Channels the check applies to (names; every channel when the plan gave none).
-    pub channels: Vec<String>,
-    /// What is checked.
-    pub kind: CheckKind,
-}
-
-/// The kinds of check.
-#[derive(Debug, Clone, PartialEq)]
-pub enum CheckKind {
-    /// Frequency response between limit lines.
-    Response {
-        /// Upper limit line (at least one of upper/lower is present).
-        upper: Option<LimitLine>,
-        /// Lower limit line.
-        lower: Option<LimitLine>,
-        /// Fractional-octave smoothing, 1/N octave (power domain); `None` for none.
-        smoothing_fraction: Option<u32>,
-        /// Optional normalisation before comparison.
-        normalize: Option<Normalize>,
-    },
-    /// Mean level in a band within `[min_db, max_db]`.
-    Sensitivity {
-        /// Band over which the level is averaged.
-        band: Band,
-        /// Lower limit, dB.
-        min_db: f64,
-        /// Upper limit, dB.
-        max_db: f64,
-        /// What the limits are in.
-        unit: SensitivityUnit,
-    },
-    /// THD (re fundamental, %) below a maximum over a band of excitation frequencies.
-    Thd {
-        /// Band of excitation frequencies.
-        band: Band,
-        /// Upper limit, %.
-        max_percent: f64,
-    },
-    /// One harmonic (HDn re fundamental, dB) below a maximum over a band.
-    Harmonic {
-        /// Harmonic order n ≥ 2.
-        order: usize,
-        /// Band of excitation frequencies.
-        band: Band,
-        /// Upper limit, dB re fundamental.
-        max_db: f64,
-    },
-    /// Rub-and-buzz indicator (dB re fundamental) below a maximum over a band.
-    RubBuzz {
-        /// Band of excitation frequencies.
-        band: Band,
-        /// Upper limit, dB re fundamental.
-        max_db: f64,
-    },
-    /// Polarity equals the expected one.
-    Polarity {
-        /// Expected polarity.
-        expected: Polarity,
-    },
-    /// Level difference between exactly two channels within ±`max_diff_db` over a band.
-    Balance {
-        /// Band over which the difference is checked.
-        band: Band,
-        /// Allowed absolute difference, dB.
-        max_diff_db: f64,
-        /// Fractional-octave smoothing applied to both responses first.
-        smoothing_fraction: Option<u32>,
-    },
-    /// A listening step: a slow sweep over `band` played to the operator, who answers pass
-    /// or fail; its level is capped by its A-weighted level at the reference position and
-    /// counted in the operator's noise dose (hearing safety).
-    Listening {
-        /// Band the listening sweep covers.
-        band: Band,
-        /// Its peak level, dBFS (before any hearing-safety scale-down).
-        level_dbfs: f64,
-        /// Its duration, s.
-        duration_s: f64,
-    },
 }
 
 /// The unit a sensitivity check's limits are written in (`unit:` of the check).
@@ -372,63 +272,6 @@ impl SensitivityUnit {
     }
 }
 
-impl CheckKind {
-    /// True when the check's limits are in dB SPL, so the run needs a calibration.
-    pub fn needs_calibration(&self) -> bool {
-        matches!(
-            self,
-            CheckKind::Sensitivity {
-                unit: SensitivityUnit::DbSplPerV | SensitivityUnit::DbSplPerMw,
-                ..
-            }
-        )
-    }
-
-    /// The kind's name as written in the plan.
-    pub fn name(&self) -> &'static str {
-        match self {
-            CheckKind::Response { .. } => "response",
-            CheckKind::Sensitivity { .. } => "sensitivity",
-            CheckKind::Thd { .. } => "thd",
-            CheckKind::Harmonic { .. } => "harmonic",
-            CheckKind::RubBuzz { .. } => "rub_buzz",
-            CheckKind::Polarity { .. } => "polarity",
-            CheckKind::Balance { .. } => "balance",
-            CheckKind::Listening { .. } => "listening",
-        }
-    }
-}
-
-/// A position in a source file, 1-based line and column.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct Location {
-    /// File path as given by the user.
-    pub path: String,
-    /// 1-based line (0 when unknown).
-    pub line: usize,
-    /// 1-based column (0 when unknown).
-    pub col: usize,
-}
-
-/// One problem found in a plan.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct Problem {
-    /// Where the problem is.
-    pub location: Location,
-    /// What was expected and what was found, lowercase, no trailing period.
-    pub message: String,
-}
-
-impl fmt::Display for Problem {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(
-            f,
-            "{}:{}:{}: {}",
-            self.location.path, self.location.line, self.location.col, self.message
-        )
-    }
-}
-
 /// Every problem found in a plan (never empty), or the file could not be read.
 #[derive(Debug, thiserror::Error)]
 pub enum PlanError {
@@ -443,4 +286,20 @@ pub enum PlanError {
     /// The plan was read but is not valid; one line per problem.
     #[error("{}", .0.iter().map(|p| p.to_string()).collect::<Vec<_>>().join("\n"))]
     Invalid(Vec<Problem>),
+}
+
+impl crate::config::FileError for PlanError {
+    fn unreadable(path: String, source: std::io::Error) -> Self {
+        PlanError::Io { path, source }
+    }
+
+    fn invalid(problems: Vec<Problem>) -> Self {
+        PlanError::Invalid(problems)
+    }
+
+    fn not_utf8(mut problem: Problem, byte: u8) -> Self {
+        // Plans have always named the byte; the other file kinds say "invalid bytes".
+        problem.message = format!("expected UTF-8 text, found byte 0x{byte:02x}");
+        PlanError::Invalid(vec![problem])
+    }
 }

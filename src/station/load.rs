@@ -4,9 +4,11 @@ use super::{
     Caps, ChannelRoute, DriveMonitor, Mode, Station, StationError, StationFixture, StationRig,
     BUFFER_FRAMES_RANGE, CLOCK_DRIFT_RANGE_PPM, DEFAULT_MAX_CLOCK_DRIFT_PPM, MAX_CHANNEL_NUMBER,
 };
-use crate::acoustics::model::{load_model, ModelError, Validator};
-use crate::plan::raw::{self, is_channel_name, is_id, Pos};
-use crate::plan::Problem;
+use crate::acoustics::model::{load_model, ModelError};
+use crate::config::{
+    found, found_scalar, is_channel_name, is_id, parse_tree, sort_problems, suggest, FileError,
+    NodeReader, Pos, Problem,
+};
 use crate::station::audio::SoundcardSpec;
 use marked_yaml::types::MarkedMappingNode;
 use marked_yaml::Node;
@@ -53,25 +55,28 @@ const DRIVE_RANGE_V: (f64, f64) = (0.001, 50.0);
 /// Digital peak levels a cap may name, dBFS.
 const DIGITAL_RANGE_DBFS: (f64, f64) = (-120.0, 0.0);
 
-/// Load and validate a station file; its fixture model is loaded too (its problems are
-/// reported at the model file's own positions).
+/// Load and validate a station file (read by [`crate::config::load_file`]); its fixture
+/// model is loaded too (its problems are reported at the model file's own positions).
 pub fn load_station(path: &Path) -> Result<Station, StationError> {
-    match raw::read_text_file(path) {
-        Ok(text) => load_station_str(&text, path),
-        Err(raw::TextFileError::Io(source)) => Err(StationError::Io {
-            path: path.display().to_string(),
-            source,
-        }),
-        Err(raw::TextFileError::NotUtf8(p)) => Err(StationError::Invalid(vec![p])),
+    crate::config::load_file(path, load_station_str)
+}
+
+impl FileError for StationError {
+    fn unreadable(path: String, source: std::io::Error) -> Self {
+        StationError::Io { path, source }
+    }
+
+    fn invalid(problems: Vec<Problem>) -> Self {
+        StationError::Invalid(problems)
     }
 }
 
 /// Load a station from text; `path` labels problems and anchors relative paths.
 pub fn load_station_str(text: &str, path: &Path) -> Result<Station, StationError> {
     let label = path.display().to_string();
-    let (root, mut problems) = raw::parse_tree(text, &label, "station file");
+    let (root, mut problems) = parse_tree(text, &label, "station file");
     let mut r = Reader {
-        v: Validator::new(
+        v: NodeReader::new(
             label.clone(),
             path.parent().unwrap_or(Path::new(".")).to_path_buf(),
         ),
@@ -82,7 +87,7 @@ pub fn load_station_str(text: &str, path: &Path) -> Result<Station, StationError
         _ => None,
     });
     problems.append(&mut r.v.problems);
-    crate::plan::validate::sort_problems(&mut problems, &label);
+    sort_problems(&mut problems, &label);
     // Problems of the fixture model file come after the station's own, in their file order.
     problems.append(&mut r.extra);
     match station {
@@ -100,7 +105,7 @@ pub fn load_station_str(text: &str, path: &Path) -> Result<Station, StationError
 }
 
 struct Reader {
-    v: Validator,
+    v: NodeReader,
     /// Problems in other files (the fixture model).
     extra: Vec<Problem>,
 }
@@ -132,7 +137,7 @@ impl Reader {
                         format!(
                             "station: expected an id of lowercase letters, digits, `.`, `_` and \
                              `-`, starting with a letter or digit, found {}",
-                            raw::found_scalar(&s)
+                            found_scalar(&s)
                         ),
                     );
                     None
@@ -243,13 +248,13 @@ impl Reader {
         if let Some((_, t)) = names.iter().find(|(k, _)| *k == s) {
             return Some(*t);
         }
-        let hint = match raw::suggest(&s, list.iter().copied()) {
+        let hint = match suggest(&s, list.iter().copied()) {
             Some(x) => format!("did you mean `{x}`?"),
             None => format!("expected one of {}", list.join(", ")),
         };
         self.v.report(
             pos(n),
-            format!("{what}: unknown value {}, {hint}", raw::found_scalar(&s)),
+            format!("{what}: unknown value {}, {hint}", found_scalar(&s)),
         );
         None
     }
@@ -271,7 +276,7 @@ impl Reader {
                     pos(n),
                     format!(
                         "{what}: expected a whole number, found {}",
-                        raw::found_scalar(&text)
+                        found_scalar(&text)
                     ),
                 );
                 None
@@ -315,7 +320,7 @@ impl Reader {
                 format!(
                     "channels: expected a mapping from plan channel names to {{output: N, \
                      input: M}}, found {}",
-                    raw::found(node)
+                    found(node)
                 ),
             );
             return (None, Vec::new());
@@ -332,7 +337,7 @@ impl Reader {
                     format!(
                         "channels: expected a channel name of lowercase letters, digits, `_` \
                          and `-`, found {}",
-                        raw::found_scalar(name)
+                        found_scalar(name)
                     ),
                 );
                 ok = false;
@@ -462,7 +467,7 @@ impl Reader {
                 pos(node),
                 format!(
                     "drive_monitors: expected a list of {{output: N, input: M}}, found {}",
-                    raw::found(node)
+                    found(node)
                 ),
             );
             return None;
@@ -546,7 +551,7 @@ impl Reader {
                 pos(n),
                 format!(
                     "{what}: expected an existing file, found {} ({} does not exist)",
-                    raw::found_scalar(&s),
+                    found_scalar(&s),
                     p.display()
                 ),
             );
@@ -602,7 +607,7 @@ impl Reader {
                         "fixture_tap: expected a tap of {} ({}), found {}",
                         model.id,
                         taps.join(", "),
-                        raw::found_scalar(t)
+                        found_scalar(t)
                     ),
                 );
                 return None;

@@ -185,7 +185,11 @@ fn violations(files: &[(Vec<String>, String)]) -> (Vec<String>, Graph) {
         };
         for path in crate_paths(&code_only(text)) {
             let Some(to) = module_of(&path) else {
-                bad.push(format!("{}: `crate::{}` is in no layer", module.join("::"), path.join("::")));
+                bad.push(format!(
+                    "{}: `crate::{}` is in no layer",
+                    module.join("::"),
+                    path.join("::")
+                ));
                 continue;
             };
             if to.1 > from.1 {
@@ -201,13 +205,19 @@ fn violations(files: &[(Vec<String>, String)]) -> (Vec<String>, Graph) {
             }
             if from.0 != to.0 && !to.0.is_empty() {
                 graph.entry(from.0).or_default().insert(to.0);
-                examples
-                    .entry((from.0, to.0))
-                    .or_insert_with(|| format!("{} → crate::{}", module.join("::"), path.join("::")));
+                examples.entry((from.0, to.0)).or_insert_with(|| {
+                    format!("{} → crate::{}", module.join("::"), path.join("::"))
+                });
             }
         }
     }
-    (bad, Graph { edges: graph, examples })
+    (
+        bad,
+        Graph {
+            edges: graph,
+            examples,
+        },
+    )
 }
 
 /// Imports between modules of the table: who imports whom, and one import for each pair.
@@ -346,7 +356,10 @@ fn the_checker_finds_an_upward_import_and_a_cycle() {
     let (bad, graph) = violations(&files);
     let graph = graph.edges;
     assert_eq!(bad.len(), 1, "{bad:?}");
-    assert!(bad[0].starts_with("dsp::sweep (layer 0, foundation) imports crate::store::Store (layer 4"), "{bad:?}");
+    assert!(
+        bad[0].starts_with("dsp::sweep (layer 0, foundation) imports crate::store::Store (layer 4"),
+        "{bad:?}"
+    );
     assert_eq!(cycles(&graph), vec!["checks ↔ safety".to_string()]);
     assert_eq!(
         crate_paths("use crate::a::{b, c::{d, e}, f};"),
