@@ -6,8 +6,8 @@ use std::hint::black_box;
 use std::path::Path;
 use tragus::acoustics::air::Air;
 use tragus::acoustics::correction::Correction;
-use tragus::acoustics::model::load_model;
 use tragus::acoustics::source::{EarphoneModel, Source};
+use tragus::models::coupler::load_model;
 
 fn freqs() -> Vec<f64> {
     (0..1000)

@@ -5,8 +5,8 @@
 use criterion::{criterion_group, criterion_main, Criterion};
 use std::hint::black_box;
 use std::path::Path;
-use tragus::acoustics::model::load_model;
 use tragus::dsp::sweep::{Stimulus, SweepParams};
+use tragus::models::coupler::load_model;
 use tragus::rig::simulated::{PhysicalPopulation, SimUnit, UnitKind};
 use tragus::rig::Rig;
 

@@ -11,9 +11,6 @@
 //!
 //! independent of p_oc, and for an ideal volume-velocity source (Zs → ∞) `C = Zr·Tr/(Zf·Tf)`.
 //! A response in the reference coupler is `C·(response in the fixture)`.
-use super::air::Air;
-use super::model::CouplerModel as LoadedModel;
-use super::network::evaluate_chain_into;
 use super::source::{Source, SourceError};
 use super::C64;
 use sha2::{Digest, Sha256};
@@ -73,35 +70,6 @@ pub trait CouplerModel {
     fn id(&self) -> String;
     /// Hex SHA-256 of the model's canonical description.
     fn model_hash(&self) -> String;
-}
-
-impl CouplerModel for LoadedModel {
-    fn response(&self, freq_hz: f64, tap: &str) -> Option<(C64, C64)> {
-        let k = self.tap_names().iter().position(|t| *t == tap)?;
-        let air = Air::new(self.temperature_c, self.static_pressure_pa);
-        // A coupler file has a handful of taps; a small buffer per call is far cheaper
-        // than the element evaluations.
-        let mut taps = vec![(C64::new(0.0, 0.0), C64::new(0.0, 0.0)); self.tap_names().len()];
-        let z_in = evaluate_chain_into(&air, &self.chain, &self.termination, freq_hz, &mut taps);
-        Some((z_in, taps[k].1))
-    }
-    fn tap_names(&self) -> Vec<String> {
-        LoadedModel::tap_names(self)
-            .into_iter()
-            .map(str::to_owned)
-            .collect()
-    }
-    fn has_tap(&self, tap: &str) -> bool {
-        LoadedModel::tap_names(self).contains(&tap)
-    }
-    fn id(&self) -> String {
-        self.id.clone()
-    }
-    /// The canonical coupler hash of the file (`tragus-coupler/1`, [`super::model`]): it
-    /// changes exactly when a value of the model does, and not when the file moves.
-    fn model_hash(&self) -> String {
-        self.sha256.clone()
-    }
 }
 
 /// A coupler given as a closure `freq_hz → (Z_in, T)` with a single tap, for models built

@@ -11,19 +11,19 @@
 //! their algebra), [`elements`] (tube, slit, cavity, lumped, leak, side branch),
 //! [`termination`] (rigid, radiating, tabulated, eardrum), [`eardrum`] (Kringlebotn 1988),
 //! [`network`] (a coupler: chain + taps → input impedance and transfer functions),
-//! [`model`] (coupler YAML files), [`source`] (volume-velocity, Thévenin, virtual earphone),
-//! [`earphone_file`] (virtual-earphone YAML files), [`correction`] (fixture → reference).
-//! The correction of a plan's measurements (built once, applied to each) is the stage
-//! [`crate::correction`].
+//! [`source`] (volume-velocity, Thévenin, virtual earphone), [`canonical`] (the hashed
+//! descriptions of elements, terminations and earphones), [`correction`] (fixture →
+//! reference). Physics only: the YAML formats of coupler and earphone models are
+//! [`crate::models`], and the correction of a plan's measurements (built once, applied to
+//! each) is the stage [`crate::correction`].
 
 pub mod air;
 
 pub mod bessel;
+pub mod canonical;
 pub mod correction;
 pub mod eardrum;
-pub mod earphone_file;
 pub mod elements;
-pub mod model;
 pub mod network;
 pub mod source;
 pub mod termination;

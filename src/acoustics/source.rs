@@ -144,10 +144,9 @@ impl Source {
                 }
                 s
             }
-            Source::VirtualEarphone(m) => format!(
-                "virtual-earphone;{}",
-                super::earphone_file::canonical_json(m)
-            ),
+            Source::VirtualEarphone(m) => {
+                format!("virtual-earphone;{}", super::canonical::canonical_json(m))
+            }
         }
     }
 

@@ -1,10 +1,10 @@
 //! Everything built once per plan on a bench, and one capture judged with it.
 
 use super::error::BenchError;
-use crate::acoustics::model::{load_model, CouplerModel, ModelError};
 use crate::analysis::Analyzer;
 use crate::correction::PlanCorrections;
 use crate::dsp::sweep::Stimulus;
+use crate::models::coupler::{load_model, CouplerModel, ModelError};
 use crate::plan::{load_plan, Plan, PlanError};
 use crate::result::{now_utc_rfc3339, CalibrationInfo, PlanInfo, ToolInfo, UnitResult};
 use crate::rig::Capture;

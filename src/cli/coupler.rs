@@ -1,7 +1,7 @@
 //! `tragus coupler MODEL.yaml [--json OUT] [--svg OUT] [--frequencies-hz A,B,C]
 //! [--points-per-octave N]`: input impedance and transfer functions of a coupler model.
 //!
-//! Loads the model ([`crate::acoustics::model`]), evaluates its network
+//! Loads the model ([`crate::models::coupler`]), evaluates its network
 //! ([`crate::acoustics::network::Coupler::evaluate`]) on the IEC 61260-1 base-10 grid
 //! (20 Hz–20 kHz, 24 points per octave unless told otherwise) or on the given frequencies,
 //! and prints a short table at octave points, the docs/architecture.md JSON document, and an SVG plot
@@ -9,9 +9,9 @@
 
 use super::{write_atomic, Exit, JsonOut, EXIT_PASS};
 use crate::acoustics::air::Air;
-use crate::acoustics::model::{load_model, CouplerModel, ModelError};
 use crate::acoustics::C64;
 use crate::dsp::bands::{grid_hz, midband_hz};
+use crate::models::coupler::{load_model, CouplerModel, ModelError};
 use crate::plan::validate::MAX_POINTS_PER_OCTAVE;
 use crate::report::svg::{Panel, Plot, Series};
 use serde::Serialize;

@@ -170,7 +170,7 @@ impl ChannelCorrection {
             .collect();
 
         let identity = corr.identity();
-        let coupler_ref = |m: &crate::acoustics::model::CouplerModel, tap: &str| CouplerRef {
+        let coupler_ref = |m: &crate::models::coupler::CouplerModel, tap: &str| CouplerRef {
             id: m.id.clone(),
             sha256: m.sha256.clone(),
             tap: tap.to_string(),

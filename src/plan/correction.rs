@@ -6,12 +6,12 @@
 use super::raw::{RawPlan, Section};
 use super::validate::Validator;
 use super::CorrectionSpec;
-use crate::acoustics::earphone_file::{load_earphone_str, EarphoneFileError};
-use crate::acoustics::model::{load_model_str, CouplerModel, ModelError};
 use crate::acoustics::source::{parse_thevenin_csv, Source, SourceError};
 use crate::config::{
     found_scalar, is_channel_name, label, read_data_file, suggest, Location, Pos, Problem,
 };
+use crate::models::coupler::{load_model_str, CouplerModel, ModelError};
+use crate::models::earphone::{load_earphone_str, EarphoneFileError};
 use marked_yaml::Spanned;
 use serde::de::Visitor;
 use serde::{Deserialize, Deserializer};

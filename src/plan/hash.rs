@@ -61,18 +61,18 @@
 //! ```
 //!
 //! `sha256` is the coupler model's canonical hash (`tragus-coupler/1`, documented in
-//! [`crate::acoustics::model`]; `tragus coupler MODEL --json` prints it as `model_sha256`),
+//! [`crate::models::coupler`]; `tragus coupler MODEL --json` prints it as `model_sha256`),
 //! the Thévenin points are the table's values, and `EARPHONE` is the earphone file's
-//! canonical form (`tragus-earphone/1`, [`crate::acoustics::earphone_file`]). Files enter
+//! canonical form (`tragus-earphone/1`, [`crate::models::earphone`]). Files enter
 //! by their content, never by their path: copying a model elsewhere with the same content
 //! keeps the hash, changing any value, tap or source parameter changes it. `"canonical"` names this version of the
 //! form; a change to it gets a new name.
 
 use super::checks::canonical_fields;
 use super::{Band, CorrectionSpec, LevelUnit, Plan, RigSpec};
-use crate::acoustics::earphone_file;
-use crate::acoustics::model::CouplerModel;
 use crate::acoustics::source::Source;
+use crate::models::coupler::CouplerModel;
+use crate::models::earphone;
 use sha2::{Digest, Sha256};
 use std::collections::BTreeMap;
 
@@ -142,10 +142,9 @@ fn source(src: &Source) -> C {
                 ),
             ),
         ]),
-        Source::VirtualEarphone(m) => obj([
-            ("earphone", from_json(&earphone_file::canonical_value(m))),
-            kind,
-        ]),
+        Source::VirtualEarphone(m) => {
+            obj([("earphone", from_json(&earphone::canonical_value(m))), kind])
+        }
     }
 }
 

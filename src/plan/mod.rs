@@ -25,8 +25,8 @@ mod rig;
 mod stimulus;
 pub mod validate;
 
-use crate::acoustics::model::CouplerModel;
 use crate::acoustics::source::Source;
+use crate::models::coupler::CouplerModel;
 use std::path::{Path, PathBuf};
 
 pub use crate::config::{Location, Problem};

@@ -4,11 +4,11 @@ use super::{
     Caps, ChannelRoute, DriveMonitor, Mode, Station, StationError, StationFixture, StationRig,
     BUFFER_FRAMES_RANGE, CLOCK_DRIFT_RANGE_PPM, DEFAULT_MAX_CLOCK_DRIFT_PPM, MAX_CHANNEL_NUMBER,
 };
-use crate::acoustics::model::{load_model, ModelError};
 use crate::config::{
     found, found_scalar, is_channel_name, is_id, parse_tree, sort_problems, suggest, FileError,
     NodeReader, Pos, Problem,
 };
+use crate::models::coupler::{load_model, ModelError};
 use crate::station::audio::SoundcardSpec;
 use marked_yaml::types::MarkedMappingNode;
 use marked_yaml::Node;

@@ -65,7 +65,7 @@ mod load;
 
 pub use load::{load_station, load_station_str};
 
-use crate::acoustics::model::CouplerModel;
+use crate::models::coupler::CouplerModel;
 use crate::plan::{Plan, Problem};
 use crate::station::audio::SoundcardSpec;
 use std::path::PathBuf;

@@ -20,13 +20,13 @@ fn messages(path: &Path) -> Vec<(&'static str, String)> {
         ),
         (
             "coupler model",
-            tragus::acoustics::model::load_model(path)
+            tragus::models::coupler::load_model(path)
                 .unwrap_err()
                 .to_string(),
         ),
         (
             "earphone file",
-            tragus::acoustics::earphone_file::load_earphone(path)
+            tragus::models::earphone::load_earphone(path)
                 .unwrap_err()
                 .to_string(),
         ),
@@ -219,8 +219,8 @@ fn a_symbolic_link_to_a_regular_file_is_followed() {
     let link = dir.path().join("model.yaml");
     let target = std::fs::canonicalize("tests/data/couplers/closed-tube-25mm.yaml").unwrap();
     std::os::unix::fs::symlink(&target, &link).unwrap();
-    let via_link = tragus::acoustics::model::load_model(&link).unwrap();
-    let direct = tragus::acoustics::model::load_model(&target).unwrap();
+    let via_link = tragus::models::coupler::load_model(&link).unwrap();
+    let direct = tragus::models::coupler::load_model(&target).unwrap();
     assert_eq!(via_link.sha256, direct.sha256);
 }
 

@@ -10,10 +10,10 @@ use source_support::*;
 use std::path::{Path, PathBuf};
 use tragus::acoustics::air::Air;
 use tragus::acoustics::correction::Correction;
-use tragus::acoustics::model::{load_model, CouplerModel};
 use tragus::acoustics::network::ChainItem;
 use tragus::acoustics::source::{EarphoneModel, Source};
 use tragus::acoustics::twoport::TwoPort;
+use tragus::models::coupler::{load_model, CouplerModel};
 
 fn model_path(name: &str) -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR"))

@@ -1,6 +1,6 @@
 //! Rules a coupler model file must obey beyond its schema.
 use std::path::Path;
-use tragus::acoustics::model::{load_model_str, ModelError};
+use tragus::models::coupler::{load_model_str, ModelError};
 
 // A rigid wall behind series elements only admits no flow: the input impedance is
 // infinite at every frequency (Kirchhoff: U = 0 through every series element into U = 0).
@@ -72,10 +72,10 @@ fn files_that_are_not_utf8_are_refused_at_the_bad_byte() {
         path.display()
     );
     let messages = [
-        tragus::acoustics::model::load_model(&path)
+        tragus::models::coupler::load_model(&path)
             .unwrap_err()
             .to_string(),
-        tragus::acoustics::earphone_file::load_earphone(&path)
+        tragus::models::earphone::load_earphone(&path)
             .unwrap_err()
             .to_string(),
         tragus::station::load_station(&path)

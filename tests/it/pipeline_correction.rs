@@ -12,7 +12,6 @@ use source_support::{cavity_admittance, direct_node_pressures, lossless_tube, om
 use std::path::PathBuf;
 use tragus::acoustics::air::Air;
 use tragus::acoustics::correction::Correction;
-use tragus::acoustics::earphone_file::load_earphone;
 use tragus::acoustics::source::EarphoneModel;
 use tragus::acoustics::twoport::TwoPort;
 use tragus::acoustics::C64;
@@ -20,6 +19,7 @@ use tragus::analysis::Analyzer;
 use tragus::correction::ChannelCorrection;
 use tragus::dsp::bands::OCTAVE_RATIO_G;
 use tragus::dsp::sweep::Stimulus;
+use tragus::models::earphone::load_earphone;
 use tragus::plan::load_plan;
 use tragus::rig::simulated::{PolynomialDut, SimulatedRig};
 use tragus::rig::Rig;
@@ -265,7 +265,7 @@ fn fine_spectrum_interpolation_error_is_below_a_thousandth_db() {
     let mut spec = plan.channels[0].correction.clone().unwrap();
     for fixture in ["fixture-line3-a.yaml", "fixture-line3-b.yaml"] {
         spec.fixture =
-            tragus::acoustics::model::load_model(&root().join("reference/couplers").join(fixture))
+            tragus::models::coupler::load_model(&root().join("reference/couplers").join(fixture))
                 .unwrap();
         let started = std::time::Instant::now();
         let table = ChannelCorrection::new(&spec, &analyzer).unwrap();

@@ -8,13 +8,13 @@ use std::path::Path;
 use std::sync::Arc;
 use tragus::acoustics::air::Air;
 use tragus::acoustics::elements::{Element, TubeLoss};
-use tragus::acoustics::model::load_model;
 use tragus::acoustics::network::{ChainItem, Coupler};
 use tragus::acoustics::source::EarphoneModel;
 use tragus::acoustics::termination::Termination;
 use tragus::acoustics::C64;
 use tragus::analysis::Analyzer;
 use tragus::dsp::sweep::Stimulus;
+use tragus::models::coupler::load_model;
 use tragus::plan::{load_plan, Polarity};
 use tragus::rig::simulated::population::{
     BLOCKED_DAMPER_FACTOR, CLIPPING_DRIVE_FACTOR, WEAK_MOTOR_FACTOR,

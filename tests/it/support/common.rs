@@ -171,7 +171,7 @@ pub fn demo_physical_rig(
     serial: &str,
     kind: tragus::rig::simulated::UnitKind,
 ) -> tragus::rig::simulated::SimulatedRig {
-    let fixture = tragus::acoustics::model::load_model(
+    let fixture = tragus::models::coupler::load_model(
         &root().join("reference/couplers/fixture-line3-a.yaml"),
     )
     .unwrap()

@@ -61,11 +61,12 @@
 //! Loss names are `zwikker_kosten`, `keefe`, `lossless`. A tabulated termination enters by
 //! its points, so an edit of the CSV changes the hash and moving the file does not.
 
-use super::air::Air;
-use super::elements::{Element, TubeLoss};
-use super::network::{ChainItem, Coupler};
-use super::termination::Termination;
-use super::C64;
+use crate::acoustics::air::Air;
+use crate::acoustics::canonical::{element_value, real, termination_value};
+use crate::acoustics::elements::{Element, TubeLoss};
+use crate::acoustics::network::{evaluate_chain_into, ChainItem, Coupler};
+use crate::acoustics::termination::Termination;
+use crate::acoustics::C64;
 use crate::config::{
     found, found_scalar, is_channel_name, is_id, parse_tree, read_data_file, show_text,
     sort_problems, suggest, FileError, Location, NodeReader, Pos, Problem,
@@ -905,72 +906,6 @@ pub fn parse_impedance_csv(text: &str, path: &str) -> (Vec<(f64, C64)>, Vec<Prob
     (points, problems)
 }
 
-pub(crate) fn loss_name(loss: TubeLoss) -> &'static str {
-    match loss {
-        TubeLoss::ZwikkerKosten => "zwikker_kosten",
-        TubeLoss::Keefe => "keefe",
-        TubeLoss::Lossless => "lossless",
-    }
-}
-
-/// serde_json 1 writes `-0.0` as `-0.0`; the canonical form writes it as `0.0`.
-pub(crate) fn real(x: f64) -> Value {
-    json!(if x == 0.0 { 0.0 } else { x })
-}
-
-pub(crate) fn element_value(e: &Element) -> Value {
-    // Keys written in sorted order, so the document is canonical whether or not
-    // serde_json keeps insertion order.
-    match e {
-        Element::Tube {
-            length_m,
-            radius_m,
-            loss,
-        } => {
-            json!({"tube": {"length_m": real(*length_m), "loss": loss_name(*loss), "radius_m": real(*radius_m)}})
-        }
-        Element::Slit {
-            length_m,
-            width_m,
-            gap_m,
-        } => {
-            json!({"slit": {"gap_m": real(*gap_m), "length_m": real(*length_m), "width_m": real(*width_m)}})
-        }
-        Element::Cavity { volume_m3 } => json!({"cavity": {"volume_m3": real(*volume_m3)}}),
-        Element::Series {
-            resistance_pa_s_m3,
-            inertance_kg_m4,
-            compliance_m3_pa,
-        } => json!({"series": {
-            "compliance_m3_pa": compliance_m3_pa.map(real),
-            "inertance_kg_m4": real(*inertance_kg_m4),
-            "resistance_pa_s_m3": real(*resistance_pa_s_m3)}}),
-        Element::Branch {
-            elements,
-            termination,
-        } => json!({"branch": {
-            "elements": elements.iter().map(element_value).collect::<Vec<_>>(),
-            "termination": termination_value(termination)}}),
-    }
-}
-
-fn termination_value(t: &Termination) -> Value {
-    match t {
-        Termination::Rigid => json!("rigid"),
-        Termination::Eardrum => json!("eardrum_kringlebotn_1988"),
-        Termination::OpenBaffled { radius_m } => {
-            json!({"open_baffled": {"radius_m": real(*radius_m)}})
-        }
-        Termination::OpenUnbaffled { radius_m } => {
-            json!({"open_unbaffled": {"radius_m": real(*radius_m)}})
-        }
-        Termination::Table { points } => json!({"table": points
-            .iter()
-            .map(|(f, z)| json!([real(*f), real(z.re), real(z.im)]))
-            .collect::<Vec<_>>()}),
-    }
-}
-
 /// The canonical JSON text of a model (module doc).
 pub fn canonical_json(model: &CouplerModel) -> String {
     let chain: Vec<Value> = model
@@ -996,4 +931,34 @@ pub fn canonical_json(model: &CouplerModel) -> String {
 /// Lowercase hex SHA-256 of [`canonical_json`].
 pub fn model_sha256(model: &CouplerModel) -> String {
     hex::encode(Sha256::digest(canonical_json(model).as_bytes()))
+}
+
+/// A coupler file is a coupler for the correction: evaluated on its own air.
+impl crate::acoustics::correction::CouplerModel for CouplerModel {
+    fn response(&self, freq_hz: f64, tap: &str) -> Option<(C64, C64)> {
+        let k = self.tap_names().iter().position(|t| *t == tap)?;
+        let air = Air::new(self.temperature_c, self.static_pressure_pa);
+        // A coupler file has a handful of taps; a small buffer per call is far cheaper
+        // than the element evaluations.
+        let mut taps = vec![(C64::new(0.0, 0.0), C64::new(0.0, 0.0)); self.tap_names().len()];
+        let z_in = evaluate_chain_into(&air, &self.chain, &self.termination, freq_hz, &mut taps);
+        Some((z_in, taps[k].1))
+    }
+    fn tap_names(&self) -> Vec<String> {
+        CouplerModel::tap_names(self)
+            .into_iter()
+            .map(str::to_owned)
+            .collect()
+    }
+    fn has_tap(&self, tap: &str) -> bool {
+        CouplerModel::tap_names(self).contains(&tap)
+    }
+    fn id(&self) -> String {
+        self.id.clone()
+    }
+    /// The canonical coupler hash of the file (`tragus-coupler/1`, this module): it
+    /// changes exactly when a value of the model does, and not when the file moves.
+    fn model_hash(&self) -> String {
+        self.sha256.clone()
+    }
 }

@@ -1,6 +1,6 @@
 //! Virtual-earphone parameter files: the YAML form of an [`EarphoneModel`].
 //!
-//! Sits beside the coupler model files ([`super::model`]): a plan's `correction:` names one
+//! Sits beside the coupler model files ([`super::coupler`]): a plan's `correction:` names one
 //! as its source (`source: {virtual_earphone: FILE}`), and the fixture→reference correction
 //! needs the source impedance it gives. Every problem is reported at once as
 //! `PATH:LINE:COL: message`, with the same YAML guards as plans
@@ -37,7 +37,7 @@
 //! # Canonical form (part of the plan hash and of the correction identity)
 //!
 //! Compact JSON, keys sorted, numbers as serde_json 1 writes an `f64`, `-0.0` as `0.0` (the
-//! conventions of [`crate::plan::hash`] and [`super::model`]), over the SI fields:
+//! conventions of [`crate::plan::hash`] and [`super::coupler`]), over the SI fields:
 //!
 //! ```text
 //! {"bl_t_m":R,"canonical":"tragus-earphone/1","cms_m_per_n":R,"damper_inertance_kg_m4":R,
@@ -49,25 +49,23 @@
 //! with `ITEM` the coupler form of a tube or slit (`{"tube":{"length_m":R,"loss":S,
 //! "radius_m":R}}`, `{"slit":{"gap_m":R,"length_m":R,"width_m":R}}`).
 
-use super::air::Air;
-use super::elements::{Element, TubeLoss};
-use super::model::{
-    element_value, item, loss, loss_name, real, ChainCtx, DEFAULT_STATIC_PRESSURE_PA,
-    DEFAULT_TEMPERATURE_C, STATIC_PRESSURE_RANGE_PA, TEMPERATURE_RANGE_C,
+use super::coupler::{
+    item, loss, ChainCtx, DEFAULT_STATIC_PRESSURE_PA, DEFAULT_TEMPERATURE_C,
+    STATIC_PRESSURE_RANGE_PA, TEMPERATURE_RANGE_C,
 };
-use super::network::ChainItem;
-use super::source::EarphoneModel;
+use crate::acoustics::air::Air;
+use crate::acoustics::elements::{Element, TubeLoss};
+use crate::acoustics::network::ChainItem;
+use crate::acoustics::source::EarphoneModel;
 use crate::config::{
     found, found_scalar, is_id, parse_tree, show_text, sort_problems, FileError, NodeReader, Pos,
     Problem,
 };
 use marked_yaml::types::MarkedMappingNode;
 use marked_yaml::Node;
-use serde_json::{json, Value};
 use std::path::Path;
 
-/// Name of this version of the canonical form.
-pub const CANONICAL_FORM: &str = "tragus-earphone/1";
+pub use crate::acoustics::canonical::EARPHONE_CANONICAL_FORM as CANONICAL_FORM;
 
 const TOP_KEYS: [&str; 16] = [
     "earphone",
@@ -334,31 +332,4 @@ fn damper(v: &mut NodeReader, n: &Node) -> Option<(f64, f64)> {
     Some((r?, m?))
 }
 
-/// The canonical form of an earphone model (module doc) as a JSON value.
-pub fn canonical_value(m: &EarphoneModel) -> Value {
-    json!({
-        "bl_t_m": real(m.bl_t_m),
-        "canonical": CANONICAL_FORM,
-        "cms_m_per_n": real(m.cms_m_per_n),
-        "damper_inertance_kg_m4": real(m.damper_inertance_kg_m4),
-        "damper_resistance_pa_s_m3": real(m.damper_resistance_pa_s_m3),
-        "front_volume_m3": real(m.front_volume_m3),
-        "le_h": real(m.le_h),
-        "mms_kg": real(m.mms_kg),
-        "outlet_length_m": real(m.outlet_length_m),
-        "outlet_loss": loss_name(m.outlet_loss),
-        "outlet_radius_m": real(m.outlet_radius_m),
-        "re_ohm": real(m.re_ohm),
-        "rear_vent": element_value(&m.rear_vent),
-        "rear_volume_m3": real(m.rear_volume_m3),
-        "rms_n_s_per_m": real(m.rms_n_s_per_m),
-        "sd_m2": real(m.sd_m2),
-        "static_pressure_pa": real(m.air.static_pressure_pa),
-        "temperature_c": real(m.air.temperature_c),
-    })
-}
-
-/// The canonical JSON text of an earphone model.
-pub fn canonical_json(m: &EarphoneModel) -> String {
-    canonical_value(m).to_string()
-}
+pub use crate::acoustics::canonical::{canonical_json, canonical_value};
