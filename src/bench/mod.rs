@@ -17,7 +17,6 @@ pub use error::{BenchError, Cause, ErrorKind};
 pub use prepare::{load, load_coupler, load_station, Prepared};
 
 use crate::calibration::policy::{self, CalibrationSource};
-use crate::plan::RigSpec;
 use crate::rig::simulated::{SimUnit, SimulatedRig, UnitKind};
 use crate::rig::Rig;
 use crate::safety::event::SafetyEvent;
@@ -137,13 +136,10 @@ impl Bench {
     /// (when `record_refusals`) and returned as [`BenchError::Refused`].
     pub fn new(o: BenchOptions) -> Result<Bench, BenchError> {
         let mut prep = Prepared::on_station(o.plan, o.station, o.fixture)?;
-        let rig = o.rig.unwrap_or(match o.station.map(|s| s.rig) {
-            Some(kind) => kind,
-            None => match prep.plan.rig {
-                RigSpec::Simulated { .. } => RigKind::Simulated,
-                RigSpec::Soundcard => RigKind::Soundcard,
-            },
-        });
+        let rig = o
+            .rig
+            .or(o.station.map(|s| s.rig))
+            .unwrap_or(prep.plan.rig.kind());
         let calibration = match (
             o.calibration,
             o.station.and_then(|s| s.calibration.as_deref()),
@@ -217,10 +213,7 @@ impl Bench {
                 crate::rig::SOUNDCARD_NOT_BUILT
             )));
         }
-        let seed = match prep.plan.rig {
-            RigSpec::Simulated { seed } => seed,
-            RigSpec::Soundcard => 1,
-        };
+        let seed = prep.plan.rig.seed();
         Ok(Bench {
             prep,
             store,

@@ -33,6 +33,7 @@ pub use crate::config::{Location, Problem};
 pub use checks::polarity::Polarity;
 pub use checks::response::{LimitLine, Normalize};
 pub use checks::{CheckKind, CheckSpec};
+pub use rig::RigKind;
 pub use validate::{load_plan, load_plan_str};
 
 /// Default number of points per octave of the analysis grid.

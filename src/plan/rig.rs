@@ -8,6 +8,62 @@ use crate::config::{found_scalar, suggest, Pos};
 use marked_yaml::Spanned;
 use serde::Deserialize;
 
+/// Which kind of rig plays a plan: the one enum for the choice, whether it comes from the
+/// plan's `rig:`, the station file's `rig:` or the command line's `--rig`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum RigKind {
+    /// The simulated earphone and fixture (no hardware).
+    Simulated,
+    /// A sound card (the station's `audio:` settings).
+    Soundcard,
+}
+
+impl RigKind {
+    /// Every kind, with its word in plans, station files and on the command line.
+    pub const ALL: [(RigKind, &'static str); 2] = [
+        (RigKind::Simulated, "simulated"),
+        (RigKind::Soundcard, "soundcard"),
+    ];
+
+    /// The word for this kind (`simulated`, `soundcard`).
+    pub fn word(self) -> &'static str {
+        match self {
+            RigKind::Simulated => "simulated",
+            RigKind::Soundcard => "soundcard",
+        }
+    }
+}
+
+impl std::str::FromStr for RigKind {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        RigKind::ALL
+            .iter()
+            .find(|(_, w)| *w == s)
+            .map(|(k, _)| *k)
+            .ok_or_else(|| format!("expected simulated or soundcard, found `{s}`"))
+    }
+}
+
+impl RigSpec {
+    /// The kind of rig the plan names.
+    pub fn kind(&self) -> RigKind {
+        match self {
+            RigSpec::Simulated { .. } => RigKind::Simulated,
+            RigSpec::Soundcard => RigKind::Soundcard,
+        }
+    }
+
+    /// The simulated population's seed ([`DEFAULT_RIG_SEED`] for a sound card, which has
+    /// none).
+    pub fn seed(&self) -> u64 {
+        match self {
+            RigSpec::Simulated { seed } => *seed,
+            RigSpec::Soundcard => DEFAULT_RIG_SEED,
+        }
+    }
+}
+
 /// Default seed of the simulated rig.
 pub const DEFAULT_RIG_SEED: u64 = 1;
 

@@ -1,7 +1,7 @@
 //! Reading a station file: YAML node tree → checks at each node → [`Station`].
 
 use super::{
-    Caps, ChannelRoute, DriveMonitor, Mode, Station, StationError, StationFixture, StationRig,
+    Caps, ChannelRoute, DriveMonitor, Mode, RigKind, Station, StationError, StationFixture,
     BUFFER_FRAMES_RANGE, CLOCK_DRIFT_RANGE_PPM, DEFAULT_MAX_CLOCK_DRIFT_PPM, MAX_CHANNEL_NUMBER,
 };
 use crate::config::{
@@ -160,13 +160,13 @@ impl Reader {
             ),
         };
         let rig = match top.get_node("rig") {
-            None => Some(StationRig::Simulated),
+            None => Some(RigKind::Simulated),
             Some(n) => self.choice(
                 n,
                 "rig",
                 &[
-                    ("simulated", StationRig::Simulated),
-                    ("soundcard", StationRig::Soundcard),
+                    ("simulated", RigKind::Simulated),
+                    ("soundcard", RigKind::Soundcard),
                 ],
             ),
         };

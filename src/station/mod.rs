@@ -101,45 +101,7 @@ impl Mode {
     }
 }
 
-/// Which kind of rig plays a plan: the one enum for the choice, whether it comes from the
-/// plan's `rig:`, the station file's `rig:` or the command line's `--rig`.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum RigKind {
-    /// The simulated earphone and fixture (no hardware).
-    Simulated,
-    /// A sound card (the station's `audio:` settings).
-    Soundcard,
-}
-
-impl RigKind {
-    /// Every kind, with its word in plans, station files and on the command line.
-    pub const ALL: [(RigKind, &'static str); 2] = [
-        (RigKind::Simulated, "simulated"),
-        (RigKind::Soundcard, "soundcard"),
-    ];
-
-    /// The word for this kind (`simulated`, `soundcard`).
-    pub fn word(self) -> &'static str {
-        match self {
-            RigKind::Simulated => "simulated",
-            RigKind::Soundcard => "soundcard",
-        }
-    }
-}
-
-impl std::str::FromStr for RigKind {
-    type Err = String;
-    fn from_str(s: &str) -> Result<Self, Self::Err> {
-        RigKind::ALL
-            .iter()
-            .find(|(_, w)| *w == s)
-            .map(|(k, _)| *k)
-            .ok_or_else(|| format!("expected simulated or soundcard, found `{s}`"))
-    }
-}
-
-/// The station file's rig (the same enum as every other rig choice).
-pub type StationRig = RigKind;
+pub use crate::plan::RigKind;
 
 /// Device channels of one plan channel, 0-based.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -231,7 +193,7 @@ pub struct Station {
     /// Production or engineering.
     pub mode: Mode,
     /// Which rig plays the plan.
-    pub rig: StationRig,
+    pub rig: RigKind,
     /// Audio host, devices, buffer and loopback (0-based channels).
     pub soundcard: SoundcardSpec,
     /// Plan channel → device channels; empty = use the plan's numbers.

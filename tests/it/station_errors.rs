@@ -7,7 +7,7 @@ use crate::support::common;
 
 use common::*;
 use std::path::{Path, PathBuf};
-use tragus::station::{load_station_str, Mode, StationError, StationRig};
+use tragus::station::{load_station_str, Mode, RigKind, StationError};
 
 /// 1-based (line, column) of the first occurrence of `needle` in `text`, in characters.
 fn at(text: &str, needle: &str) -> (usize, usize) {
@@ -200,7 +200,7 @@ fn the_examples_load_with_documented_defaults() {
         let path = station_path(name);
         let st = tragus::station::load_station(&path).unwrap_or_else(|e| panic!("{name}: {e}"));
         assert_eq!(st.mode, Mode::Engineering);
-        assert_eq!(st.rig, StationRig::Simulated);
+        assert_eq!(st.rig, RigKind::Simulated);
         // 1-based in the file, 0-based in the SoundcardSpec contract (issue 4 common brief).
         if name == "line3-st1.yaml" {
             assert_eq!(st.soundcard.loopback_input, Some(2));
