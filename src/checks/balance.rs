@@ -84,3 +84,15 @@ pub fn judge_curves(
         ),
     )
 }
+
+/// This kind's judge in the registry's dispatch ([`super`]) for one channel: a balance
+/// compares two channels, which [`super::judge_checks`] hands to [`judge`]; on one it cannot
+/// be judged. `None` for another kind.
+pub fn judge_kind(
+    kind: &crate::plan::CheckKind,
+    _m: &ChannelMeasurement,
+    _nominal_impedance_ohm: Option<f64>,
+) -> Option<Finding> {
+    matches!(kind, crate::plan::CheckKind::Balance { .. })
+        .then(|| Finding::retest("balance compares two channels and cannot be judged on one"))
+}

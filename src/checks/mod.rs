@@ -18,13 +18,32 @@
 //!
 //! The unit verdict is made in [`verdict`].
 
-pub mod balance;
 pub mod distortion;
 pub mod limit_line;
-pub mod polarity;
-pub mod response;
-pub mod sensitivity;
 pub mod verdict;
+
+/// Declares the judging module of every check kind and the dispatch over them, from the one
+/// list in the plan's registry ([`crate::for_each_check_kind`]).
+macro_rules! judge_modules {
+    ($($kind:ident),*) => {
+        $(pub mod $kind;)*
+
+        /// The finding of the kind's own judge (each returns `None` for another kind).
+        fn dispatch(
+            kind: &CheckKind,
+            m: &ChannelMeasurement,
+            nominal_impedance_ohm: Option<f64>,
+        ) -> Finding {
+            $(
+                if let Some(f) = $kind::judge_kind(kind, m, nominal_impedance_ohm) {
+                    return f;
+                }
+            )*
+            Finding::retest(format!("no judge for check kind `{}`", kind.name()))
+        }
+    };
+}
+crate::for_each_check_kind!(judge_modules);
 
 use crate::analysis::ChannelMeasurement;
 use crate::plan::{Band, CheckKind, CheckSpec, Plan};
@@ -202,40 +221,7 @@ fn judge_channel(
     if let Some(f) = invalid_measurement(m) {
         return f;
     }
-    match kind {
-        CheckKind::Response {
-            upper,
-            lower,
-            smoothing_fraction,
-            normalize,
-        } => response::judge(
-            m,
-            upper.as_ref(),
-            lower.as_ref(),
-            *smoothing_fraction,
-            *normalize,
-        ),
-        CheckKind::Sensitivity {
-            band,
-            min_db,
-            max_db,
-            unit,
-        } => sensitivity::judge_in(m, *band, *min_db, *max_db, *unit, nominal_impedance_ohm),
-        CheckKind::Thd { band, max_percent } => distortion::judge_thd(m, *band, *max_percent),
-        CheckKind::Harmonic {
-            order,
-            band,
-            max_db,
-        } => distortion::judge_harmonic(m, *order, *band, *max_db),
-        CheckKind::RubBuzz { band, max_db } => distortion::judge_rub_buzz(m, *band, *max_db),
-        CheckKind::Polarity { expected } => polarity::judge(m, *expected),
-        CheckKind::Balance { .. } => {
-            Finding::retest("balance compares two channels and cannot be judged on one")
-        }
-        CheckKind::Listening { .. } => {
-            Finding::retest("a listening step is judged by the operator, not by the analysis")
-        }
-    }
+    dispatch(kind, m, nominal_impedance_ohm)
 }
 
 /// The channels a check applies to, in plan channel order: the check's own list, or every

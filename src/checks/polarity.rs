@@ -27,3 +27,16 @@ pub fn judge(m: &ChannelMeasurement, expected: Polarity) -> Finding {
         detail: format!("polarity {}, expected {}", word(m.polarity), word(expected)),
     }
 }
+
+/// This kind's judge in the registry's dispatch ([`super`]): `None` for another kind.
+pub fn judge_kind(
+    kind: &crate::plan::CheckKind,
+    m: &ChannelMeasurement,
+    _nominal_impedance_ohm: Option<f64>,
+) -> Option<Finding> {
+    use crate::plan::CheckKind;
+    let CheckKind::Polarity { expected } = kind else {
+        return None;
+    };
+    Some(judge(m, *expected))
+}

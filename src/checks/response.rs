@@ -201,6 +201,30 @@ pub fn judge_curve(
     Finding::judged(w.margin_db, Some(w.freq_hz), detail)
 }
 
+/// This kind's judge in the registry's dispatch ([`super`]): `None` for another kind.
+pub fn judge_kind(
+    kind: &crate::plan::CheckKind,
+    m: &ChannelMeasurement,
+    _nominal_impedance_ohm: Option<f64>,
+) -> Option<Finding> {
+    use crate::plan::CheckKind;
+    let CheckKind::Response {
+        upper,
+        lower,
+        smoothing_fraction,
+        normalize,
+    } = kind else {
+        return None;
+    };
+    Some(judge(
+        m,
+        upper.as_ref(),
+        lower.as_ref(),
+        *smoothing_fraction,
+        *normalize,
+    ))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -92,3 +92,21 @@ pub fn judge_curve(
         ),
     )
 }
+
+/// This kind's judge in the registry's dispatch ([`super`]): `None` for another kind.
+pub fn judge_kind(
+    kind: &crate::plan::CheckKind,
+    m: &ChannelMeasurement,
+    nominal_impedance_ohm: Option<f64>,
+) -> Option<Finding> {
+    use crate::plan::CheckKind;
+    let CheckKind::Sensitivity {
+        band,
+        min_db,
+        max_db,
+        unit,
+    } = kind else {
+        return None;
+    };
+    Some(judge_in(m, *band, *min_db, *max_db, *unit, nominal_impedance_ohm))
+}

@@ -18,12 +18,14 @@
 //! 1. `src/plan/checks/<kind>.rs`: a unit struct implementing `Kind` (name, keys, schema,
 //!    validation, canonical fields); the module doc gives its YAML and canonical fields.
 //! 2. This file, the registry: `pub mod <kind>;`, the [`CheckKind`] variant (typed, units
-//!    in field names) and its name in [`CheckKind::name`], its line in `KINDS`, and a
-//!    sample of the variant in the test below (it counts them).
-//! 3. `src/checks/<kind>.rs`: judging; `src/checks/mod.rs`: `pub mod <kind>;` and its arm
-//!    in `judge_channel`, which matches every kind.
-//! 4. `tests/reference/plan_canonical.py`: its canonical fields, for the independent hash;
-//!    tests of its validation messages and its judging.
+//!    in field names) and its name in [`CheckKind::name`], its line in `KINDS`, its module
+//!    name in `for_each_check_kind!`, and a sample of the variant in the test below (it
+//!    counts them).
+//! 3. `src/checks/<kind>.rs`: judging, with `pub fn judge_kind(kind, measurement,
+//!    nominal_impedance_ohm) -> Option<Finding>` (`None` for another kind); the judging side
+//!    declares the module and dispatches to it from `for_each_check_kind!`.
+//! 4. Not source: `tests/reference/plan_canonical.py` (its canonical fields, for the
+//!    independent hash) and tests of its validation messages and its judging.
 
 pub mod balance;
 pub mod harmonic;
@@ -160,6 +162,25 @@ impl CheckKind {
             CheckKind::Listening { .. } => "listening",
         }
     }
+}
+
+/// Calls `$callback!` with the module name of every check kind, in registry order: the one
+/// list from which the judging side ([`crate::checks`]) declares its `<kind>` modules and
+/// dispatches to their `judge_kind`, so that a new kind is registered in this file only.
+#[macro_export]
+macro_rules! for_each_check_kind {
+    ($callback:ident) => {
+        $callback!(
+            response,
+            sensitivity,
+            thd,
+            harmonic,
+            rub_buzz,
+            polarity,
+            balance,
+            listening
+        );
+    };
 }
 
 /// Every check kind, in the order messages list them ("expected one of response, …").

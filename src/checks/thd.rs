@@ -1,0 +1,17 @@
+//! The `thd` check kind: Total harmonic distortion in a band (judged in [`super::distortion`]).
+
+use super::Finding;
+use crate::analysis::ChannelMeasurement;
+use crate::plan::CheckKind;
+
+/// This kind's judge in the registry's dispatch ([`super`]): `None` for another kind.
+pub fn judge_kind(
+    kind: &CheckKind,
+    m: &ChannelMeasurement,
+    _nominal_impedance_ohm: Option<f64>,
+) -> Option<Finding> {
+    let CheckKind::Thd { band, max_percent } = kind else {
+        return None;
+    };
+    Some(super::distortion::judge_thd(m, *band, *max_percent))
+}
