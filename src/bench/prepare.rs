@@ -170,22 +170,10 @@ impl Prepared {
                 retest_reasons.push(format!("{}: {}", ch.name, r));
             }
         }
-        let mut result = UnitResult {
-            tool: ToolInfo::default(),
-            plan: PlanInfo::from(&self.plan),
-            serial: serial.to_string(),
-            verdict: crate::Verdict::Retest,
-            time_utc: now_utc_rfc3339(),
-            rig: rig.to_string(),
-            simulated_unit,
-            station: None,
-            device_latency_samples: None,
-            retest_reasons,
-            channels,
-            checks: checks.results,
-            calibration: self.calibration.clone(),
-            safety: None,
-        };
+        let mut result = self.result_of(serial, rig, simulated_unit);
+        result.retest_reasons = retest_reasons;
+        result.channels = channels;
+        result.checks = checks.results;
         result.verdict = decide_verdict(&self.plan, &result, 0);
         Ok(result)
     }
@@ -199,6 +187,14 @@ impl Prepared {
         simulated_unit: Option<String>,
         reason: String,
     ) -> UnitResult {
+        let mut result = self.result_of(serial, rig, simulated_unit);
+        result.retest_reasons = vec![reason];
+        result
+    }
+
+    /// A result of this plan for one unit, stamped now: no measurement, no check, verdict
+    /// retest until one is decided.
+    fn result_of(&self, serial: &str, rig: &str, simulated_unit: Option<String>) -> UnitResult {
         UnitResult {
             tool: ToolInfo::default(),
             plan: PlanInfo::from(&self.plan),
@@ -209,7 +205,7 @@ impl Prepared {
             simulated_unit,
             station: None,
             device_latency_samples: None,
-            retest_reasons: vec![reason],
+            retest_reasons: Vec::new(),
             channels: Vec::new(),
             checks: Vec::new(),
             calibration: self.calibration.clone(),
