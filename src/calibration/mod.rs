@@ -28,6 +28,7 @@ mod drive;
 mod file;
 mod microphone;
 pub mod policy;
+pub mod record;
 pub mod tone;
 
 pub use drive::{drive_from_input, drive_from_meter, DriveError, DriveReading};

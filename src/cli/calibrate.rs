@@ -418,7 +418,13 @@ fn mic(a: MicArgs) -> Result<i32, Exit> {
             let spec = a.common.soundcard.spec_for(station.as_ref());
             // Silence on output 1 (every station has one): the recording primitive plays
             // and records together, and silence disturbs no calibrator.
-            let rec = record_through_soundcard(spec, (0, input - 1), a.rate_hz, &[vec![0.0; n]])?;
+            let rec = crate::calibration::record::record_through_soundcard(
+                spec,
+                (0, input - 1),
+                a.rate_hz,
+                &[vec![0.0; n]],
+            )
+            .map_err(recording_exit)?;
             (a.rate_hz, rec)
         }
         (None, None) => {
@@ -572,7 +578,7 @@ const DRIVE_FADE_S: f64 = 0.01;
 use crate::dsp::signals::{faded_sine, sine};
 
 /// Play the calibration sine on `output` and return the part of `input`'s recording that
-/// holds it (found by cross-correlation, never by an assumed latency).
+/// holds it ([`crate::calibration::record`]).
 fn record_drive_tone(
     a: &DriveArgs,
     station: Option<&crate::station::Station>,
@@ -598,69 +604,18 @@ fn record_drive_tone(
     let amp = 10f64.powf(a.tone_dbfs / 20.0);
     let fade = ((DRIVE_FADE_S * f64::from(a.rate_hz)) as usize).min(n / 2);
     let tone = faded_sine(amp, a.freq_hz, a.rate_hz, n, fade);
-    let mut outputs = vec![vec![0.0f32; n]; output];
-    outputs[output - 1] = tone;
     let spec = a.common.soundcard.spec_for(station);
-    let rec = record_through_soundcard(spec, (output - 1, input - 1), a.rate_hz, &outputs)?;
-    let max_lag = rec.len().saturating_sub(n);
-    let found = crate::rig::align::find_delay(&outputs[output - 1], &rec, max_lag)
-        .filter(|d| d.is_confident())
-        .ok_or_else(|| {
-            Exit::bad_input(anyhow::anyhow!(
-                "sound card input {input}: the tone played on output {output} is not in the \
-                 recording (check the wiring, the channel numbers and the levels); nothing was \
-                 written"
-            ))
-        })?;
-    let start = usize::try_from(found.lag_samples).unwrap_or(0).min(max_lag);
-    tracing::info!(lag_samples = start, "drive tone found in the recording");
-    Ok(rec[start..start + n].to_vec())
+    crate::calibration::record::record_drive_tone(spec, output, input, a.rate_hz, tone)
+        .map_err(recording_exit)
 }
 
-/// Play `outputs` and record through the sound card; the samples of device input
-/// `route.1` (0-based). `route` is the output and input the reading uses, so the devices
-/// are opened with enough channels for both.
-#[cfg(feature = "soundcard")]
-fn record_through_soundcard(
-    spec: crate::rig::SoundcardSpec,
-    route: (usize, usize),
-    rate_hz: u32,
-    outputs: &[Vec<f32>],
-) -> Result<Vec<f32>, Exit> {
-    let nothing = |e: crate::rig::RigError| {
-        let exit = Exit::from_rig(e);
-        Exit {
-            code: exit.code,
-            error: exit.error.context("nothing was written"),
-        }
-    };
-    let mut rig =
-        crate::rig::soundcard::SoundcardRig::open(spec, vec![route], rate_hz).map_err(nothing)?;
-    let rec = rig.play_and_record(outputs).map_err(nothing)?;
-    let mut channels = rec.channels;
-    // `open` made sure the input stream has this channel; kept total all the same.
-    if route.1 >= channels.len() {
-        return Err(Exit::bad_input(anyhow::anyhow!(
-            "--input {}: expected an input channel of the device, which has {}; nothing was \
-             written",
-            route.1 + 1,
-            channels.len()
-        )));
+/// A recording that failed: bad input when the user can fix it, retest when the rig failed.
+fn recording_exit(e: crate::calibration::record::RecordError) -> Exit {
+    if e.is_bad_input() {
+        Exit::bad_input(e)
+    } else {
+        Exit::retest(e)
     }
-    Ok(channels.swap_remove(route.1))
-}
-
-#[cfg(not(feature = "soundcard"))]
-fn record_through_soundcard(
-    _spec: crate::rig::SoundcardSpec,
-    _route: (usize, usize),
-    _rate_hz: u32,
-    _outputs: &[Vec<f32>],
-) -> Result<Vec<f32>, Exit> {
-    Err(Exit::bad_input(anyhow::anyhow!(
-        "--record: {}",
-        super::devices::NOT_BUILT
-    )))
 }
 
 fn tone(a: ToneArgs) -> Result<i32, Exit> {
