@@ -241,3 +241,28 @@ fn null_harmonics_give_no_nan_anywhere() {
         .iter()
         .all(|r| r["worst_margin_db"].is_f64()));
 }
+
+// The listening steps count only after the measured checks passed, with the same rule
+// (fail over retest over pass); an invalid measurement is a retest whatever anyone heard.
+// The rule is the README's ("Listening steps") and the decision record of 2026-12-04.
+#[test]
+fn unit_verdict_with_listening_steps() {
+    let table: &[(bool, &[Verdict], &[Verdict], Verdict)] = &[
+        (false, &[Pass], &[Pass], Pass),
+        (false, &[Pass], &[Fail], Fail),
+        (false, &[Pass], &[Retest], Retest),
+        (false, &[Pass], &[Retest, Fail], Fail),
+        (false, &[Fail], &[Pass], Fail),
+        (false, &[Retest], &[Pass], Retest),
+        (false, &[Pass, Retest], &[Fail], Retest),
+        (true, &[Pass], &[Pass], Retest),
+        (false, &[], &[Fail], Fail),
+    ];
+    for (invalid, checks, heard, want) in table {
+        assert_eq!(
+            unit_verdict(*invalid, checks.iter().copied(), heard.iter().copied()),
+            *want,
+            "invalid={invalid} checks={checks:?} listening={heard:?}"
+        );
+    }
+}
