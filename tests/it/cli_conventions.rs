@@ -167,34 +167,18 @@ fn run_says_a_hearing_safety_note_and_retest_reason_once() {
 fn station_says_each_note_once_on_the_operator_screen() {
     let dir = tempfile::tempdir().unwrap();
     let lines = dir.path().join("lines.jsonl");
-    let mut child = tragus()
-        .arg("station")
-        .arg("--station")
-        .arg(root().join("stations/line3-st1.yaml"))
-        .arg("--plan")
-        .arg(demo_plan())
-        .arg("--store")
-        .arg(dir.path().join("store"))
-        .arg("--json")
-        .arg(&lines)
-        .args([
+    let out = station_scans(
+        &dir.path().join("store"),
+        &[
+            "--json",
+            lines.to_str().unwrap(),
             "--sim-unit",
             "E2-000704=too-loud",
             "--sim-unit",
             "E2-000705=clipping",
-        ])
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .unwrap();
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all(b"E2-000704\nE2-000705\n")
-        .unwrap();
-    let out = child.wait_with_output().unwrap();
+        ],
+        "E2-000704\nE2-000705\n",
+    );
     assert_exit(&out, 0);
     let (stdout, stderr) = (text(&out.stdout), text(&out.stderr));
     let docs: Vec<serde_json::Value> = std::fs::read_to_string(&lines)
@@ -678,26 +662,7 @@ fn run_refuses_a_bad_serial_before_anything_happens() {
 fn station_refuses_the_same_serials_and_names_the_character() {
     let dir = tempfile::tempdir().unwrap();
     let store = dir.path().join("store");
-    let mut child = tragus()
-        .arg("station")
-        .arg("--station")
-        .arg(root().join("stations/line3-st1.yaml"))
-        .arg("--plan")
-        .arg(demo_plan())
-        .arg("--store")
-        .arg(&store)
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .unwrap();
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all("E2-\u{202E}321\nE2 000123\n".as_bytes())
-        .unwrap();
-    let out = child.wait_with_output().unwrap();
+    let out = station_scans(&store, &[], "E2-\u{202E}321\nE2 000123\n");
     assert_exit(&out, 0);
     let stdout = text(&out.stdout);
     assert!(
@@ -733,4 +698,30 @@ fn station_refuses_the_same_serials_and_names_the_character() {
         "{}",
         text(&out.stderr)
     );
+}
+
+/// The demo station (`stations/line3-st1.yaml`, demo plan, store `store`, `extra` options)
+/// fed `scans` as the scanner's lines; its output once it has ended.
+fn station_scans(store: &Path, extra: &[&str], scans: &str) -> Output {
+    let mut child = tragus()
+        .arg("station")
+        .arg("--station")
+        .arg(root().join("stations/line3-st1.yaml"))
+        .arg("--plan")
+        .arg(demo_plan())
+        .arg("--store")
+        .arg(store)
+        .args(extra)
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(scans.as_bytes())
+        .unwrap();
+    child.wait_with_output().unwrap()
 }
