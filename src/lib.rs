@@ -16,6 +16,7 @@ pub mod config;
 pub mod correction;
 pub mod digest;
 pub mod dsp;
+pub mod keys;
 pub mod models;
 pub mod plan;
 pub mod report;

@@ -22,6 +22,7 @@ const LAYERS: &[(&str, u8, &str)] = &[
     ("acoustics", 1, "physics"),
     ("plan", 2, "configuration"),
     ("station", 2, "configuration"),
+    ("keys", 2, "configuration"),
     ("models", 2, "configuration"),
     ("calibration::file", 2, "configuration"),
     ("stimulus", 3, "stages"),
