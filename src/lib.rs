@@ -35,6 +35,10 @@ pub mod wav;
 /// The software version recorded with every result.
 pub const VERSION: &str = env!("CARGO_PKG_VERSION");
 
+/// The build identity: version, git commit and dirty flag (`0.1.0+git.0123456789ab`,
+/// `….dirty` for a build from a changed tree, `+unknown` without git), set by `build.rs`.
+pub const BUILD: &str = env!("TRAGUS_BUILD");
+
 /// Verdict of one check, one channel or one unit.
 ///
 /// A retest is never counted as a pass: it means the measurement itself was not valid

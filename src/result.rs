@@ -15,6 +15,8 @@ pub struct ToolInfo {
     pub name: String,
     /// Crate version.
     pub version: String,
+    /// Build identity ([`crate::BUILD`]): version, git commit, dirty flag.
+    pub build: String,
 }
 
 impl Default for ToolInfo {
@@ -22,6 +24,7 @@ impl Default for ToolInfo {
         ToolInfo {
             name: "tragus".into(),
             version: crate::VERSION.into(),
+            build: crate::BUILD.into(),
         }
     }
 }

@@ -8,6 +8,7 @@
 //! `tragus run` (one unit) and `tragus station` (the operator loop) both go through here,
 //! so they test and record a unit in exactly the same way; nothing here prints or exits.
 
+pub mod archive;
 mod error;
 mod prepare;
 mod record;
@@ -62,6 +63,10 @@ pub struct BenchOptions<'a> {
 pub struct Bench {
     /// The plan and everything built from it once.
     pub prep: Prepared,
+    /// The exact inputs (plan, station file, calibration file), archived with each record.
+    pub inputs: archive::Inputs,
+    /// The station's signing key (the station file's `signing_key`), signing every row.
+    pub signer: Option<crate::keys::StationKey>,
     /// The store directory.
     pub store: PathBuf,
     /// The station's identity, recorded with every result.
@@ -135,7 +140,14 @@ impl Bench {
     /// station id and operator. A plan hearing safety refuses is recorded in the store
     /// (when `record_refusals`) and returned as [`BenchError::Refused`].
     pub fn new(o: BenchOptions) -> Result<Bench, BenchError> {
-        let mut prep = Prepared::on_station(o.plan, o.station, o.fixture)?;
+        let (prep, plan_reads) =
+            crate::config::recording_reads(|| Prepared::on_station(o.plan, o.station, o.fixture));
+        let mut prep = prep?;
+        let mut inputs = archive::Inputs::default();
+        inputs.add_plan(o.plan, &plan_reads, o.fixture)?;
+        if let Some(st) = o.station {
+            inputs.add_station(st)?;
+        }
         let rig = o
             .rig
             .or(o.station.map(|s| s.rig))
@@ -150,13 +162,23 @@ impl Bench {
         };
         let non_production =
             o.non_production || o.station.is_some_and(|s| s.mode == Mode::Engineering);
-        let decision = policy::decide(
-            &prep.plan,
-            calibration,
-            non_production,
-            rig,
-            crate::calibration::Calibration::today_utc(),
-        )?;
+        let calibration_path = match calibration {
+            CalibrationSource::Option(p) | CalibrationSource::Station(p) => Some(p.to_path_buf()),
+            CalibrationSource::None => None,
+        };
+        let (decision, calibration_reads) = crate::config::recording_reads(|| {
+            policy::decide(
+                &prep.plan,
+                calibration,
+                non_production,
+                rig,
+                crate::calibration::Calibration::today_utc(),
+            )
+        });
+        let decision = decision?;
+        if let (Some(path), Some(_)) = (&calibration_path, &decision.info.sha256) {
+            inputs.add_calibration(path, &calibration_reads)?;
+        }
         prep.calibration = decision.info;
         prep.calibration_offsets_db = decision.offsets_db;
         let cal = decision.for_safety;
@@ -216,6 +238,8 @@ impl Bench {
         let seed = prep.plan.rig.seed();
         Ok(Bench {
             prep,
+            inputs,
+            signer: None,
             store,
             station,
             operator,
@@ -333,12 +357,18 @@ impl Bench {
             std::thread::sleep(play.saturating_sub(started.elapsed()));
         }
         let simulated_unit = (self.rig == RigKind::Simulated).then(|| sim.label.clone());
+        let mut playback = serde_json::json!({
+            "abandoned": false,
+            "calibration_offsets_db": self.prep.calibration_offsets_db,
+            "drive_gain_db": null,
+        });
         let (capture, mut result) = match outcome {
             SafeOutcome::Swept {
                 capture,
                 drive_gain_db,
                 safety,
             } => {
+                playback["drive_gain_db"] = serde_json::json!(drive_gain_db);
                 let mut result = self.prep.judge_capture(
                     &capture,
                     serial,
@@ -354,6 +384,7 @@ impl Bench {
                 reason,
                 safety,
             } => {
+                playback["abandoned"] = serde_json::json!(true);
                 let mut result = self
                     .prep
                     .unjudged(serial, rig.name(), simulated_unit, reason);
@@ -422,6 +453,9 @@ impl Bench {
             result_json,
             calibration_mode: result.calibration.mode.clone(),
             calibration_sha256: result.calibration.sha256.clone(),
+            build: result.tool.build.clone(),
+            inputs_json: self.inputs.links_json(),
+            playback_json: playback.to_string(),
         };
         Ok(UnitOutcome {
             result,
@@ -436,7 +470,13 @@ impl Bench {
     /// (never half a record), then its safety events and listening exposures. A verdict the
     /// store does not hold was never given: a record that cannot be written is an error.
     pub fn record(&self, outcome: UnitOutcome) -> Result<Tested, BenchError> {
-        record::record_unit(&self.store, &self.operator, outcome)
+        record::record_unit(
+            &self.store,
+            &self.operator,
+            &self.inputs,
+            self.signer.as_ref(),
+            outcome,
+        )
     }
 
     /// Test one unit and record it. `abandon` is asked once more just before the record is

@@ -4,7 +4,7 @@
 use super::{BenchError, Tested, UnitOutcome};
 use crate::safety::event::SafetyEvent;
 use crate::safety::setup::SafetyRefusal;
-use crate::store::{NewExposure, NewSafetyEvent, Store};
+use crate::store::{NewExposure, NewSafetyEvent, NewUnit, Store};
 use std::path::Path;
 
 /// Record a plan refusal in the store (created if needed): the refusal belongs to the
@@ -35,12 +35,16 @@ pub(super) fn record_refusal(
     }
 }
 
-/// Append a unit: record and capture in one transaction, then its safety events (the
-/// record already holds them in its result; these rows let an auditor list every safety
-/// event of a station at once) and its listening exposures with their events.
+/// Append a unit: its record, raw capture, archived inputs, safety events (the record
+/// already holds them in its result; these rows let an auditor list every safety event of a
+/// station at once) and listening exposures with their events, all in one transaction: a
+/// crash leaves all of them or none. The station key, when the station has one, signs
+/// every row.
 pub(super) fn record_unit(
     store_dir: &Path,
     operator: &str,
+    inputs: &super::archive::Inputs,
+    signer: Option<&crate::keys::StationKey>,
     outcome: UnitOutcome,
 ) -> Result<Tested, BenchError> {
     let UnitOutcome {
@@ -54,8 +58,6 @@ pub(super) fn record_unit(
         store: store_dir.to_path_buf(),
         source,
     };
-    let mut store = Store::open(store_dir).map_err(not_recorded)?;
-    let stored = store.append(&record, &capture_wav).map_err(not_recorded)?;
     let station = result
         .station
         .as_ref()
@@ -70,16 +72,14 @@ pub(super) fn record_unit(
         kind: e.kind,
         message: e.message.clone(),
         detail_json: e.detail_json.clone(),
-        record_id: Some(stored.id),
+        // Set by the store to the record appended with it.
+        record_id: None,
     };
-    for e in &events {
-        if let Err(e) = store.append_safety_event(&row(e)) {
-            tracing::warn!("the safety event was not recorded (the unit's record holds it): {e}");
-        }
-    }
+    let mut safety_events: Vec<NewSafetyEvent> = events.iter().map(row).collect();
+    let mut exposures = Vec::new();
     for h in &heard {
         if let Some(level_dba) = h.level_dba {
-            let e = NewExposure {
+            exposures.push(NewExposure {
                 operator: operator.to_string(),
                 station: station.clone(),
                 start_unix_s: h.start_unix_s,
@@ -87,18 +87,26 @@ pub(super) fn record_unit(
                 duration_s: h.duration_s,
                 serial: result.serial.clone(),
                 plan_id: result.plan.id.clone(),
-                record_id: Some(stored.id),
-            };
-            if let Err(e) = store.append_exposure(&e) {
-                tracing::warn!("the listening exposure was not recorded: {e}");
-            }
+                record_id: None,
+            });
         }
-        for e in &h.events {
-            if let Err(e) = store.append_safety_event(&row(e)) {
-                tracing::warn!("the listening step's safety event was not recorded: {e}");
-            }
-        }
+        safety_events.extend(h.events.iter().map(row));
     }
+    let archive = inputs.archive_bytes();
+    let mut store = Store::open(store_dir).map_err(not_recorded)?;
+    if let Some(key) = signer {
+        store.set_signer(key.clone());
+    }
+    let appended = store
+        .append_unit(&NewUnit {
+            record: &record,
+            capture_wav: &capture_wav,
+            archive: &archive,
+            safety_events: &safety_events,
+            exposures: &exposures,
+        })
+        .map_err(not_recorded)?;
+    let stored = appended.record;
     tracing::info!(record = stored.id, hash = %stored.record_hash, "recorded");
     Ok(Tested { result, stored })
 }

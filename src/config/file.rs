@@ -133,7 +133,35 @@ pub fn read_bytes(path: &Path) -> io::Result<Vec<u8>> {
         }
         .into_io());
     }
+    READS.with(|r| {
+        if let Some(log) = r.borrow_mut().as_mut() {
+            log.push((path.to_path_buf(), bytes.clone()));
+        }
+    });
     Ok(bytes)
+}
+
+thread_local! {
+    /// The files read on this thread while [`recording_reads`] runs.
+    static READS: std::cell::RefCell<Option<Vec<(std::path::PathBuf, Vec<u8>)>>> =
+        const { std::cell::RefCell::new(None) };
+}
+
+/// Run `f` and return, with its result, every file read through this module on this thread
+/// meanwhile (path as given, exact bytes), in order: the exact inputs of a load, for the
+/// store's archive. Nested calls each see their own reads.
+pub fn recording_reads<T>(f: impl FnOnce() -> T) -> (T, Vec<(std::path::PathBuf, Vec<u8>)>) {
+    let outer = READS.with(|r| r.borrow_mut().replace(Vec::new()));
+    let value = f();
+    let mine = READS.with(|r| {
+        let mine = r.borrow_mut().take().unwrap_or_default();
+        if let Some(mut outer) = outer {
+            outer.extend(mine.iter().cloned());
+            *r.borrow_mut() = Some(outer);
+        }
+        mine
+    });
+    (value, mine)
 }
 
 /// Refuse what is not a regular file of at most [`MAX_CONFIG_BYTES`].

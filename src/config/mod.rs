@@ -16,7 +16,7 @@ pub mod reader;
 pub mod tree;
 
 pub use diag::{sort_problems, Location, Pos, Problem};
-pub use file::{load_file, read_data_file, FileError, Refusal, MAX_CONFIG_BYTES};
+pub use file::{load_file, read_data_file, recording_reads, FileError, Refusal, MAX_CONFIG_BYTES};
 pub use message::{found, found_scalar, is_channel_name, is_id, label, show_text, suggest};
 pub use reader::NodeReader;
 pub use tree::{mapping_pos, parse_tree, Decoder, Section, MAX_NESTING_DEPTH};

@@ -30,6 +30,7 @@ pub fn key_id_of(public_key: &[u8; 32]) -> String {
 }
 
 /// A station's private signing key, with the station it belongs to.
+#[derive(Clone)]
 pub struct StationKey {
     station: String,
     key_id: String,

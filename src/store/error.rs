@@ -60,6 +60,29 @@ pub enum StoreError {
     },
 
     /// A field of a record to append is not acceptable; nothing was written.
+    /// The database holds schema objects that are not the store's own (a trigger, view,
+    /// table or index someone added): nothing is appended, since such an object can change
+    /// or drop what is written.
+    #[error("{path}: the store holds schema objects that are not its own ({objects}); nothing was written; keep the store for the audit and run verify on it")]
+    ForeignObjects {
+        /// The database file.
+        path: PathBuf,
+        /// The objects, as `type name`, comma-separated.
+        objects: String,
+    },
+    /// An append could not prove its row was written as meant (not exactly one row inserted,
+    /// another id, another hash read back): the transaction was rolled back.
+    #[error("{path}: the append of {table} row {id} was not written as meant ({detail}); nothing was written; run verify on the store")]
+    AppendNotProven {
+        /// The database file.
+        path: PathBuf,
+        /// The table.
+        table: &'static str,
+        /// The id the row was to have.
+        id: i64,
+        /// What was found instead.
+        detail: String,
+    },
     #[error("record field `{field}`: expected {expected}, found {found}")]
     InvalidRecord {
         /// Field name as in [`NewRecord`](super::NewRecord).

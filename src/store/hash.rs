@@ -16,6 +16,10 @@ pub const CANONICAL_HEADER: &[u8] = b"tragus-record-v1\n";
 /// `calibration_mode` and `calibration_sha256`).
 pub const CANONICAL_HEADER_V2: &[u8] = b"tragus-record-v2\n";
 
+/// First line of the canonical form of records written since schema 4 (with `build`,
+/// `inputs_json` and `playback_json` after the calibration fields).
+pub const CANONICAL_HEADER_V3: &[u8] = b"tragus-record-v3\n";
+
 pub use crate::digest::sha256_hex;
 
 /// True when `s` is 64 lowercase hex digits, the only spelling of a SHA-256 the store uses.
@@ -48,6 +52,9 @@ pub(crate) struct CanonicalFields<'a> {
     /// `(calibration_mode, calibration_sha256 or "")` for a v2 record; `None` for a record
     /// written before schema 2, whose form is v1.
     pub calibration: Option<(&'a str, &'a str)>,
+    /// `(build, inputs_json, playback_json)` for a v3 record (schema 4); `None` before.
+    /// A v3 record always has `calibration` too.
+    pub provenance: Option<(&'a str, &'a str, &'a str)>,
 }
 
 impl CanonicalFields<'_> {
@@ -71,7 +78,7 @@ impl CanonicalFields<'_> {
             ("result_json", self.result_json),
             ("capture_sha256", self.capture_sha256),
         ];
-        let header = match self.calibration {
+        let mut header = match self.calibration {
             None => CANONICAL_HEADER,
             Some((mode, sha)) => {
                 fields.push(("calibration_mode", mode));
@@ -79,6 +86,18 @@ impl CanonicalFields<'_> {
                 CANONICAL_HEADER_V2
             }
         };
+        if let Some((build, inputs, playback)) = self.provenance {
+            if self.calibration.is_none() {
+                // Not a form any store writes; keep the fields in the v3 order anyway so
+                // the hash still covers them and the mismatch shows.
+                fields.push(("calibration_mode", ""));
+                fields.push(("calibration_sha256", ""));
+            }
+            fields.push(("build", build));
+            fields.push(("inputs_json", inputs));
+            fields.push(("playback_json", playback));
+            header = CANONICAL_HEADER_V3;
+        }
         fields.push(("prev_hash", self.prev_hash));
         let len: usize = fields.iter().map(|(n, v)| n.len() + v.len() + 24).sum();
         let mut out = Vec::with_capacity(header.len() + len);

@@ -147,6 +147,7 @@
 //! blocks forever, so the test can kill the process there with SIGKILL. Release builds
 //! ignore the variable.
 
+mod archive;
 mod capture;
 mod error;
 mod hash;
@@ -160,8 +161,11 @@ use std::path::{Path, PathBuf};
 use rusqlite::types::Value;
 use rusqlite::{params, Connection, OptionalExtension, Row, TransactionBehavior};
 
+pub use archive::{InputBundle, BUNDLE_FORM};
 pub use error::StoreError;
-pub use hash::{sha256_hex, CANONICAL_HEADER, CANONICAL_HEADER_V2, GENESIS_PREV_HASH};
+pub use hash::{
+    sha256_hex, CANONICAL_HEADER, CANONICAL_HEADER_V2, CANONICAL_HEADER_V3, GENESIS_PREV_HASH,
+};
 pub use record::{NewRecord, RecordFilter, StoredRecord};
 pub use safety::{
     NewExposure, NewSafetyEvent, SafetyEventFilter, SafetyKind, StoredExposure, StoredSafetyEvent,
@@ -169,7 +173,8 @@ pub use safety::{
 pub use schema::SCHEMA_VERSION;
 pub use verify::{ChainTable, Notice, Problem, ProblemKind, RowProblem, VerifyReport};
 
-use capture::{capture_file, ensure_capture, looks_like_wav, CAPTURE_DIR};
+use archive::{archive_file, ensure_archived, ARCHIVE_DIR, MAX_ARCHIVE_BYTES};
+use capture::{capture_file, check_file, ensure_capture, looks_like_wav, FileCheck, CAPTURE_DIR};
 use hash::is_sha256_hex;
 pub(crate) use record::parse_time_utc;
 use record::{unix_ns, verdict_from_word, verdict_word};
@@ -213,7 +218,8 @@ pub(crate) fn crash_point(_point: &str) {}
 /// Columns of a record in the order [`read_record`] expects.
 const RECORD_COLUMNS: &str = "id, time_utc, serial, plan_id, plan_revision, plan_sha256, \
     software_version, station, operator, rig, verdict, result_json, capture_sha256, \
-    prev_hash, record_hash, calibration_mode, calibration_sha256";
+    prev_hash, record_hash, calibration_mode, calibration_sha256, build, inputs_json, \
+    playback_json, key_id, signature";
 
 /// An open store: the station's database and its capture directory.
 ///
@@ -224,7 +230,38 @@ pub struct Store {
     dir: PathBuf,
     db_path: PathBuf,
     capture_dir: PathBuf,
+    archive_dir: PathBuf,
     conn: Connection,
+    /// Signs every row appended; `None`: rows are appended unsigned.
+    signer: Option<crate::keys::StationKey>,
+}
+
+/// One tested unit to append in one transaction: its record, raw capture, archived inputs
+/// and safety rows.
+#[derive(Debug, Clone, Copy)]
+pub struct NewUnit<'a> {
+    /// The record.
+    pub record: &'a NewRecord,
+    /// The raw capture, a complete WAV file's bytes.
+    pub capture_wav: &'a [u8],
+    /// Archived inputs ([`InputBundle::to_bytes`]) the record links to in `inputs_json`
+    /// and that the archive may not hold yet.
+    pub archive: &'a [Vec<u8>],
+    /// The unit's safety events; their `record_id` is set to the new record's id.
+    pub safety_events: &'a [NewSafetyEvent],
+    /// The unit's listening exposures; their `record_id` is set to the new record's id.
+    pub exposures: &'a [NewExposure],
+}
+
+/// What [`Store::append_unit`] wrote.
+#[derive(Debug, Clone)]
+pub struct AppendedUnit {
+    /// The record as stored.
+    pub record: StoredRecord,
+    /// Its safety events as stored.
+    pub safety_events: Vec<StoredSafetyEvent>,
+    /// Its exposures as stored.
+    pub exposures: Vec<StoredExposure>,
 }
 
 impl Store {
@@ -241,13 +278,75 @@ impl Store {
             action: "create the store directory",
             source,
         })?;
+        let archive_dir = dir.join(ARCHIVE_DIR);
+        std::fs::create_dir_all(&archive_dir).map_err(|source| StoreError::Io {
+            path: archive_dir.clone(),
+            action: "create the archive directory",
+            source,
+        })?;
         let db_path = dir.join(DB_FILE);
         let conn = open_database(&db_path)?;
         Ok(Store {
             dir: dir.to_owned(),
             db_path,
             capture_dir,
+            archive_dir,
             conn,
+            signer: None,
+        })
+    }
+
+    /// Sign every row appended from now on with `key` (the station's key). The key's
+    /// station should be the one named in the rows; verification reports it otherwise.
+    pub fn set_signer(&mut self, key: crate::keys::StationKey) {
+        self.signer = Some(key);
+    }
+
+    /// The key rows are signed with, if any.
+    pub fn signer(&self) -> Option<&crate::keys::StationKey> {
+        self.signer.as_ref()
+    }
+
+    /// The store's identity: 32 hex digits drawn at random when the store was created (or
+    /// migrated to schema 4). Checkpoints name it.
+    pub fn store_id(&self) -> Result<String, StoreError> {
+        self.conn
+            .query_row(
+                "SELECT value FROM store_meta WHERE name = 'store_id'",
+                [],
+                |r| r.get(0),
+            )
+            .map_err(|e| self.err(e))
+    }
+
+    /// The archived input with this SHA-256 (64 lowercase hex digits), read as a regular
+    /// file of bounded size and checked against its name.
+    pub fn read_archived(&self, sha256: &str) -> Result<InputBundle, StoreError> {
+        if !is_sha256_hex(sha256) {
+            return Err(StoreError::InvalidRecord {
+                field: "inputs_json",
+                expected: "64 lowercase hex digits",
+                found: error::shorten(sha256),
+            });
+        }
+        let path = archive_file(&self.archive_dir, sha256);
+        match check_file(&path, MAX_ARCHIVE_BYTES)? {
+            FileCheck::Missing => return Err(StoreError::CaptureMissing { path }),
+            FileCheck::Hashed(h) if h == sha256 => {}
+            _ => return Err(StoreError::CaptureAltered { path }),
+        }
+        let bytes = std::fs::read(&path).map_err(|source| StoreError::Io {
+            path: path.clone(),
+            action: "read the archived input",
+            source,
+        })?;
+        if sha256_hex(&bytes) != sha256 {
+            return Err(StoreError::CaptureAltered { path });
+        }
+        InputBundle::parse(&bytes).map_err(|detail| StoreError::Corrupt {
+            id: 0,
+            column: "inputs_json",
+            detail: format!("{}: {detail}", path.display()),
         })
     }
 
@@ -268,18 +367,41 @@ impl Store {
     }
 
     /// Append one record with its raw capture (a complete WAV file's bytes) and return it as
-    /// stored, with its id, capture hash and place in the chain.
+    /// stored, with its id, capture hash and place in the chain: [`append_unit`] without
+    /// archived inputs or safety rows.
     ///
-    /// The capture is made durable first and the record committed after, so a crash leaves
-    /// no record without its capture (module doc, "Crash safety"). An existing capture with
-    /// the same hash is reused after checking its bytes. Nothing is written when a field is
-    /// invalid ([`StoreError::InvalidRecord`]).
+    /// [`append_unit`]: Self::append_unit
     pub fn append(
         &mut self,
         rec: &NewRecord,
         capture_wav: &[u8],
     ) -> Result<StoredRecord, StoreError> {
+        let unit = NewUnit {
+            record: rec,
+            capture_wav,
+            archive: &[],
+            safety_events: &[],
+            exposures: &[],
+        };
+        Ok(self.append_unit(&unit)?.record)
+    }
+
+    /// Append one unit: its record, raw capture, archived inputs, safety events and
+    /// exposures, signed with the station key when one is set ([`set_signer`]).
+    ///
+    /// The capture and archived inputs are made durable first; then the record and every
+    /// safety row go in one transaction, so a crash leaves all of them or none (module doc,
+    /// "Crash safety"). The append proves itself: it refuses a database with schema objects
+    /// that are not the store's own ([`StoreError::ForeignObjects`]), and checks that each
+    /// insert wrote exactly one row with the expected id and reads its hash back
+    /// ([`StoreError::AppendNotProven`]); anything else rolls the transaction back. Nothing
+    /// is written when a field is invalid ([`StoreError::InvalidRecord`]).
+    ///
+    /// [`set_signer`]: Self::set_signer
+    pub fn append_unit(&mut self, unit: &NewUnit<'_>) -> Result<AppendedUnit, StoreError> {
+        let rec = unit.record;
         let time_unix_ns = rec.validate()?;
+        let capture_wav = unit.capture_wav;
         if !looks_like_wav(capture_wav) {
             let head: String = capture_wav
                 .iter()
@@ -292,89 +414,54 @@ impl Store {
                 found: format!("{} bytes starting \"{head}\"", capture_wav.len()),
             });
         }
+        for e in unit.safety_events {
+            e.validate()?;
+        }
+        for e in unit.exposures {
+            e.validate()?;
+        }
+        // Every linked input must be in the archive once the record is committed.
+        let links = rec.input_links()?;
+        let mut given = std::collections::HashMap::new();
+        for bytes in unit.archive {
+            given.insert(sha256_hex(bytes), bytes);
+        }
+        for (role, sha) in &links {
+            match given.get(sha) {
+                Some(bytes) => {
+                    ensure_archived(&self.archive_dir, bytes)?;
+                }
+                None => match check_file(&archive_file(&self.archive_dir, sha), MAX_ARCHIVE_BYTES)?
+                {
+                    FileCheck::Hashed(h) if &h == sha => {}
+                    _ => {
+                        return Err(StoreError::InvalidRecord {
+                            field: "inputs_json",
+                            expected: "links to archived inputs given with the record or \
+                                       already in the archive",
+                            found: format!("{role} → {sha}, which is in neither"),
+                        })
+                    }
+                },
+            }
+        }
         let capture_sha256 = sha256_hex(capture_wav);
         ensure_capture(&self.capture_dir, &capture_sha256, capture_wav)?;
         crash_point("after_capture");
 
-        let db_path = &self.db_path;
-        let err = |e| sqlite_err(db_path, e);
-        let tx = self
-            .conn
-            .transaction_with_behavior(TransactionBehavior::Immediate)
-            .map_err(err)?;
-        let last: Option<(i64, String)> = tx
-            .query_row(
-                "SELECT id, record_hash FROM records ORDER BY id DESC LIMIT 1",
-                [],
-                |r| Ok((r.get(0)?, r.get(1)?)),
-            )
-            .optional()
-            .map_err(err)?;
-        let (id, prev_hash) = match last {
-            None => (1, GENESIS_PREV_HASH.to_owned()),
-            Some((last_id, last_hash)) => {
-                let id = last_id.checked_add(1).ok_or(StoreError::Corrupt {
-                    id: last_id,
-                    column: "id",
-                    detail: "no id can follow it".into(),
-                })?;
-                (id, last_hash)
-            }
-        };
-        let mut stored = StoredRecord {
-            id,
-            time_utc: rec.time_utc.clone(),
-            serial: rec.serial.clone(),
-            plan_id: rec.plan_id.clone(),
-            plan_revision: rec.plan_revision,
-            plan_sha256: rec.plan_sha256.clone(),
-            software_version: rec.software_version.clone(),
-            station: rec.station.clone(),
-            operator: rec.operator.clone(),
-            rig: rec.rig.clone(),
-            verdict: rec.verdict,
-            result_json: rec.result_json.clone(),
+        let db_path = self.db_path.clone();
+        let signer = self.signer.take();
+        let result = insert_unit(
+            &mut self.conn,
+            &db_path,
+            unit,
+            time_unix_ns,
             capture_sha256,
-            prev_hash,
-            record_hash: String::new(),
-            calibration_mode: Some(rec.calibration_mode.clone()),
-            calibration_sha256: rec.calibration_sha256.clone(),
-        };
-        stored.record_hash = stored.computed_hash();
-        tx.execute(
-            "INSERT INTO records (id, time_utc, time_unix_ns, serial, plan_id, plan_revision, \
-             plan_sha256, software_version, station, operator, rig, verdict, result_json, \
-             capture_sha256, prev_hash, record_hash, signature, calibration_mode, \
-             calibration_sha256) \
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, NULL, \
-             ?17, ?18)",
-            params![
-                stored.id,
-                stored.time_utc,
-                time_unix_ns,
-                stored.serial,
-                stored.plan_id,
-                stored.plan_revision,
-                stored.plan_sha256,
-                stored.software_version,
-                stored.station,
-                stored.operator,
-                stored.rig,
-                verdict_word(stored.verdict),
-                stored.result_json,
-                stored.capture_sha256,
-                stored.prev_hash,
-                stored.record_hash,
-                stored.calibration_mode,
-                stored.calibration_sha256,
-            ],
-        )
-        .map_err(err)?;
-        crash_point("before_commit");
-        tx.commit().map_err(err)?;
-        Ok(stored)
+            signer.as_ref(),
+        );
+        self.signer = signer;
+        result
     }
-
     /// The record with this id, or `None` if there is none.
     ///
     /// Does not check hashes (that is [`verify`](Self::verify)); fails with
@@ -567,5 +654,209 @@ fn read_record(row: &Row<'_>, db_path: &Path) -> Result<StoredRecord, StoreError
         calibration_sha256: row
             .get::<_, Option<String>>(16)
             .map_err(|e| corrupt("calibration_sha256", e))?,
+        build: row
+            .get::<_, Option<String>>(17)
+            .map_err(|e| corrupt("build", e))?,
+        inputs_json: row
+            .get::<_, Option<String>>(18)
+            .map_err(|e| corrupt("inputs_json", e))?,
+        playback_json: row
+            .get::<_, Option<String>>(19)
+            .map_err(|e| corrupt("playback_json", e))?,
+        key_id: row
+            .get::<_, Option<String>>(20)
+            .map_err(|e| corrupt("key_id", e))?,
+        signature: row
+            .get::<_, Option<Vec<u8>>>(21)
+            .map_err(|e| corrupt("signature", e))?,
     })
+}
+
+/// The transaction of [`Store::append_unit`]: the record, then its safety events and
+/// exposures pointing at it, each proven, committed together.
+fn insert_unit(
+    conn: &mut Connection,
+    db_path: &Path,
+    unit: &NewUnit<'_>,
+    time_unix_ns: i64,
+    capture_sha256: String,
+    signer: Option<&crate::keys::StationKey>,
+) -> Result<AppendedUnit, StoreError> {
+    let err = |e| sqlite_err(db_path, e);
+    let rec = unit.record;
+    let tx = conn
+        .transaction_with_behavior(TransactionBehavior::Immediate)
+        .map_err(err)?;
+    check_own_schema(&tx, db_path)?;
+    let last: Option<(i64, String)> = tx
+        .query_row(
+            "SELECT id, record_hash FROM records ORDER BY id DESC LIMIT 1",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .optional()
+        .map_err(err)?;
+    let (id, prev_hash) = match last {
+        None => (1, GENESIS_PREV_HASH.to_owned()),
+        Some((last_id, last_hash)) => {
+            let id = last_id.checked_add(1).ok_or(StoreError::Corrupt {
+                id: last_id,
+                column: "id",
+                detail: "no id can follow it".into(),
+            })?;
+            (id, last_hash)
+        }
+    };
+    let mut stored = StoredRecord {
+        id,
+        time_utc: rec.time_utc.clone(),
+        serial: rec.serial.clone(),
+        plan_id: rec.plan_id.clone(),
+        plan_revision: rec.plan_revision,
+        plan_sha256: rec.plan_sha256.clone(),
+        software_version: rec.software_version.clone(),
+        station: rec.station.clone(),
+        operator: rec.operator.clone(),
+        rig: rec.rig.clone(),
+        verdict: rec.verdict,
+        result_json: rec.result_json.clone(),
+        capture_sha256,
+        prev_hash,
+        record_hash: String::new(),
+        calibration_mode: Some(rec.calibration_mode.clone()),
+        calibration_sha256: rec.calibration_sha256.clone(),
+        build: Some(rec.build.clone()),
+        inputs_json: Some(rec.inputs_json.clone()),
+        playback_json: Some(rec.playback_json.clone()),
+        key_id: None,
+        signature: None,
+    };
+    stored.record_hash = stored.computed_hash();
+    let (key_id, signature) = safety::sign_row(signer, "records", &stored.record_hash);
+    stored.key_id = key_id;
+    stored.signature = signature;
+    let n = tx
+        .execute(
+            "INSERT INTO records (id, time_utc, time_unix_ns, serial, plan_id, plan_revision, \
+             plan_sha256, software_version, station, operator, rig, verdict, result_json, \
+             capture_sha256, prev_hash, record_hash, signature, calibration_mode, \
+             calibration_sha256, build, inputs_json, playback_json, key_id) \
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, \
+             ?18, ?19, ?20, ?21, ?22, ?23)",
+            params![
+                stored.id,
+                stored.time_utc,
+                time_unix_ns,
+                stored.serial,
+                stored.plan_id,
+                stored.plan_revision,
+                stored.plan_sha256,
+                stored.software_version,
+                stored.station,
+                stored.operator,
+                stored.rig,
+                verdict_word(stored.verdict),
+                stored.result_json,
+                stored.capture_sha256,
+                stored.prev_hash,
+                stored.record_hash,
+                stored.signature,
+                stored.calibration_mode,
+                stored.calibration_sha256,
+                stored.build,
+                stored.inputs_json,
+                stored.playback_json,
+                stored.key_id,
+            ],
+        )
+        .map_err(err)?;
+    prove_insert(&tx, "records", "record_hash", id, &stored.record_hash, n)
+        .map_err(|e| e.into_store(db_path))?;
+    crash_point("after_record");
+    let mut events = Vec::with_capacity(unit.safety_events.len());
+    for e in unit.safety_events {
+        let mut e = e.clone();
+        e.record_id = Some(id);
+        events
+            .push(safety::insert_safety_event(&tx, &e, signer).map_err(|e| e.into_store(db_path))?);
+    }
+    let mut exposures = Vec::with_capacity(unit.exposures.len());
+    for x in unit.exposures {
+        let mut x = x.clone();
+        x.record_id = Some(id);
+        exposures
+            .push(safety::insert_exposure(&tx, &x, signer).map_err(|e| e.into_store(db_path))?);
+    }
+    crash_point("before_commit");
+    tx.commit().map_err(err)?;
+    Ok(AppendedUnit {
+        record: stored,
+        safety_events: events,
+        exposures,
+    })
+}
+
+/// Refuse to write into a database holding schema objects that are not the store's own.
+pub(crate) fn check_own_schema(
+    tx: &rusqlite::Transaction<'_>,
+    db_path: &Path,
+) -> Result<(), StoreError> {
+    let foreign =
+        schema::foreign_objects(tx, SCHEMA_VERSION).map_err(|e| sqlite_err(db_path, e))?;
+    if foreign.is_empty() {
+        return Ok(());
+    }
+    Err(StoreError::ForeignObjects {
+        path: db_path.to_owned(),
+        objects: foreign
+            .iter()
+            .map(|(t, n)| format!("{t} {n}"))
+            .collect::<Vec<_>>()
+            .join(", "),
+    })
+}
+
+/// Prove an insert into `table`: exactly one row changed, the row with `id` is the last one
+/// and its `hash_column` reads back as `hash`. A trigger that silently dropped or altered
+/// the row, or wrote another, shows here.
+pub(crate) fn prove_insert(
+    tx: &rusqlite::Transaction<'_>,
+    table: &'static str,
+    hash_column: &str,
+    id: i64,
+    hash: &str,
+    changed: usize,
+) -> Result<(), safety::RowError> {
+    let not_proven = |detail: String| {
+        safety::RowError::Store(StoreError::AppendNotProven {
+            path: PathBuf::new(),
+            table,
+            id,
+            detail,
+        })
+    };
+    if changed != 1 {
+        return Err(not_proven(format!("{changed} rows inserted, expected 1")));
+    }
+    let read: Option<String> = tx
+        .query_row(
+            &format!("SELECT {hash_column} FROM {table} WHERE id = ?1"),
+            [id],
+            |r| r.get(0),
+        )
+        .optional()?;
+    match read {
+        None => return Err(not_proven("no row with that id after the insert".into())),
+        Some(h) if h != hash => return Err(not_proven(format!("its hash reads back as {h}"))),
+        Some(_) => {}
+    }
+    let max: Option<i64> =
+        tx.query_row(&format!("SELECT MAX(id) FROM {table}"), [], |r| r.get(0))?;
+    if max != Some(id) {
+        return Err(not_proven(format!(
+            "the last id is {}, not this row's",
+            max.map_or("none".into(), |m| m.to_string())
+        )));
+    }
+    Ok(())
 }

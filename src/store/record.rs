@@ -42,6 +42,18 @@ pub struct NewRecord {
     /// SHA-256 of the calibration applied (`tragus-calibration/1`, 64 lowercase hex digits),
     /// `None` when none was.
     pub calibration_sha256: Option<String>,
+    /// The software build that measured the unit: version, git commit and whether the
+    /// working tree had changes (`0.1.0+git.0123456789ab`, `….dirty`), set at build time.
+    pub build: String,
+    /// Links to the archived inputs, a JSON object of role → SHA-256 of the archived file
+    /// (`{"plan":…,"station":…,"calibration":…}`; roles absent when there was no such
+    /// input). Every linked file must be in the archive or handed to the append.
+    pub inputs_json: String,
+    /// What was played, a JSON object: `drive_gain_db` (per plan channel, the gain the
+    /// sweep was played at relative to the plan, 0 unless hearing safety scaled it down),
+    /// `calibration_offsets_db` (per plan channel, or `null`), `abandoned` (true when the
+    /// sweep was stopped for safety and nothing was judged).
+    pub playback_json: String,
 }
 
 /// A record as stored: the appended fields plus what the store added.
@@ -84,6 +96,17 @@ pub struct StoredRecord {
     pub prev_hash: String,
     /// SHA-256 of this record's canonical bytes, lowercase hex.
     pub record_hash: String,
+    /// See [`NewRecord::build`]; `None` for a record written before schema 4 (then its hash
+    /// is over the v1 or v2 form, without the three provenance fields).
+    pub build: Option<String>,
+    /// See [`NewRecord::inputs_json`]; `None` before schema 4.
+    pub inputs_json: Option<String>,
+    /// See [`NewRecord::playback_json`]; `None` before schema 4.
+    pub playback_json: Option<String>,
+    /// Id of the station key that signed `record_hash`; `None` when unsigned.
+    pub key_id: Option<String>,
+    /// Ed25519 signature over `record_hash` (64 bytes); `None` when unsigned.
+    pub signature: Option<Vec<u8>>,
 }
 
 impl StoredRecord {
@@ -107,6 +130,13 @@ impl StoredRecord {
                 .calibration_mode
                 .as_deref()
                 .map(|m| (m, self.calibration_sha256.as_deref().unwrap_or(""))),
+            provenance: self.build.as_deref().map(|b| {
+                (
+                    b,
+                    self.inputs_json.as_deref().unwrap_or(""),
+                    self.playback_json.as_deref().unwrap_or(""),
+                )
+            }),
         }
     }
 
@@ -262,6 +292,18 @@ impl NewRecord {
                 found: shorten(&self.plan_sha256),
             });
         }
+        check_id_text("build", &self.build)?;
+        self.input_links()?;
+        match serde_json::from_str::<serde_json::Value>(&self.playback_json) {
+            Ok(serde_json::Value::Object(_)) => {}
+            _ => {
+                return Err(StoreError::InvalidRecord {
+                    field: "playback_json",
+                    expected: "a JSON object",
+                    found: shorten(&self.playback_json),
+                })
+            }
+        }
         if serde_json::from_str::<serde::de::IgnoredAny>(&self.result_json).is_err() {
             return Err(StoreError::InvalidRecord {
                 field: "result_json",
@@ -270,6 +312,42 @@ impl NewRecord {
             });
         }
         Ok(time_ns)
+    }
+}
+
+/// The archived inputs `inputs_json` links to, as `(role, sha256)`, in the JSON's order;
+/// an error unless it is a JSON object of role (an id) → 64 lowercase hex digits.
+pub(crate) fn parse_input_links(inputs_json: &str) -> Result<Vec<(String, String)>, String> {
+    let map = match serde_json::from_str::<serde_json::Value>(inputs_json) {
+        Ok(serde_json::Value::Object(m)) => m,
+        _ => return Err("expected a JSON object of role → SHA-256".into()),
+    };
+    let mut out = Vec::with_capacity(map.len());
+    for (role, v) in map {
+        let ok_role = !role.is_empty()
+            && role
+                .bytes()
+                .all(|b| b.is_ascii_lowercase() || b.is_ascii_digit() || b == b'_');
+        match v.as_str() {
+            Some(sha) if ok_role && is_sha256_hex(sha) => out.push((role, sha.to_string())),
+            _ => {
+                return Err(format!(
+                    "expected role → 64 lowercase hex digits, found {role:?} → {v}"
+                ))
+            }
+        }
+    }
+    Ok(out)
+}
+
+impl NewRecord {
+    /// The archived inputs this record links to (see [`parse_input_links`]).
+    pub(crate) fn input_links(&self) -> Result<Vec<(String, String)>, StoreError> {
+        parse_input_links(&self.inputs_json).map_err(|_| StoreError::InvalidRecord {
+            field: "inputs_json",
+            expected: "a JSON object of role → 64 lowercase hex digits",
+            found: shorten(&self.inputs_json),
+        })
     }
 }
 

@@ -224,7 +224,7 @@ impl StoredExposure {
 
 impl NewSafetyEvent {
     /// Check every field; returns the time as Unix nanoseconds for the time index.
-    fn validate(&self) -> Result<i64, StoreError> {
+    pub(crate) fn validate(&self) -> Result<i64, StoreError> {
         check_id_text("station", &self.station)?;
         check_id_text("operator", &self.operator)?;
         check_id_text("plan_id", &self.plan_id)?;
@@ -265,7 +265,7 @@ impl NewSafetyEvent {
 }
 
 impl NewExposure {
-    fn validate(&self) -> Result<(), StoreError> {
+    pub(crate) fn validate(&self) -> Result<(), StoreError> {
         check_id_text("operator", &self.operator)?;
         check_id_text("station", &self.station)?;
         check_id_text("serial", &self.serial)?;
@@ -315,56 +315,22 @@ impl Store {
         &mut self,
         event: &NewSafetyEvent,
     ) -> Result<StoredSafetyEvent, StoreError> {
-        let time_unix_ns = event.validate()?;
-        let db_path = &self.db_path;
-        let err = |e| sqlite_err(db_path, e);
-        let tx = self
-            .conn
-            .transaction_with_behavior(TransactionBehavior::Immediate)
-            .map_err(err)?;
-        check_record_exists(&tx, event.record_id).map_err(|e| e.into_store(db_path))?;
-        let (id, prev_hash) =
-            next_in_chain(&tx, "safety_events").map_err(|e| e.into_store(db_path))?;
-        let mut stored = StoredSafetyEvent {
-            id,
-            time_utc: event.time_utc.clone(),
-            station: event.station.clone(),
-            operator: event.operator.clone(),
-            serial: event.serial.clone(),
-            plan_id: event.plan_id.clone(),
-            plan_sha256: event.plan_sha256.clone(),
-            kind: event.kind,
-            message: event.message.clone(),
-            detail_json: event.detail_json.clone(),
-            record_id: event.record_id,
-            prev_hash,
-            row_hash: String::new(),
-        };
-        stored.row_hash = stored.computed_hash();
-        tx.execute(
-            "INSERT INTO safety_events (id, time_utc, time_unix_ns, station, operator, serial, \
-             plan_id, plan_sha256, kind, message, detail_json, record_id, prev_hash, row_hash) \
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14)",
-            params![
-                stored.id,
-                stored.time_utc,
-                time_unix_ns,
-                stored.station,
-                stored.operator,
-                stored.serial,
-                stored.plan_id,
-                stored.plan_sha256,
-                stored.kind.word(),
-                stored.message,
-                stored.detail_json,
-                stored.record_id,
-                stored.prev_hash,
-                stored.row_hash,
-            ],
-        )
-        .map_err(err)?;
-        tx.commit().map_err(err)?;
-        Ok(stored)
+        let db_path = self.db_path.clone();
+        let err = |e| sqlite_err(&db_path, e);
+        let signer = self.signer.take();
+        let result = (|| {
+            let tx = self
+                .conn
+                .transaction_with_behavior(TransactionBehavior::Immediate)
+                .map_err(err)?;
+            super::check_own_schema(&tx, &db_path)?;
+            let stored = insert_safety_event(&tx, event, signer.as_ref())
+                .map_err(|e| e.into_store(&db_path))?;
+            tx.commit().map_err(err)?;
+            Ok(stored)
+        })();
+        self.signer = signer;
+        result
     }
 
     /// The safety events matching `filter`, by id, oldest first unless
@@ -421,50 +387,22 @@ impl Store {
         &mut self,
         exposure: &NewExposure,
     ) -> Result<StoredExposure, StoreError> {
-        exposure.validate()?;
-        let db_path = &self.db_path;
-        let err = |e| sqlite_err(db_path, e);
-        let tx = self
-            .conn
-            .transaction_with_behavior(TransactionBehavior::Immediate)
-            .map_err(err)?;
-        check_record_exists(&tx, exposure.record_id).map_err(|e| e.into_store(db_path))?;
-        let (id, prev_hash) = next_in_chain(&tx, "exposures").map_err(|e| e.into_store(db_path))?;
-        let mut stored = StoredExposure {
-            id,
-            operator: exposure.operator.clone(),
-            station: exposure.station.clone(),
-            start_unix_s: exposure.start_unix_s,
-            level_dba: no_negative_zero(exposure.level_dba),
-            duration_s: no_negative_zero(exposure.duration_s),
-            serial: exposure.serial.clone(),
-            plan_id: exposure.plan_id.clone(),
-            record_id: exposure.record_id,
-            prev_hash,
-            row_hash: String::new(),
-        };
-        stored.row_hash = stored.computed_hash();
-        tx.execute(
-            "INSERT INTO exposures (id, operator, station, start_unix_s, level_dba, duration_s, \
-             serial, plan_id, record_id, prev_hash, row_hash) \
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
-            params![
-                stored.id,
-                stored.operator,
-                stored.station,
-                stored.start_unix_s,
-                stored.level_dba,
-                stored.duration_s,
-                stored.serial,
-                stored.plan_id,
-                stored.record_id,
-                stored.prev_hash,
-                stored.row_hash,
-            ],
-        )
-        .map_err(err)?;
-        tx.commit().map_err(err)?;
-        Ok(stored)
+        let db_path = self.db_path.clone();
+        let err = |e| sqlite_err(&db_path, e);
+        let signer = self.signer.take();
+        let result = (|| {
+            let tx = self
+                .conn
+                .transaction_with_behavior(TransactionBehavior::Immediate)
+                .map_err(err)?;
+            super::check_own_schema(&tx, &db_path)?;
+            let stored = insert_exposure(&tx, exposure, signer.as_ref())
+                .map_err(|e| e.into_store(&db_path))?;
+            tx.commit().map_err(err)?;
+            Ok(stored)
+        })();
+        self.signer = signer;
+        result
     }
 
     /// Every stored exposure of `operator`, by id.
@@ -500,8 +438,127 @@ impl Store {
     }
 }
 
+/// Insert one safety event at the end of its chain inside the caller's transaction, signed
+/// when `signer` is given, and prove it was written ([`super::prove_insert`]).
+pub(crate) fn insert_safety_event(
+    tx: &rusqlite::Transaction<'_>,
+    event: &NewSafetyEvent,
+    signer: Option<&crate::keys::StationKey>,
+) -> Result<StoredSafetyEvent, RowError> {
+    let time_unix_ns = event.validate().map_err(RowError::Store)?;
+    check_record_exists(tx, event.record_id)?;
+    let (id, prev_hash) = next_in_chain(tx, "safety_events")?;
+    let mut stored = StoredSafetyEvent {
+        id,
+        time_utc: event.time_utc.clone(),
+        station: event.station.clone(),
+        operator: event.operator.clone(),
+        serial: event.serial.clone(),
+        plan_id: event.plan_id.clone(),
+        plan_sha256: event.plan_sha256.clone(),
+        kind: event.kind,
+        message: event.message.clone(),
+        detail_json: event.detail_json.clone(),
+        record_id: event.record_id,
+        prev_hash,
+        row_hash: String::new(),
+    };
+    stored.row_hash = stored.computed_hash();
+    let (key_id, signature) = sign_row(signer, "safety_events", &stored.row_hash);
+    let n = tx.execute(
+        "INSERT INTO safety_events (id, time_utc, time_unix_ns, station, operator, serial, \
+         plan_id, plan_sha256, kind, message, detail_json, record_id, prev_hash, row_hash, \
+         key_id, signature) \
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16)",
+        params![
+            stored.id,
+            stored.time_utc,
+            time_unix_ns,
+            stored.station,
+            stored.operator,
+            stored.serial,
+            stored.plan_id,
+            stored.plan_sha256,
+            stored.kind.word(),
+            stored.message,
+            stored.detail_json,
+            stored.record_id,
+            stored.prev_hash,
+            stored.row_hash,
+            key_id,
+            signature,
+        ],
+    )?;
+    super::prove_insert(tx, "safety_events", "row_hash", id, &stored.row_hash, n)?;
+    Ok(stored)
+}
+
+/// Insert one exposure at the end of its chain inside the caller's transaction, signed
+/// when `signer` is given, and prove it was written. −0.0 is stored as 0.0.
+pub(crate) fn insert_exposure(
+    tx: &rusqlite::Transaction<'_>,
+    exposure: &NewExposure,
+    signer: Option<&crate::keys::StationKey>,
+) -> Result<StoredExposure, RowError> {
+    exposure.validate().map_err(RowError::Store)?;
+    check_record_exists(tx, exposure.record_id)?;
+    let (id, prev_hash) = next_in_chain(tx, "exposures")?;
+    let mut stored = StoredExposure {
+        id,
+        operator: exposure.operator.clone(),
+        station: exposure.station.clone(),
+        start_unix_s: exposure.start_unix_s,
+        level_dba: no_negative_zero(exposure.level_dba),
+        duration_s: no_negative_zero(exposure.duration_s),
+        serial: exposure.serial.clone(),
+        plan_id: exposure.plan_id.clone(),
+        record_id: exposure.record_id,
+        prev_hash,
+        row_hash: String::new(),
+    };
+    stored.row_hash = stored.computed_hash();
+    let (key_id, signature) = sign_row(signer, "exposures", &stored.row_hash);
+    let n = tx.execute(
+        "INSERT INTO exposures (id, operator, station, start_unix_s, level_dba, duration_s, \
+         serial, plan_id, record_id, prev_hash, row_hash, key_id, signature) \
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13)",
+        params![
+            stored.id,
+            stored.operator,
+            stored.station,
+            stored.start_unix_s,
+            stored.level_dba,
+            stored.duration_s,
+            stored.serial,
+            stored.plan_id,
+            stored.record_id,
+            stored.prev_hash,
+            stored.row_hash,
+            key_id,
+            signature,
+        ],
+    )?;
+    super::prove_insert(tx, "exposures", "row_hash", id, &stored.row_hash, n)?;
+    Ok(stored)
+}
+
+/// `(key_id, signature)` of a row for the database, both NULL without a signer.
+pub(crate) fn sign_row(
+    signer: Option<&crate::keys::StationKey>,
+    table: &str,
+    hash: &str,
+) -> (Option<String>, Option<Vec<u8>>) {
+    match signer {
+        Some(k) => (
+            Some(k.key_id().to_string()),
+            Some(k.sign_hash(table, hash).to_vec()),
+        ),
+        None => (None, None),
+    }
+}
+
 /// A failure inside an append or read, before it is tied to the database path.
-enum RowError {
+pub(crate) enum RowError {
     Sqlite(rusqlite::Error),
     Store(StoreError),
 }
@@ -513,7 +570,7 @@ impl From<rusqlite::Error> for RowError {
 }
 
 impl RowError {
-    fn into_store(self, db_path: &std::path::Path) -> StoreError {
+    pub(crate) fn into_store(self, db_path: &std::path::Path) -> StoreError {
         match self {
             RowError::Sqlite(e) => sqlite_err(db_path, e),
             RowError::Store(e) => e,

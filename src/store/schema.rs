@@ -15,7 +15,7 @@ use super::error::StoreError;
 pub(crate) const APPLICATION_ID: i64 = 0x5452_4753;
 
 /// Schema version this build writes and reads.
-pub const SCHEMA_VERSION: i64 = 3;
+pub const SCHEMA_VERSION: i64 = 4;
 
 /// How long an append waits for another process's write to finish before giving up with
 /// [`StoreError::Locked`]. An append holds the lock for one fsync'd transaction
@@ -115,6 +115,54 @@ END",
     ),
 ];
 
+/// The triggers that keep `store_meta` (the store's identity) write-once, as `(name, SQL)`.
+/// They belong to schema version 4; verification checks them like [`TRIGGERS`].
+pub(crate) const META_TRIGGERS: [(&str, &str); 2] = [
+    (
+        "store_meta_no_update",
+        "CREATE TRIGGER store_meta_no_update BEFORE UPDATE ON store_meta
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store identity cannot be changed');
+END",
+    ),
+    (
+        "store_meta_no_delete",
+        "CREATE TRIGGER store_meta_no_delete BEFORE DELETE ON store_meta
+BEGIN
+    SELECT RAISE(ABORT, 'tragus store identity cannot be deleted');
+END",
+    ),
+];
+
+/// Every schema object a version-4 store has, as `(type, name)`: the tables, their indexes
+/// (SQLite's own automatic index of `store_meta`'s primary key included) and the triggers.
+/// Anything else in `sqlite_schema` (a trigger, view, table or index someone added) is
+/// foreign: the append refuses to write and verification reports it as tampering.
+pub(crate) const OWN_OBJECTS: [(&str, &str); 22] = [
+    ("table", "records"),
+    ("table", "safety_events"),
+    ("table", "exposures"),
+    ("table", "store_meta"),
+    ("index", "records_by_serial"),
+    ("index", "records_by_plan"),
+    ("index", "records_by_time"),
+    ("index", "safety_events_by_time"),
+    ("index", "safety_events_by_serial"),
+    ("index", "exposures_by_operator"),
+    ("index", "sqlite_autoindex_store_meta_1"),
+    ("trigger", "records_no_update"),
+    ("trigger", "records_no_delete"),
+    ("trigger", "records_chain_linear"),
+    ("trigger", "safety_events_no_update"),
+    ("trigger", "safety_events_no_delete"),
+    ("trigger", "safety_events_chain_linear"),
+    ("trigger", "exposures_no_update"),
+    ("trigger", "exposures_no_delete"),
+    ("trigger", "exposures_chain_linear"),
+    ("trigger", "store_meta_no_update"),
+    ("trigger", "store_meta_no_delete"),
+];
+
 /// Migrations, index `i` takes the schema from version `i` to `i + 1`. Add a new entry for a
 /// new version; never edit an old one, stores in the field have already run it.
 const MIGRATIONS: [&str; SCHEMA_VERSION as usize] = [
@@ -197,6 +245,25 @@ CREATE TABLE exposures (
 ) STRICT;
 
 CREATE INDEX exposures_by_operator ON exposures (operator, start_unix_s);
+"#,
+    // 3 → 4: the auditor's store (issue 12). Records gain the build identity, the links to
+    // the archived inputs and what was played (gains), all three hashed (record form v3),
+    // and the key id beside the signature; safety events and exposures gain a signature
+    // and key id (not hashed: a signature is over the hash). `store_meta` holds the
+    // store's random identity, which checkpoints name. Older rows keep their forms.
+    r#"
+ALTER TABLE records ADD COLUMN key_id        TEXT;
+ALTER TABLE records ADD COLUMN build         TEXT;
+ALTER TABLE records ADD COLUMN inputs_json   TEXT;
+ALTER TABLE records ADD COLUMN playback_json TEXT;
+ALTER TABLE safety_events ADD COLUMN signature BLOB;
+ALTER TABLE safety_events ADD COLUMN key_id    TEXT;
+ALTER TABLE exposures ADD COLUMN signature BLOB;
+ALTER TABLE exposures ADD COLUMN key_id    TEXT;
+CREATE TABLE store_meta (
+    name  TEXT PRIMARY KEY,
+    value TEXT NOT NULL
+) STRICT;
 "#,
 ];
 
@@ -347,10 +414,62 @@ fn migrate(path: &Path, conn: &mut Connection) -> Result<(), StoreError> {
                 tx.execute_batch(sql).map_err(err)?;
             }
         }
+        if step == 3 {
+            for (_, sql) in META_TRIGGERS {
+                tx.execute_batch(sql).map_err(err)?;
+            }
+            tx.execute(
+                "INSERT INTO store_meta (name, value) VALUES ('store_id', ?1)",
+                [new_store_id()],
+            )
+            .map_err(err)?;
+        }
         tx.pragma_update(None, "application_id", APPLICATION_ID)
             .map_err(err)?;
         tx.pragma_update(None, "user_version", version + 1)
             .map_err(err)?;
         tx.commit().map_err(err)?;
+    }
+}
+
+/// A new store's identity: 128 random bits from the OS, as 32 lowercase hex digits.
+fn new_store_id() -> String {
+    let mut bytes = [0u8; 16];
+    rand::Rng::fill(&mut rand::rng(), &mut bytes);
+    hex::encode(bytes)
+}
+
+/// The schema objects of the database that are not the store's own
+/// ([`OWN_OBJECTS`]), as `(type, name)`, sorted. Empty for an intact store of the current
+/// version; for an older version only the objects of that version count as own.
+pub(crate) fn foreign_objects(
+    conn: &Connection,
+    version: i64,
+) -> rusqlite::Result<Vec<(String, String)>> {
+    let own: Vec<(&str, &str)> = OWN_OBJECTS
+        .iter()
+        .copied()
+        .filter(|(_, name)| object_version(name) <= version)
+        .collect();
+    let mut stmt = conn.prepare("SELECT type, name FROM sqlite_schema ORDER BY type, name")?;
+    let rows = stmt.query_map([], |r| Ok((r.get::<_, String>(0)?, r.get::<_, String>(1)?)))?;
+    let mut out = Vec::new();
+    for row in rows {
+        let (ty, name) = row?;
+        if !own.iter().any(|&(t, n)| t == ty && n == name) {
+            out.push((ty, name));
+        }
+    }
+    Ok(out)
+}
+
+/// The schema version that created an own object.
+fn object_version(name: &str) -> i64 {
+    if name.starts_with("records") {
+        1
+    } else if name.starts_with("safety_events") || name.starts_with("exposures") {
+        3
+    } else {
+        4
     }
 }

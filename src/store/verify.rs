@@ -327,7 +327,7 @@ impl fmt::Display for Notice {
 }
 
 /// Columns read for verification, in this order.
-const COLUMNS: [&str; 18] = [
+const COLUMNS: [&str; 21] = [
     "id",
     "time_utc",
     "time_unix_ns",
@@ -346,11 +346,20 @@ const COLUMNS: [&str; 18] = [
     "record_hash",
     "calibration_mode",
     "calibration_sha256",
+    "build",
+    "inputs_json",
+    "playback_json",
 ];
 
 /// Columns that may be NULL (schema 2 columns on records from schema 1; the sha when no
 /// calibration was applied).
-const NULLABLE_COLUMNS: [&str; 2] = ["calibration_mode", "calibration_sha256"];
+const NULLABLE_COLUMNS: [&str; 5] = [
+    "calibration_mode",
+    "calibration_sha256",
+    "build",
+    "inputs_json",
+    "playback_json",
+];
 
 /// One row as raw values; a damaged column is `None` and has been reported.
 struct RawRow {
@@ -424,6 +433,13 @@ impl RawRow {
             capture_sha256: t("capture_sha256")?,
             prev_hash: t("prev_hash")?,
             calibration: t("calibration_mode").map(|m| (m, t("calibration_sha256").unwrap_or(""))),
+            provenance: t("build").map(|b| {
+                (
+                    b,
+                    t("inputs_json").unwrap_or(""),
+                    t("playback_json").unwrap_or(""),
+                )
+            }),
         })
     }
 }

@@ -64,8 +64,9 @@ fn time_unix_ns(t: &str) -> i64 {
 
 #[test]
 fn v1_store_migrates_and_keeps_verifying() {
-    // Schema 3 (safety events, exposures) leaves records as schema 2 made them.
-    assert_eq!(SCHEMA_VERSION, 3);
+    // Schemas 3 (safety events, exposures) and 4 (provenance, signatures) leave records as
+    // schema 2 made them.
+    assert_eq!(SCHEMA_VERSION, 4);
     let reference = reference();
     let tmp = tempfile::tempdir().unwrap();
     std::fs::create_dir_all(tmp.path().join("captures")).unwrap();
@@ -122,7 +123,8 @@ fn v1_store_migrates_and_keeps_verifying() {
         assert_eq!(rec.computed_hash(), s(r, "record_hash"));
     }
 
-    // A record appended after the migration: v2 form, chained on the last v1 record.
+    // A record appended after the migration: v3 form (schema 4), chained on the last v1
+    // record.
     let after = &reference["after_migration"][0];
     let new = NewRecord {
         time_utc: s(after, "time_utc"),
@@ -138,6 +140,9 @@ fn v1_store_migrates_and_keeps_verifying() {
         result_json: s(after, "result_json"),
         calibration_mode: s(after, "calibration_mode"),
         calibration_sha256: after["calibration_sha256"].as_str().map(str::to_owned),
+        build: s(after, "build"),
+        inputs_json: s(after, "inputs_json"),
+        playback_json: s(after, "playback_json"),
     };
     let stored = store
         .append(&new, &hex::decode(s(after, "capture_hex")).unwrap())
@@ -171,6 +176,9 @@ fn dropping_the_mode_of_a_v2_record_breaks_its_hash() {
         result_json: s(r, "result_json"),
         calibration_mode: s(r, "calibration_mode"),
         calibration_sha256: r["calibration_sha256"].as_str().map(str::to_owned),
+        build: s(r, "build"),
+        inputs_json: s(r, "inputs_json"),
+        playback_json: s(r, "playback_json"),
     };
     store
         .append(&new, &hex::decode(s(r, "capture_hex")).unwrap())
@@ -190,4 +198,51 @@ fn dropping_the_mode_of_a_v2_record_breaks_its_hash() {
         "{:?}",
         report.problems
     );
+}
+
+/// Write the two v2 records of the Python reference into the store at `dir` (opened and
+/// created by the caller) through a raw connection, as schema 2 wrote them; returns their
+/// record hashes.
+pub(crate) fn write_reference_v2_records(dir: &std::path::Path) -> Vec<String> {
+    let reference = reference();
+    let conn = Connection::open(dir.join(DB_FILE)).unwrap();
+    let mut hashes = Vec::new();
+    for r in reference["records_v2"].as_array().unwrap() {
+        let capture = hex::decode(s(r, "capture_hex")).unwrap();
+        std::fs::write(
+            dir.join("captures")
+                .join(format!("{}.wav", s(r, "capture_sha256"))),
+            capture,
+        )
+        .unwrap();
+        conn.execute(
+            "INSERT INTO records (id, time_utc, time_unix_ns, serial, plan_id, plan_revision, \
+             plan_sha256, software_version, station, operator, rig, verdict, result_json, \
+             capture_sha256, prev_hash, record_hash, calibration_mode, calibration_sha256) \
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18)",
+            rusqlite::params![
+                r["id"].as_i64().unwrap(),
+                s(r, "time_utc"),
+                time_unix_ns(&s(r, "time_utc")),
+                s(r, "serial"),
+                s(r, "plan_id"),
+                r["plan_revision"].as_i64().unwrap(),
+                s(r, "plan_sha256"),
+                s(r, "software_version"),
+                s(r, "station"),
+                s(r, "operator"),
+                s(r, "rig"),
+                s(r, "verdict"),
+                s(r, "result_json"),
+                s(r, "capture_sha256"),
+                s(r, "prev_hash"),
+                s(r, "record_hash"),
+                s(r, "calibration_mode"),
+                r["calibration_sha256"].as_str(),
+            ],
+        )
+        .unwrap();
+        hashes.push(s(r, "record_hash"));
+    }
+    hashes
 }

@@ -250,7 +250,8 @@ fn raw_update_and_delete_are_refused_by_triggers() {
             "INSERT INTO records SELECT 4, time_utc, time_unix_ns, serial, plan_id, \
              plan_revision, plan_sha256, software_version, station, operator, rig, verdict, \
              result_json, capture_sha256, prev_hash, record_hash, NULL, calibration_mode, \
-             calibration_sha256 FROM records WHERE id = 3",
+             calibration_sha256, key_id, build, inputs_json, playback_json FROM records \
+             WHERE id = 3",
             [],
         )
         .unwrap_err();
@@ -468,13 +469,13 @@ fn store_from_a_newer_tragus_is_refused() {
     let tmp = tempfile::tempdir().unwrap();
     drop(open(tmp.path()));
     raw(tmp.path())
-        .execute_batch("PRAGMA user_version = 4")
+        .execute_batch("PRAGMA user_version = 5")
         .unwrap();
     let err = Store::open(tmp.path()).unwrap_err();
     assert_eq!(
         err.to_string(),
         format!(
-            "{}: store schema version 4 is newer than this tragus supports (3); upgrade tragus",
+            "{}: store schema version 5 is newer than this tragus supports (4); upgrade tragus",
             tmp.path().join(DB_FILE).display()
         )
     );

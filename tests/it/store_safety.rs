@@ -227,7 +227,7 @@ fn raw_update_and_delete_are_refused_by_triggers() {
             "safety events cannot be deleted",
         ),
         (
-            "INSERT INTO exposures VALUES (7, 'x', 's', 0, 80.0, 1.0, 'E', 'p', NULL, 'a', 'b')",
+            "INSERT INTO exposures VALUES (7, 'x', 's', 0, 80.0, 1.0, 'E', 'p', NULL, 'a', 'b', NULL, NULL)",
             "an exposure must follow the last exposure",
         ),
     ] {
@@ -365,18 +365,19 @@ fn dropped_and_damaged_safety_rows_are_reported() {
 #[test]
 fn schema_2_store_migrates_and_its_records_keep_verifying() {
     let tmp = tempfile::tempdir().unwrap();
-    // A schema-2 store: written by this code, then the schema-3 tables (and with them their
-    // triggers and indexes) taken away and the version set back. Schema 3 does not touch
-    // `records`, so this is byte for byte what schema 2 left.
-    let before = {
-        let mut store = Store::open(tmp.path()).unwrap();
-        let recs: Vec<_> = (1..=4)
-            .map(|i| store.append(&record(i), &capture(i)).unwrap())
-            .collect();
-        recs
-    };
+    // A schema-2 store: the tables of later schemas (with their triggers and indexes) and
+    // the later columns taken away, the version set back, and the two v2 records of the
+    // Python reference (tests/reference/store_record_hash.py) written as schema 2 wrote
+    // them, hashes and all.
+    drop(Store::open(tmp.path()).unwrap());
+    let hashes = crate::calibration_store::write_reference_v2_records(tmp.path());
     raw(tmp.path())
-        .execute_batch("DROP TABLE safety_events; DROP TABLE exposures; PRAGMA user_version = 2;")
+        .execute_batch(
+            "DROP TABLE safety_events; DROP TABLE exposures; DROP TABLE store_meta;
+             ALTER TABLE records DROP COLUMN key_id; ALTER TABLE records DROP COLUMN build;
+             ALTER TABLE records DROP COLUMN inputs_json;
+             ALTER TABLE records DROP COLUMN playback_json; PRAGMA user_version = 2;",
+        )
         .unwrap();
     let tables: i64 = raw(tmp.path())
         .query_row(
@@ -386,6 +387,7 @@ fn schema_2_store_migrates_and_its_records_keep_verifying() {
         )
         .unwrap();
     assert_eq!(tables, 0);
+    let before: Vec<String> = hashes;
 
     let mut store = Store::open(tmp.path()).unwrap();
     let version: i64 = rusqlite::Connection::open(tmp.path().join(DB_FILE))
@@ -393,17 +395,17 @@ fn schema_2_store_migrates_and_its_records_keep_verifying() {
         .pragma_query_value(None, "user_version", |r| r.get(0))
         .unwrap();
     assert_eq!(version, SCHEMA_VERSION);
-    assert_eq!(SCHEMA_VERSION, 3);
+    assert_eq!(SCHEMA_VERSION, 4);
     let report = store.verify().unwrap();
     assert!(report.is_intact(), "{:?}", report.problems);
-    assert_eq!(report.n_records, 4);
-    assert_eq!(report.head_hash, before[3].record_hash);
+    assert_eq!(report.n_records, 2);
+    assert_eq!(report.head_hash, before[1]);
     assert_eq!((report.n_safety_events, report.n_exposures), (0, 0));
 
     // The new chains work on the migrated store and link to its records.
     let reference = reference();
     let mut event = event_from(&reference["safety_events"][1]);
-    event.record_id = Some(4);
+    event.record_id = Some(2);
     store.append_safety_event(&event).unwrap();
     store
         .append_exposure(&exposure_from(&reference["exposures"][0]))

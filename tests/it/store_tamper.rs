@@ -372,7 +372,8 @@ fn values_no_record_can_hold_are_reported_without_panic() {
              CREATE TABLE records (id INTEGER PRIMARY KEY, time_utc, time_unix_ns, serial,
                  plan_id, plan_revision, plan_sha256, software_version, station, operator,
                  rig, verdict, result_json, capture_sha256, prev_hash, record_hash, signature,
-                 calibration_mode, calibration_sha256);
+                 calibration_mode, calibration_sha256, key_id, build, inputs_json,
+                 playback_json);
              INSERT INTO records SELECT * FROM old_records;
              DROP TABLE old_records;
              UPDATE records SET plan_revision = 'three', verdict = 'maybe' WHERE id = 2;",

@@ -64,6 +64,10 @@ pub fn record(i: u32) -> NewRecord {
         ),
         calibration_mode: "production".into(),
         calibration_sha256: Some("c1".repeat(32)),
+        build: tragus::BUILD.into(),
+        inputs_json: "{}".into(),
+        playback_json: r#"{"abandoned":false,"calibration_offsets_db":null,"drive_gain_db":[0.0]}"#
+            .into(),
     }
 }
 
