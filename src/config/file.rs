@@ -141,16 +141,18 @@ pub fn read_bytes(path: &Path) -> io::Result<Vec<u8>> {
     Ok(bytes)
 }
 
+/// Files read, as `(path as given, exact bytes)`.
+pub type ReadLog = Vec<(std::path::PathBuf, Vec<u8>)>;
+
 thread_local! {
     /// The files read on this thread while [`recording_reads`] runs.
-    static READS: std::cell::RefCell<Option<Vec<(std::path::PathBuf, Vec<u8>)>>> =
-        const { std::cell::RefCell::new(None) };
+    static READS: std::cell::RefCell<Option<ReadLog>> = const { std::cell::RefCell::new(None) };
 }
 
 /// Run `f` and return, with its result, every file read through this module on this thread
 /// meanwhile (path as given, exact bytes), in order: the exact inputs of a load, for the
 /// store's archive. Nested calls each see their own reads.
-pub fn recording_reads<T>(f: impl FnOnce() -> T) -> (T, Vec<(std::path::PathBuf, Vec<u8>)>) {
+pub fn recording_reads<T>(f: impl FnOnce() -> T) -> (T, ReadLog) {
     let outer = READS.with(|r| r.borrow_mut().replace(Vec::new()));
     let value = f();
     let mine = READS.with(|r| {
