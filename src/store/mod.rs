@@ -11,6 +11,9 @@
 //! DIR/tragus.db                      SQLite, WAL journal, synchronous=FULL
 //! DIR/tragus.db-wal, tragus.db-shm   SQLite's write-ahead log and its index
 //! DIR/captures/<sha256-hex>.wav      raw captures, named by the SHA-256 of their bytes
+//! DIR/archive/<sha256-hex>.json      archived inputs (plan with its CSVs and models, station
+//!                                    file, calibration file), named by the SHA-256 of their
+//!                                    bytes (form: [`InputBundle`])
 //! ```
 //!
 //! Since schema 3 the store also keeps hearing-safety events and operators' listening
@@ -27,7 +30,45 @@
 //!
 //! `record_hash` is the SHA-256 (FIPS 180-4) of these bytes, written as 64 lowercase hex
 //! digits. Auditors recompute it from the stored columns alone. Records appended since
-//! schema 2 use the v2 form:
+//! schema 4 use the v3 form:
+//!
+//! ```text
+//! canonical = "tragus-record-v3" LF  (the fields of the v2 form below, up to and including
+//!             field("calibration_sha256"))  field("build") field("inputs_json")
+//!             field("playback_json") field("prev_hash")
+//! ```
+//!
+//! `build` is the software build identity, `inputs_json` the links to the archived inputs
+//! (a JSON object, role → SHA-256 of the archived file, written `{}` when there are none),
+//! `playback_json` what was played (a JSON object: `abandoned`, `calibration_offsets_db`,
+//! `drive_gain_db`), each as stored. A verifier picks the form by `build`: non-NULL → v3.
+//! Worked example (the reference's first schema-4 record; checked like the v2 example
+//! below), `record_hash` `8f37f3442ff66c52264240b8b4cf86f734bd2584cd5dc7c09772e1124783c3ef`:
+//!
+//! ```text
+//! tragus-record-v3
+//! id:1:1
+//! time_utc:24:2025-03-14T09:26:53.589Z
+//! serial:9:E2-000123
+//! plan_id:11:demo-earbud
+//! plan_revision:1:3
+//! plan_sha256:64:aaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaa
+//! software_version:5:0.1.0
+//! station:18:larkspur-line3-st1
+//! operator:8:j.okafor
+//! rig:9:simulated
+//! verdict:4:pass
+//! result_json:18:{"verdict":"pass"}
+//! capture_sha256:64:531cd597b25052b4845ef2f3887dec2183240802a93b6e044960de8ba017caa0
+//! calibration_mode:10:production
+//! calibration_sha256:64:bbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbbb
+//! build:22:0.1.0+git.0123456789ab
+//! inputs_json:2:{}
+//! playback_json:76:{"abandoned":false,"calibration_offsets_db":null,"drive_gain_db":[0.0,-6.5]}
+//! prev_hash:64:0000000000000000000000000000000000000000000000000000000000000000
+//! ```
+//!
+//! Records appended under schemas 2 and 3 keep the v2 form:
 //!
 //! ```text
 //! canonical = "tragus-record-v2" LF  field("id") field("time_utc") field("serial")
@@ -59,8 +100,8 @@
 //! feeds, JSON). The first record's `prev_hash` is [`GENESIS_PREV_HASH`] (64 zeros); every
 //! other record's `prev_hash` is the `record_hash` of the record with the id one less,
 //! whichever form either has. Not hashed: `time_unix_ns` (derived from `time_utc`;
-//! verification checks it) and `signature` (reserved for the station key's signature over
-//! `record_hash`, NULL until station keys exist).
+//! verification checks it), `signature` and `key_id` (the station key's Ed25519 signature
+//! over the hash, see "Signatures" below).
 //!
 //! Worked example (checked by `tests/store_reference.rs` against
 //! `tests/reference/store_record_hash.py`, which uses Python's `hashlib`): the first record
@@ -130,19 +171,37 @@
 //! `tests/store_safety.rs` checks the store against it. A `record_id` must name an existing
 //! record when the row is appended.
 //!
+//! # Signatures
+//!
+//! A store with a signer ([`Store::set_signer`], the station's key from its station file)
+//! signs every row it appends: `signature` is the 64-byte Ed25519 signature (RFC 8032) over
+//! [`crate::keys::signature_message`]`(TABLE, HASH)` — the bytes
+//! `"tragus-signature-v1" LF TABLE LF HASH`, with TABLE the table name (`records`,
+//! `safety_events`, `exposures`) and HASH the row's stored hash in lowercase hex — and
+//! `key_id` names the key (first 16 hex digits of the SHA-256 of the public key). The hash
+//! chain shows any edit to someone who kept a head hash; the signature shows it to anyone
+//! with the auditor's keyring, because re-chaining a forged row needs the private key.
+//!
 //! # Crash safety
 //!
-//! A crash must never leave a half record. [`Store::append`] writes the capture to a
-//! temporary file in `captures/`, fsyncs it, renames it to its hash name, fsyncs the
-//! directory, and only then inserts the record in one `BEGIN IMMEDIATE` transaction (which
-//! also serializes appends from several processes, so the chain stays linear). A crash can
-//! leave at worst a temporary file or an orphan capture, which [`Store::verify`] lists as
-//! [`Notice`]s, never a record without its capture and never a partial row.
+//! A crash must never leave a half record. [`Store::append_unit`] writes the capture (and
+//! the archived inputs) to a temporary file, fsyncs it, renames it to its hash name, fsyncs
+//! the directory, and only then inserts the record, its safety events and exposures in one
+//! `BEGIN IMMEDIATE` transaction (which also serializes appends from several processes, so
+//! the chains stay linear). A crash can leave at worst a temporary file or an orphan
+//! capture, which [`Store::verify`] lists as [`Notice`]s, never a record without its capture,
+//! never a record without its safety events and never a partial row.
+//!
+//! The append proves itself: it refuses a database holding schema objects that are not the
+//! store's own (a planted trigger could drop or alter the row), and after each insert it
+//! checks that exactly one row was written, that it is the last one and that its hash reads
+//! back; otherwise the transaction is rolled back and the unit is NOT recorded.
 //!
 //! For tests of exactly this, debug builds read the environment variable
 //! [`CRASH_AT_ENV`] (`TRAGUS_STORE_CRASH_AT`): set to `during_capture` (temporary file
-//! written, not yet renamed), `after_capture` (capture in place, no transaction yet) or
-//! `before_commit` (row inserted, transaction not committed), an append reaching that
+//! written, not yet renamed), `after_capture` (capture in place, no transaction yet),
+//! `after_record` (record inserted, its safety rows not yet) or `before_commit` (every row
+//! inserted, transaction not committed), an append reaching that
 //! point writes the line [`CRASH_MARKER`] followed by the point's name to stderr and then
 //! blocks forever, so the test can kill the process there with SIGKILL. Release builds
 //! ignore the variable.

@@ -60,4 +60,5 @@ mod store_crash;
 mod store_reference;
 mod store_safety;
 mod store_tamper;
+mod store_unit_append;
 mod two_stations;
