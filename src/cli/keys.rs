@@ -145,6 +145,9 @@ fn exit(e: KeyError) -> Exit {
         KeyError::Station(crate::station::StationError::Invalid(problems)) => {
             Exit::problems("station file", &problems)
         }
+        e @ KeyError::Exists { .. } => {
+            Exit::bad_input(anyhow::anyhow!("{e}; name a new file with --key-out"))
+        }
         other => Exit::bad_input(other),
     }
 }

@@ -32,9 +32,7 @@ pub enum KeyError {
         mode: u32,
     },
     /// The file to be created already exists: a key is never overwritten.
-    #[error(
-        "{path}: a {what} already exists there; it is never overwritten (choose another path)"
-    )]
+    #[error("{path}: a {what} already exists there, and a key is never written over a file")]
     Exists {
         /// The path.
         path: String,

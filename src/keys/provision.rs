@@ -63,9 +63,8 @@ pub struct NewKey {
 pub fn new_station_key(req: &NewKeyRequest) -> Result<NewKey, KeyError> {
     let path = req.station_file.as_path();
     let label = path.display().to_string();
-    let (station, text) = crate::config::load_file(path, |text: &str, p: &Path| {
-        load_station_str(text, p).map(|s| (s, text.to_string()))
-    })?;
+    let text = crate::config::load_file(path, |t: &str, _: &Path| Ok::<_, KeyError>(t.to_string()))
+        .map_err(|e| e.reading("station file"))?;
     let station_dir = parent_dir(path);
 
     let existing = signing_key_line(&text);
@@ -79,40 +78,17 @@ pub fn new_station_key(req: &NewKeyRequest) -> Result<NewKey, KeyError> {
             ),
         });
     }
-
-    let key_path = absolute(
-        &req.key_out
-            .clone()
-            .unwrap_or_else(|| station_dir.join(format!("{}.key", station.id))),
-    );
-    let key_label = key_path.display().to_string();
-    if std::fs::symlink_metadata(&key_path).is_ok() {
-        return Err(KeyError::Exists {
-            path: key_label,
-            what: "file",
-        });
-    }
-    let (Some(key_parent), Some(key_name)) = (key_path.parent(), key_path.file_name()) else {
-        return Err(refused(&key_label, "expected a file path for the key"));
+    // The station without its old key line (kept blank, so that problems keep their line
+    // numbers): a key being replaced may be gone already, lost or deleted on purpose.
+    let base = match &existing {
+        Some(line) => replace_line(&text, line.pos.line, ""),
+        None => text.clone(),
     };
-    let key_dir = std::fs::canonicalize(key_parent).map_err(|e| {
-        refused(
-            &key_label,
-            &format!(
-                "expected the key's directory {} to exist ({e})",
-                key_parent.display()
-            ),
-        )
-    })?;
+    let station = load_station_str(&base, path)?;
+
     let store = station.store.clone().unwrap_or(req.default_store.clone());
-    let store_real = canonical_lenient(&store);
-    if key_dir.starts_with(&store_real) {
-        return Err(KeyError::InsideStore {
-            key: key_label,
-            store: store_real.display().to_string(),
-        });
-    }
-    let key_real = key_dir.join(key_name);
+    let (key_path, key_real) = key_place(req, &station.id, &station_dir, &store)?;
+    let key_label = key_path.display().to_string();
 
     let keyring_path = req
         .keyring
@@ -198,6 +174,49 @@ pub fn new_station_key(req: &NewKeyRequest) -> Result<NewKey, KeyError> {
         replaced: existing.map(|l| l.value),
         entry,
     })
+}
+
+/// Where the key goes, as given (absolute) and with its directory's links resolved: a free
+/// path in an existing directory outside the store.
+fn key_place(
+    req: &NewKeyRequest,
+    station_id: &str,
+    station_dir: &Path,
+    store: &Path,
+) -> Result<(PathBuf, PathBuf), KeyError> {
+    let key_path = absolute(
+        &req.key_out
+            .clone()
+            .unwrap_or_else(|| station_dir.join(format!("{station_id}.key"))),
+    );
+    let key_label = key_path.display().to_string();
+    if std::fs::symlink_metadata(&key_path).is_ok() {
+        return Err(KeyError::Exists {
+            path: key_label,
+            what: "file",
+        });
+    }
+    let (Some(key_parent), Some(key_name)) = (key_path.parent(), key_path.file_name()) else {
+        return Err(refused(&key_label, "expected a file path for the key"));
+    };
+    let key_dir = std::fs::canonicalize(key_parent).map_err(|e| {
+        refused(
+            &key_label,
+            &format!(
+                "expected the key's directory {} to exist ({e})",
+                key_parent.display()
+            ),
+        )
+    })?;
+    let store_real = canonical_lenient(store);
+    if key_dir.starts_with(&store_real) {
+        return Err(KeyError::InsideStore {
+            key: key_label,
+            store: store_real.display().to_string(),
+        });
+    }
+    let key_real = key_dir.join(key_name);
+    Ok((key_path, key_real))
 }
 
 /// A top-level `signing_key:` of a station file's text.
