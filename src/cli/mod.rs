@@ -34,6 +34,7 @@ mod calibrate;
 mod coupler;
 mod devices;
 mod exposure;
+mod keys;
 mod operator_loop;
 mod records;
 mod run;
@@ -109,6 +110,8 @@ pub enum Command {
     /// An operator's listening dose: NIOSH over the shift (default the last 8 h), WHO/ITU-T
     /// H.870 over the last 7 days, minutes left at a level.
     Exposure(exposure::Args),
+    /// Station signing keys: make one (`new`), list a keyring (`show`).
+    Keys(keys::Args),
 }
 
 /// Where a `--json` document goes.
@@ -359,6 +362,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Calibrate(a) => calibrate::run(a),
         Command::Devices(a) => devices::run(a),
         Command::Exposure(a) => exposure::run(a),
+        Command::Keys(a) => keys::run(a),
     };
     let code = match result {
         Ok(code) => code,

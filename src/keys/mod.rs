@@ -5,6 +5,23 @@
 //! keys with the station each belongs to and when it is valid. Every row the store appends
 //! (records, safety events, exposures) and every checkpoint is signed over its hash, through
 //! [`signature_message`], so a signature cannot be moved from one table or purpose to another.
+//!
+//! Files: the station's private key file (`tragus-station-key/1`, [`StationKey::load`],
+//! [`StationKey::write_new`]) and the auditor's keyring (`tragus-keyring/1`,
+//! [`Keyring::load`], [`Keyring::append_to_file`]); [`new_station_key`] makes a key, its
+//! keyring entry and the station file's `signing_key:` line (`tragus keys new`).
+
+mod error;
+mod fields;
+mod keyfile;
+mod keyring;
+mod provision;
+
+pub use error::KeyError;
+pub use fields::format_time_utc;
+pub use keyfile::{KEY_FILE_FORMAT, KEY_FILE_HEADER};
+pub use keyring::{KEYRING_FORMAT, KEYRING_HEADER};
+pub use provision::{new_station_key, NewKey, NewKeyRequest, MAX_VALID_DAYS};
 
 use ed25519_dalek::{Signature, Signer, SigningKey, Verifier, VerifyingKey};
 use time::OffsetDateTime;

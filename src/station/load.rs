@@ -15,7 +15,7 @@ use marked_yaml::Node;
 use sha2::{Digest, Sha256};
 use std::path::{Path, PathBuf};
 
-const TOP_KEYS: [&str; 12] = [
+const TOP_KEYS: [&str; 13] = [
     "station",
     "description",
     "mode",
@@ -27,6 +27,7 @@ const TOP_KEYS: [&str; 12] = [
     "fixture_tap",
     "calibration",
     "store",
+    "signing_key",
     "caps",
 ];
 const AUDIO_KEYS: [&str; 6] = [
@@ -217,6 +218,13 @@ impl Reader {
                 .scalar(n, "store", "a directory path")
                 .map(|s| Some(self.v.dir.join(s))),
         };
+        // Absolute, so the key is found whatever the working directory of whoever reads it.
+        let signing_key = match top.get_node("signing_key") {
+            None => Some(None),
+            Some(n) => self
+                .existing_file(n, "signing_key")
+                .map(|p| Some(std::path::absolute(&p).unwrap_or(p))),
+        };
         let caps = match top.get_node("caps") {
             None => Some(Caps::default()),
             Some(n) => self.caps(n),
@@ -233,6 +241,7 @@ impl Reader {
             fixture: fixture?,
             calibration: calibration?,
             store: store?,
+            signing_key: signing_key?,
             caps: caps?,
             sha256: hex::encode(Sha256::digest(text.as_bytes())),
             source: source.to_path_buf(),

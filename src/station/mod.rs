@@ -36,6 +36,7 @@
 //! fixture_tap: mic                # optional; default: the plan's fixture_tap
 //! calibration: ../calibration/line3-st1.yaml            # required in production mode
 //! store: ../tragus-data/line3-st1 # optional; default tragus-data
+//! signing_key: line3-st1.key      # optional: the station's private key (`tragus keys new`)
 //! caps:                           # optional; every key optional, defaults in Caps
 //!   max_drive_v_rms: 0.5
 //!   max_drive_v_peak: 0.8
@@ -206,6 +207,9 @@ pub struct Station {
     pub calibration: Option<PathBuf>,
     /// Store directory (resolved), if the station names one.
     pub store: Option<PathBuf>,
+    /// The station's private key file (`signing_key:`, resolved to an absolute path), if
+    /// the station signs its records; read it with `crate::keys::StationKey::load`.
+    pub signing_key: Option<PathBuf>,
     /// Hardware caps.
     pub caps: Caps,
     /// Hex SHA-256 of the station file's bytes.

@@ -25,6 +25,8 @@ mod coupler_cli;
 mod coupler_model_rules;
 mod demo_population;
 mod exposure_cli;
+mod keys;
+mod keys_cli;
 mod layers;
 mod pipeline_captures;
 mod pipeline_correction;
