@@ -473,3 +473,287 @@ fn object_version(name: &str) -> i64 {
         4
     }
 }
+
+// --- Read-only access (verify, checkpoint, listing): never migrates, never writes. ---------
+
+/// How a read-only connection reads the database file.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub(crate) enum ReadMode {
+    /// `mode=ro` with SQLite's locks and write-ahead-log index: another process has the store
+    /// open (or a crash left its log), so its log must be read and its writes waited for.
+    Locked,
+    /// `mode=ro&immutable=1`: no locks, no log, no file created. Used when no write-ahead
+    /// log exists (the last writer closed cleanly, so the file holds every commit), because
+    /// a `mode=ro` connection would create the `-wal` and `-shm` files beside it and leave
+    /// them there; and on read-only media where a log cannot be read.
+    Immutable {
+        /// The database file as it was before the open; a writer that started meanwhile
+        /// shows as a difference ([`ReadOnlyDb::changed_since_open`]).
+        before: FileState,
+        /// Size of a write-ahead log that exists but could not be read (read-only media):
+        /// commits in it are not seen.
+        wal_unread: Option<u64>,
+    },
+}
+
+/// What identifies one state of a file: device, inode, size, modification and change times.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub(crate) struct FileState {
+    id: (u64, u64),
+    len: u64,
+    modified: (i64, i64),
+    changed: (i64, i64),
+}
+
+impl FileState {
+    /// The state of `path` now (without following a final link); `None` when absent.
+    pub(crate) fn of(path: &Path) -> Option<FileState> {
+        let meta = std::fs::symlink_metadata(path).ok()?;
+        #[cfg(unix)]
+        {
+            use std::os::unix::fs::MetadataExt;
+            Some(FileState {
+                id: (meta.dev(), meta.ino()),
+                len: meta.len(),
+                modified: (meta.mtime(), meta.mtime_nsec()),
+                changed: (meta.ctime(), meta.ctime_nsec()),
+            })
+        }
+        #[cfg(not(unix))]
+        {
+            let since = |t: std::io::Result<std::time::SystemTime>| {
+                t.ok()
+                    .and_then(|t| t.duration_since(std::time::UNIX_EPOCH).ok())
+                    .map_or((0, 0), |d| {
+                        (d.as_secs() as i64, i64::from(d.subsec_nanos()))
+                    })
+            };
+            Some(FileState {
+                id: (0, 0),
+                len: meta.len(),
+                modified: since(meta.modified()),
+                changed: since(meta.created()),
+            })
+        }
+    }
+}
+
+/// A read-only connection to a store's database, of whatever schema version it has.
+#[derive(Debug)]
+pub(crate) struct ReadOnlyDb {
+    /// The connection (`query_only`, `trusted_schema` off).
+    pub conn: Connection,
+    /// How it reads.
+    pub mode: ReadMode,
+    /// The schema version found (`PRAGMA user_version`), 1 to [`SCHEMA_VERSION`].
+    pub version: i64,
+}
+
+/// `path` with `suffix` appended to its file name (`tragus.db` → `tragus.db-wal`).
+pub(crate) fn sidecar(path: &Path, suffix: &str) -> std::path::PathBuf {
+    let mut s = path.as_os_str().to_owned();
+    s.push(suffix);
+    s.into()
+}
+
+/// True when SQLite's write-ahead log, its index or a rollback journal is beside `path`.
+fn has_sidecars(path: &Path) -> bool {
+    ["-wal", "-shm", "-journal"]
+        .iter()
+        .any(|s| std::fs::symlink_metadata(sidecar(path, s)).is_ok())
+}
+
+impl ReadOnlyDb {
+    /// True when the connection is [`ReadMode::Immutable`] and the file may have changed
+    /// while it was read (a writer started: the file or a log changed or appeared). What was
+    /// read then may be a mix of two states and must be read again.
+    pub(crate) fn changed_since_open(&self, path: &Path) -> bool {
+        changed_since(&self.mode, path)
+    }
+}
+
+/// See [`ReadOnlyDb::changed_since_open`].
+pub(crate) fn changed_since(mode: &ReadMode, path: &Path) -> bool {
+    {
+        match mode {
+            ReadMode::Locked => false,
+            ReadMode::Immutable {
+                wal_unread: Some(_),
+                ..
+            } => false,
+            ReadMode::Immutable { before, .. } => {
+                FileState::of(path).as_ref() != Some(before) || has_sidecars(path)
+            }
+        }
+    }
+}
+
+/// A `file:` URI for `path` with `query`: every byte outside the unreserved set and `/`
+/// percent-encoded, so `?`, `#` and `%` in a directory name stay part of the path.
+fn file_uri(path: &Path, query: &str) -> String {
+    let bytes: Vec<u8> = {
+        #[cfg(unix)]
+        {
+            use std::os::unix::ffi::OsStrExt;
+            path.as_os_str().as_bytes().to_vec()
+        }
+        #[cfg(not(unix))]
+        {
+            path.to_string_lossy().replace('\\', "/").into_bytes()
+        }
+    };
+    let mut uri = String::from("file:");
+    for b in bytes {
+        if b.is_ascii_alphanumeric() || b"-._~/".contains(&b) {
+            uri.push(char::from(b));
+        } else {
+            uri.push_str(&format!("%{b:02X}"));
+        }
+    }
+    uri.push('?');
+    uri.push_str(query);
+    uri
+}
+
+/// Open the database at `path` read-only, whatever its schema version (1 to
+/// [`SCHEMA_VERSION`]), never migrating and never writing: [`ReadMode`] says how.
+///
+/// Fails with [`StoreError::NotAStore`] for a file that is not a tragus store (an empty
+/// database included), [`StoreError::NewerSchema`] for a newer one, [`StoreError::Io`] when
+/// the file cannot be opened.
+pub(crate) fn open_read_only(path: &Path) -> Result<ReadOnlyDb, StoreError> {
+    if std::fs::symlink_metadata(path).is_err() {
+        return Err(StoreError::Io {
+            path: path.to_owned(),
+            action: "open the database",
+            source: std::io::Error::new(std::io::ErrorKind::NotFound, "no such file"),
+        });
+    }
+    let mode = if has_sidecars(path) {
+        match connect_read_only(path, "mode=ro") {
+            Ok(conn) => return finish_read_only(path, conn, ReadMode::Locked),
+            // Read-only media: the log's index cannot be created or locked. Read the file as
+            // it is and say how much log was left unread.
+            Err(e) if is_read_only_failure(&e) => ReadMode::Immutable {
+                before: FileState::of(path).ok_or_else(|| gone(path))?,
+                wal_unread: std::fs::metadata(sidecar(path, "-wal"))
+                    .map(|m| m.len())
+                    .ok()
+                    .filter(|&n| n > 0),
+            },
+            Err(e) => return Err(open_err(path, e)),
+        }
+    } else {
+        ReadMode::Immutable {
+            before: FileState::of(path).ok_or_else(|| gone(path))?,
+            wal_unread: None,
+        }
+    };
+    let conn = connect_read_only(path, "mode=ro&immutable=1").map_err(|e| open_err(path, e))?;
+    finish_read_only(path, conn, mode)
+}
+
+fn gone(path: &Path) -> StoreError {
+    StoreError::Io {
+        path: path.to_owned(),
+        action: "look at the database",
+        source: std::io::Error::new(std::io::ErrorKind::NotFound, "it disappeared"),
+    }
+}
+
+fn open_err(path: &Path, e: rusqlite::Error) -> StoreError {
+    match e.sqlite_error_code() {
+        Some(ErrorCode::CannotOpen) | Some(ErrorCode::PermissionDenied) => StoreError::Io {
+            path: path.to_owned(),
+            action: "open the database read-only",
+            source: std::io::Error::other(e),
+        },
+        _ => sqlite_err(path, e),
+    }
+}
+
+/// SQLite could not set up reading the log on this medium (no `-shm` can be made, no lock
+/// taken): worth a retry without the log.
+fn is_read_only_failure(e: &rusqlite::Error) -> bool {
+    matches!(
+        e.sqlite_error_code(),
+        Some(ErrorCode::CannotOpen)
+            | Some(ErrorCode::ReadOnly)
+            | Some(ErrorCode::PermissionDenied)
+            | Some(ErrorCode::FileLockingProtocolFailed)
+    )
+}
+
+/// Open with `query` and read the header once, since SQLite opens lazily and a failure to
+/// read the log shows only at the first read.
+fn connect_read_only(path: &Path, query: &str) -> rusqlite::Result<Connection> {
+    use rusqlite::OpenFlags;
+    let conn = Connection::open_with_flags(
+        file_uri(path, query),
+        OpenFlags::SQLITE_OPEN_READ_ONLY
+            | OpenFlags::SQLITE_OPEN_URI
+            | OpenFlags::SQLITE_OPEN_NO_MUTEX,
+    )?;
+    conn.busy_timeout(BUSY_TIMEOUT)?;
+    // A database from elsewhere must not run our connection's functions from its schema;
+    // and nothing this connection runs may write.
+    conn.pragma_update(None, "trusted_schema", false)?;
+    conn.pragma_update(None, "query_only", true)?;
+    conn.query_row("SELECT COUNT(*) FROM sqlite_schema", [], |r| {
+        r.get::<_, i64>(0)
+    })?;
+    Ok(conn)
+}
+
+fn finish_read_only(
+    path: &Path,
+    conn: Connection,
+    mode: ReadMode,
+) -> Result<ReadOnlyDb, StoreError> {
+    let err = |e| sqlite_err(path, e);
+    let app_id: i64 = conn
+        .pragma_query_value(None, "application_id", |r| r.get(0))
+        .map_err(err)?;
+    let version: i64 = conn
+        .pragma_query_value(None, "user_version", |r| r.get(0))
+        .map_err(err)?;
+    check_identity(path, &conn, app_id, version)?;
+    if version < 1 {
+        return Err(StoreError::NotAStore {
+            path: path.to_owned(),
+            detail: "it is an empty database: no store was ever created in it".into(),
+        });
+    }
+    Ok(ReadOnlyDb {
+        conn,
+        mode,
+        version,
+    })
+}
+
+/// Bring the database at `path` to [`SCHEMA_VERSION`] (`tragus store migrate`); returns
+/// the version it had and the version it has now. Refuses a file that is not a store.
+pub(crate) fn migrate_file(path: &Path) -> Result<(i64, i64), StoreError> {
+    let from = open_read_only(path)?.version;
+    drop(open_database(path)?);
+    Ok((from, SCHEMA_VERSION))
+}
+
+/// The names of the columns of `table`, empty when there is no such table.
+pub(crate) fn table_columns(conn: &Connection, table: &str) -> rusqlite::Result<Vec<String>> {
+    let mut stmt = conn.prepare("SELECT name FROM pragma_table_info(?1)")?;
+    let rows = stmt.query_map([table], |r| r.get::<_, String>(0))?;
+    rows.collect()
+}
+
+/// The triggers a store of schema `version` has, as `(name, SQL)`.
+pub(crate) fn own_triggers(version: i64) -> Vec<(&'static str, &'static str)> {
+    let mut out: Vec<(&str, &str)> = TRIGGERS.to_vec();
+    if version >= 3 {
+        out.extend(SAFETY_TRIGGERS);
+    }
+    if version >= 4 {
+        out.extend(META_TRIGGERS);
+    }
+    out
+}
