@@ -60,4 +60,6 @@ mod store_crash;
 mod store_reference;
 mod store_safety;
 mod store_tamper;
+mod store_tamper_matrix;
+mod store_verify;
 mod two_stations;
