@@ -152,6 +152,7 @@ mod capture;
 mod checkpoint;
 mod error;
 mod hash;
+mod read_only;
 mod record;
 mod safety;
 mod schema;
@@ -171,6 +172,7 @@ pub use error::StoreError;
 pub use hash::{
     sha256_hex, CANONICAL_HEADER, CANONICAL_HEADER_V2, CANONICAL_HEADER_V3, GENESIS_PREV_HASH,
 };
+pub use read_only::{verify_dir, Migration};
 pub use record::{NewRecord, RecordFilter, StoredRecord};
 pub use safety::{
     NewExposure, NewSafetyEvent, SafetyEventFilter, SafetyKind, StoredExposure, StoredSafetyEvent,
@@ -244,7 +246,7 @@ pub struct Store {
     signer: Option<crate::keys::StationKey>,
     /// How the database is read when opened with [`Store::open_read_only`]; `None` when
     /// opened for appending.
-    read_mode: Option<schema::ReadMode>,
+    read_mode: Option<read_only::ReadMode>,
 }
 
 /// One tested unit to append in one transaction: its record, raw capture, archived inputs
@@ -868,142 +870,4 @@ pub(crate) fn prove_insert(
         )));
     }
     Ok(())
-}
-
-// ---------------------------------------------------------------------------------------
-// Read-only access, verification, checkpoints and explicit migration (issue 12). The reader
-// side of the store: nothing in this block writes to the store directory except
-// `Store::migrate`, which is the explicit migration.
-// ---------------------------------------------------------------------------------------
-
-/// The schema version of a store and whether it is current, as `tragus store migrate`
-/// reports it.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub struct Migration {
-    /// The version the store had.
-    pub from: i64,
-    /// The version it has now ([`SCHEMA_VERSION`]).
-    pub to: i64,
-}
-
-/// Verify the store in `dir` as a pure reader: the database is opened read-only, of
-/// whatever schema version (1 to [`SCHEMA_VERSION`]) it has, and never migrated; nothing in
-/// the directory is written, created or removed. Every problem is in the report; an error
-/// means the verification could not run (no store there, an unreadable database).
-///
-/// When the store was closed cleanly (no write-ahead log beside the database) it is read
-/// as an immutable file; should a writer start meanwhile, the verification is done again
-/// under SQLite's locks.
-pub fn verify_dir(dir: &Path, options: &VerifyOptions<'_>) -> Result<VerifyReport, StoreError> {
-    let db_path = dir.join(DB_FILE);
-    let capture_dir = dir.join(CAPTURE_DIR);
-    let archive_dir = dir.join(ARCHIVE_DIR);
-    let mut attempt = 0;
-    loop {
-        attempt += 1;
-        let db = schema::open_read_only(&db_path)?;
-        let paths = verify::StorePaths {
-            capture_dir: &capture_dir,
-            archive_dir: &archive_dir,
-        };
-        let mut report = verify::verify_db(&db.conn, &db_path, db.version, paths, options)?;
-        // A writer started while the file was read without locks: what was read may mix two
-        // states. The next open sees its log and reads under locks.
-        if db.changed_since_open(&db_path) && attempt < 4 {
-            continue;
-        }
-        if let schema::ReadMode::Immutable {
-            wal_unread: Some(bytes),
-            ..
-        } = db.mode
-        {
-            report.problems.insert(
-                0,
-                Problem {
-                    record_id: None,
-                    kind: ProblemKind::WalUnread {
-                        path: schema::sidecar(&db_path, "-wal"),
-                        bytes,
-                    },
-                },
-            );
-        }
-        return Ok(report);
-    }
-}
-
-impl Store {
-    /// Open the store in `dir` for reading only: nothing is created, migrated or written
-    /// (see [`verify_dir`]); appends fail. The store must have the current schema
-    /// ([`StoreError::OlderSchema`] otherwise: run `tragus store migrate`).
-    pub fn open_read_only(dir: &Path) -> Result<Store, StoreError> {
-        let db_path = dir.join(DB_FILE);
-        let db = schema::open_read_only(&db_path)?;
-        if db.version < SCHEMA_VERSION {
-            return Err(StoreError::OlderSchema {
-                path: db_path,
-                found: db.version,
-                current: SCHEMA_VERSION,
-            });
-        }
-        Ok(Store {
-            dir: dir.to_owned(),
-            db_path,
-            capture_dir: dir.join(CAPTURE_DIR),
-            archive_dir: dir.join(ARCHIVE_DIR),
-            conn: db.conn,
-            signer: None,
-            read_mode: Some(db.mode),
-        })
-    }
-
-    /// Verify the store (see [`verify_dir`] for what is checked) with a keyring and
-    /// checkpoints.
-    pub fn verify_with(&self, options: &VerifyOptions<'_>) -> Result<VerifyReport, StoreError> {
-        let paths = verify::StorePaths {
-            capture_dir: &self.capture_dir,
-            archive_dir: &self.archive_dir,
-        };
-        verify::verify_db(&self.conn, &self.db_path, SCHEMA_VERSION, paths, options)
-    }
-
-    /// A checkpoint of the store now, signed with `key` (the station's key): the store id
-    /// and each chain's row count and head hash. Fails when a chain's ids are not 1 to its
-    /// count (the store must be verified, not checkpointed).
-    pub fn checkpoint(&self, key: &crate::keys::StationKey) -> Result<Checkpoint, StoreError> {
-        self.checkpoint_at(key, &checkpoint::now_time_utc())
-    }
-
-    /// [`checkpoint`](Self::checkpoint) stating the time `time_utc` (the store's time form).
-    pub fn checkpoint_at(
-        &self,
-        key: &crate::keys::StationKey,
-        time_utc: &str,
-    ) -> Result<Checkpoint, StoreError> {
-        if parse_time_utc(time_utc).is_none() {
-            return Err(StoreError::InvalidRecord {
-                field: "time_utc",
-                expected: "a UTC time like 2025-03-14T17:00:00Z",
-                found: error::shorten(time_utc),
-            });
-        }
-        let (store_id, heads) = checkpoint::read_heads(&self.conn, &self.db_path)?;
-        if let Some(mode) = &self.read_mode {
-            if schema::changed_since(mode, &self.db_path) {
-                // Read without locks while a writer started: never sign a mixed state.
-                return Err(StoreError::Locked {
-                    path: self.db_path.clone(),
-                });
-            }
-        }
-        Ok(Checkpoint::sign(&store_id, time_utc, heads, key))
-    }
-
-    /// Bring the store in `dir` to the current schema (`tragus store migrate`), the only
-    /// change of schema besides an append by a newer tragus. Refuses a directory without a
-    /// store ([`StoreError::Io`]) and a file that is not one.
-    pub fn migrate(dir: &Path) -> Result<Migration, StoreError> {
-        let (from, to) = schema::migrate_file(&dir.join(DB_FILE))?;
-        Ok(Migration { from, to })
-    }
 }

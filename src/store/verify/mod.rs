@@ -7,12 +7,13 @@
 //! tampered database may hold values no record can have (a verdict "maybe", text where a
 //! number belongs); those are reported, not raised as errors. It reads a store of any schema
 //! version as it is (only the tables and columns of that version) and never writes: the
-//! database is opened read-only ([`super::schema::open_read_only`]), files are looked at
+//! database is opened read-only ([`super::read_only::open_read_only`]), files are looked at
 //! without following links and read only when regular and of bounded size.
 
 mod chains;
 mod files;
 mod objects;
+mod problem;
 mod records;
 mod report;
 
@@ -22,10 +23,8 @@ use std::path::Path;
 use rusqlite::types::ValueRef;
 use rusqlite::Connection;
 
-pub use report::{
-    ChainTable, CheckpointOutcome, CheckpointProblem, FileProblem, Notice, Problem, ProblemKind,
-    RowProblem, SignatureCount, SignatureCounts, VerifyReport,
-};
+pub use problem::{ChainTable, CheckpointProblem, FileProblem, Problem, ProblemKind, RowProblem};
+pub use report::{CheckpointOutcome, Notice, SignatureCount, SignatureCounts, VerifyReport};
 
 use super::checkpoint::Checkpoint;
 use super::error::StoreError;
