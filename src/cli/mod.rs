@@ -31,15 +31,18 @@ macro_rules! outln {
 
 mod analyze;
 mod calibrate;
+mod checkpoint;
 mod coupler;
 mod devices;
 mod exposure;
 mod keys;
+mod key_files;
 mod operator_loop;
 mod records;
 mod run;
 mod soundcard_args;
 mod stimulus;
+mod store_cmd;
 mod validate;
 
 use clap::{Parser, Subcommand};
@@ -99,8 +102,15 @@ pub enum Command {
     Station(operator_loop::Args),
     /// List records from a store, newest first.
     Records(records::ListArgs),
-    /// Recompute every record hash, the chain and every raw capture's SHA-256.
+    /// Check a store as a pure reader: every hash and link of the three chains, schema
+    /// objects, captures and archived inputs; signatures with --keys, checkpoints with
+    /// --checkpoint. Exit 1 on any problem.
     Verify(records::VerifyArgs),
+    /// Write a signed checkpoint of the store (each chain's count and head) to keep
+    /// elsewhere.
+    Checkpoint(checkpoint::Args),
+    /// Store maintenance: `store migrate` brings a store to this tragus's schema.
+    Store(store_cmd::Args),
     /// Input impedance and transfer functions of a coupler model on the log grid.
     Coupler(coupler::Args),
     /// Calibrate the station: microphone inputs (sound calibrator) and drive outputs.
@@ -358,6 +368,8 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Station(a) => operator_loop::run(a, out),
         Command::Records(a) => records::list(a),
         Command::Verify(a) => records::verify(a),
+        Command::Checkpoint(a) => checkpoint::run(a),
+        Command::Store(a) => store_cmd::run(a),
         Command::Coupler(a) => coupler::run(a),
         Command::Calibrate(a) => calibrate::run(a),
         Command::Devices(a) => devices::run(a),

@@ -1,7 +1,10 @@
-//! `tragus records` and `tragus verify`: what auditors read of a store.
+//! `tragus records` and `tragus verify`: what auditors read of a store, both pure readers
+//! (the store is opened read-only and never migrated).
 
 use super::{Exit, JsonOut, EXIT_FAIL, EXIT_PASS};
-use crate::store::{RecordFilter, Store};
+use crate::store::{
+    verify_dir, Checkpoint, ProblemKind, RecordFilter, Store, VerifyOptions, VerifyReport,
+};
 use crate::Verdict;
 use std::path::PathBuf;
 use time::OffsetDateTime;
@@ -58,20 +61,34 @@ pub struct VerifyArgs {
     /// Store directory.
     #[arg(long, value_name = "DIR", default_value = "tragus-data")]
     pub store: PathBuf,
+    /// The auditor's keyring: every record, safety event and exposure must then be signed
+    /// by a key of its station, valid at its time.
+    #[arg(long, value_name = "KEYRING")]
+    pub keys: Option<PathBuf>,
+    /// A signed checkpoint the store must still match (repeat for several; needs --keys).
+    #[arg(long = "checkpoint", value_name = "FILE")]
+    pub checkpoints: Vec<PathBuf>,
     /// Write the verification report as JSON here (`-` for stdout: the human report then
     /// goes nowhere).
     #[arg(long, value_name = "OUT")]
     pub json: Option<JsonOut>,
 }
 
+/// The store in `dir` opened read-only (never migrated, nothing written).
 fn open(dir: &std::path::Path) -> Result<Store, Exit> {
-    if !dir.join("tragus.db").exists() {
+    require_store(dir)?;
+    Store::open_read_only(dir).map_err(Exit::bad_input)
+}
+
+/// Exit 2 unless `dir` holds a store database.
+pub(crate) fn require_store(dir: &std::path::Path) -> Result<(), Exit> {
+    if !dir.join(crate::store::DB_FILE).is_file() {
         return Err(Exit::bad_input(anyhow::anyhow!(
             "{}: expected a tragus store (a directory holding tragus.db), found none",
             dir.display()
         )));
     }
-    Store::open(dir).map_err(Exit::bad_input)
+    Ok(())
 }
 
 pub(crate) fn list(args: ListArgs) -> Result<i32, Exit> {
@@ -129,8 +146,27 @@ pub(crate) fn list(args: ListArgs) -> Result<i32, Exit> {
 }
 
 pub(crate) fn verify(args: VerifyArgs) -> Result<i32, Exit> {
-    let store = open(&args.store)?;
-    let report = store.verify().map_err(Exit::bad_input)?;
+    if !args.checkpoints.is_empty() && args.keys.is_none() {
+        return Err(Exit::bad_input(anyhow::anyhow!(
+            "--checkpoint: a checkpoint counts only by its signature; give the keyring with \
+             --keys KEYRING too"
+        )));
+    }
+    require_store(&args.store)?;
+    let keyring = match &args.keys {
+        Some(path) => Some(super::key_files::load_keyring(path)?),
+        None => None,
+    };
+    let checkpoints = args
+        .checkpoints
+        .iter()
+        .map(|p| Checkpoint::load(p).map_err(Exit::bad_input))
+        .collect::<Result<Vec<_>, _>>()?;
+    let options = VerifyOptions {
+        keyring: keyring.as_ref(),
+        checkpoints,
+    };
+    let report = verify_dir(&args.store, &options).map_err(Exit::bad_input)?;
     let code = if report.is_intact() {
         EXIT_PASS
     } else {
@@ -143,6 +179,13 @@ pub(crate) fn verify(args: VerifyArgs) -> Result<i32, Exit> {
             return Ok(code);
         }
     }
+    print_report(&report, args.keys.as_deref());
+    Ok(code)
+}
+
+/// The human report: counts and heads, signatures, checkpoints, every problem and notice,
+/// and the verdict line.
+fn print_report(report: &VerifyReport, keys: Option<&std::path::Path>) {
     outln!(
         "{} record(s), {} capture file(s) rehashed, head hash {}",
         report.n_records,
@@ -156,6 +199,41 @@ pub(crate) fn verify(args: VerifyArgs) -> Result<i32, Exit> {
         report.n_exposures,
         report.exposures_head_hash
     );
+    outln!(
+        "schema {}, store id {}; {} archived input(s) rehashed",
+        report.schema_version,
+        report.store_id.as_deref().unwrap_or("(none)"),
+        report.n_archived_checked
+    );
+    let s = &report.signatures;
+    outln!(
+        "signatures: records {}/{} signed, safety events {}/{}, exposures {}/{}; {}",
+        s.records.signed,
+        s.records.signed + s.records.unsigned,
+        s.safety_events.signed,
+        s.safety_events.signed + s.safety_events.unsigned,
+        s.exposures.signed,
+        s.exposures.signed + s.exposures.unsigned,
+        match keys {
+            Some(k) => format!("checked against {}", k.display()),
+            None => "not checked (no --keys)".to_string(),
+        }
+    );
+    for c in &report.checkpoints {
+        outln!(
+            "checkpoint {} ({}): {} record(s), {} safety event(s), {} exposure(s): {}",
+            c.source,
+            c.time_utc,
+            c.counts[0],
+            c.counts[1],
+            c.counts[2],
+            if c.matched {
+                "matches"
+            } else {
+                "DOES NOT MATCH"
+            }
+        );
+    }
     for p in &report.problems {
         outln!("PROBLEM {p}");
     }
@@ -164,67 +242,80 @@ pub(crate) fn verify(args: VerifyArgs) -> Result<i32, Exit> {
     }
     if report.is_intact() {
         outln!(
-            "INTACT: every record hash, chain link and raw capture, and every safety event and exposure hash and link, checks out"
+            "INTACT: every record hash, chain link and raw capture, every archived input, every \
+             safety event and exposure hash and link, and the schema objects check out{}{}",
+            if report.signatures_checked {
+                "; every signature verifies"
+            } else {
+                ""
+            },
+            if report.checkpoints.is_empty() {
+                String::new()
+            } else {
+                format!(
+                    "; the store matches {} checkpoint(s)",
+                    report.checkpoints.len()
+                )
+            }
         );
     } else {
         outln!("NOT INTACT: {} problem(s)", report.problems.len());
     }
-    Ok(code)
 }
 
 /// The verification report as one JSON document: the counts and head hashes of the three
-/// chains, `intact`, and every problem and notice with a `kind` word for tools and its
-/// sentence (`message`, the human report's text) for people.
-fn verify_json(dir: &std::path::Path, report: &crate::store::VerifyReport) -> serde_json::Value {
-    use crate::store::{Notice, ProblemKind};
+/// chains, signatures, checkpoints, `intact`, and every problem and notice with a `kind`
+/// word for tools and its sentence (`message`, the human report's text) for people.
+fn verify_json(dir: &std::path::Path, report: &VerifyReport) -> serde_json::Value {
     let problems: Vec<serde_json::Value> = report
         .problems
         .iter()
         .map(|p| {
-            let kind = match &p.kind {
-                ProblemKind::RecordHashMismatch { .. } => "record_hash_mismatch",
-                ProblemKind::ChainBroken { .. } => "chain_broken",
-                ProblemKind::RecordsMissing { .. } => "records_missing",
-                ProblemKind::FieldDamaged { .. } => "field_damaged",
-                ProblemKind::TimeIndexMismatch => "time_index_mismatch",
-                ProblemKind::CaptureMissing { .. } => "capture_missing",
-                ProblemKind::CaptureAltered { .. } => "capture_altered",
-                ProblemKind::ChainRow { .. } => "chain_row",
-                ProblemKind::TriggerMissing { .. } => "trigger_missing",
-                ProblemKind::TriggerAltered { .. } => "trigger_altered",
-                ProblemKind::DatabaseDamaged { .. } => "database_damaged",
-            };
             let (table, row_id) = match &p.kind {
                 ProblemKind::ChainRow { table, id, .. } => (Some(table.name()), Some(*id)),
                 _ => (None, None),
             };
             serde_json::json!({
                 "record_id": p.record_id, "table": table, "row_id": row_id,
-                "kind": kind, "message": p.to_string(),
+                "kind": p.kind.word(), "message": p.to_string(),
             })
         })
         .collect();
     let notices: Vec<serde_json::Value> = report
         .notices
         .iter()
-        .map(|n| {
-            let (kind, path) = match n {
-                Notice::OrphanCapture { path } => ("orphan_capture", path),
-                Notice::LeftoverTemp { path } => ("leftover_temp", path),
-                Notice::UnexpectedFile { path } => ("unexpected_file", path),
-            };
-            serde_json::json!({"kind": kind, "path": path, "message": n.to_string()})
+        .map(|n| serde_json::json!({"kind": n.word(), "path": n.path(), "message": n.to_string()}))
+        .collect();
+    let sig = |c: &crate::store::SignatureCount| serde_json::json!({"signed": c.signed, "unsigned": c.unsigned});
+    let checkpoints: Vec<serde_json::Value> = report
+        .checkpoints
+        .iter()
+        .map(|c| {
+            serde_json::json!({
+                "file": c.source, "time_utc": c.time_utc, "records": c.counts[0],
+                "safety_events": c.counts[1], "exposures": c.counts[2], "matched": c.matched,
+            })
         })
         .collect();
     serde_json::json!({
         "store": dir,
         "intact": report.is_intact(),
+        "schema_version": report.schema_version,
+        "store_id": report.store_id,
         "records": {"count": report.n_records, "head_hash": report.head_hash},
         "captures_checked": report.n_captures_checked,
+        "archived_inputs_checked": report.n_archived_checked,
         "safety_events": {
             "count": report.n_safety_events, "head_hash": report.safety_events_head_hash,
         },
         "exposures": {"count": report.n_exposures, "head_hash": report.exposures_head_hash},
+        "signatures": {
+            "checked": report.signatures_checked,
+            "records": sig(&report.signatures.records),
+            "safety_events": sig(&report.signatures.safety_events),
+            "exposures": sig(&report.signatures.exposures),
+        },
+        "checkpoints": checkpoints,
         "problems": problems,
         "notices": notices,
     })

@@ -42,6 +42,18 @@ pub enum StoreError {
         supported: i64,
     },
 
+    /// The store has an older schema and the operation reads the current one only
+    /// (verification reads every version; appends migrate).
+    #[error("{path}: store schema version {found} is older than this tragus's ({current}); run `tragus store migrate --store DIR` first (verify reads it as it is)")]
+    OlderSchema {
+        /// The database file.
+        path: PathBuf,
+        /// Schema version found in the file.
+        found: i64,
+        /// Schema version this build writes.
+        current: i64,
+    },
+
     /// Another process held the write lock for longer than the busy timeout.
     #[error("{path}: store is locked by another process, retry")]
     Locked {

@@ -208,8 +208,10 @@
 
 mod archive;
 mod capture;
+mod checkpoint;
 mod error;
 mod hash;
+mod read_only;
 mod record;
 mod safety;
 mod schema;
@@ -221,16 +223,24 @@ use rusqlite::types::Value;
 use rusqlite::{params, Connection, OptionalExtension, Row, TransactionBehavior};
 
 pub use archive::{InputBundle, BUNDLE_FORM};
+pub use checkpoint::{
+    ChainHead, ChainHeads, Checkpoint, CheckpointError, CHECKPOINT_FORM, CHECKPOINT_HEADER,
+    CHECKPOINT_PURPOSE,
+};
 pub use error::StoreError;
 pub use hash::{
     sha256_hex, CANONICAL_HEADER, CANONICAL_HEADER_V2, CANONICAL_HEADER_V3, GENESIS_PREV_HASH,
 };
+pub use read_only::{verify_dir, Migration};
 pub use record::{NewRecord, RecordFilter, StoredRecord};
 pub use safety::{
     NewExposure, NewSafetyEvent, SafetyEventFilter, SafetyKind, StoredExposure, StoredSafetyEvent,
 };
 pub use schema::SCHEMA_VERSION;
-pub use verify::{ChainTable, Notice, Problem, ProblemKind, RowProblem, VerifyReport};
+pub use verify::{
+    ChainTable, CheckpointOutcome, CheckpointProblem, FileProblem, Notice, Problem, ProblemKind,
+    RowProblem, SignatureCount, SignatureCounts, VerifyOptions, VerifyReport,
+};
 
 use archive::{archive_file, ensure_archived, ARCHIVE_DIR, MAX_ARCHIVE_BYTES};
 use capture::{capture_file, check_file, ensure_capture, looks_like_wav, FileCheck, CAPTURE_DIR};
@@ -293,6 +303,9 @@ pub struct Store {
     conn: Connection,
     /// Signs every row appended; `None`: rows are appended unsigned.
     signer: Option<crate::keys::StationKey>,
+    /// How the database is read when opened with [`Store::open_read_only`]; `None` when
+    /// opened for appending.
+    read_mode: Option<read_only::ReadMode>,
 }
 
 /// One tested unit to append in one transaction: its record, raw capture, archived inputs
@@ -352,6 +365,7 @@ impl Store {
             archive_dir,
             conn,
             signer: None,
+            read_mode: None,
         })
     }
 
@@ -609,13 +623,10 @@ impl Store {
         Ok(bytes)
     }
 
-    /// Recompute every record's hash, walk the chain, rehash every capture file and scan
-    /// for orphans; return every problem found, each with the record it concerns.
-    ///
-    /// Tampering is reported in the [`VerifyReport`], not as an error; an error means the
-    /// verification itself could not run (unreadable database or directory).
+    /// Verify the store without a keyring or checkpoints: [`verify_with`](Self::verify_with)
+    /// with the default options (signatures counted, not checked).
     pub fn verify(&self) -> Result<VerifyReport, StoreError> {
-        verify::verify(&self.conn, &self.db_path, &self.capture_dir)
+        self.verify_with(&VerifyOptions::default())
     }
 
     fn err(&self, e: rusqlite::Error) -> StoreError {

@@ -346,7 +346,7 @@ pub(crate) fn open_database(path: &Path) -> Result<Connection, StoreError> {
 }
 
 /// Refuse files that are some other program's database or a newer tragus's store.
-fn check_identity(
+pub(crate) fn check_identity(
     path: &Path,
     conn: &Connection,
     app_id: i64,
@@ -472,4 +472,31 @@ fn object_version(name: &str) -> i64 {
     } else {
         4
     }
+}
+
+/// Bring the database at `path` to [`SCHEMA_VERSION`] (`tragus store migrate`); returns
+/// the version it had and the version it has now. Refuses a file that is not a store.
+pub(crate) fn migrate_file(path: &Path) -> Result<(i64, i64), StoreError> {
+    let from = super::read_only::open_read_only(path)?.version;
+    drop(open_database(path)?);
+    Ok((from, SCHEMA_VERSION))
+}
+
+/// The names of the columns of `table`, empty when there is no such table.
+pub(crate) fn table_columns(conn: &Connection, table: &str) -> rusqlite::Result<Vec<String>> {
+    let mut stmt = conn.prepare("SELECT name FROM pragma_table_info(?1)")?;
+    let rows = stmt.query_map([table], |r| r.get::<_, String>(0))?;
+    rows.collect()
+}
+
+/// The triggers a store of schema `version` has, as `(name, SQL)`.
+pub(crate) fn own_triggers(version: i64) -> Vec<(&'static str, &'static str)> {
+    let mut out: Vec<(&str, &str)> = TRIGGERS.to_vec();
+    if version >= 3 {
+        out.extend(SAFETY_TRIGGERS);
+    }
+    if version >= 4 {
+        out.extend(META_TRIGGERS);
+    }
+    out
 }

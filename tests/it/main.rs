@@ -63,4 +63,6 @@ mod store_reference;
 mod store_safety;
 mod store_tamper;
 mod store_unit_append;
+mod store_tamper_matrix;
+mod store_verify;
 mod two_stations;
