@@ -33,9 +33,11 @@ mod analyze;
 mod calibrate;
 mod coupler;
 mod devices;
+mod export;
 mod exposure;
 mod operator_loop;
 mod records;
+mod report;
 mod run;
 mod soundcard_args;
 mod stimulus;
@@ -109,6 +111,11 @@ pub enum Command {
     /// An operator's listening dose: NIOSH over the shift (default the last 8 h), WHO/ITU-T
     /// H.870 over the last 7 days, minutes left at a level.
     Exposure(exposure::Args),
+    /// The auditor's report of a store: one self-contained HTML file (counts, yields,
+    /// failing checks, distributions, response overlays, every unit, verification).
+    Report(report::Args),
+    /// A store's records as CSV (one row per record and check) or JSON Lines.
+    Export(export::Args),
 }
 
 /// Where a `--json` document goes.
@@ -359,6 +366,8 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Calibrate(a) => calibrate::run(a),
         Command::Devices(a) => devices::run(a),
         Command::Exposure(a) => exposure::run(a),
+        Command::Report(a) => report::run(a),
+        Command::Export(a) => export::run(a),
     };
     let code = match result {
         Ok(code) => code,
