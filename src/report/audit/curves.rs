@@ -2,7 +2,7 @@
 //! and the full-detail chart of one unit, both against the check's limit lines when the
 //! plan file that judged the records was given ([`super::limits`]).
 //!
-//! Overlays stay small whatever the number of units: the min–max band of every unit that
+//! Overlays stay small whatever the number of units: the min–max band of every curve that
 //! passed the check is computed on the full grid and drawn as one shape; individual curves are drawn for at
 //! most a given number of units (every failing unit first, then an even sample of the
 //! others by serial), each thinned to at most [`MAX_OVERLAY_POINTS`] points. A unit's own
@@ -88,13 +88,6 @@ fn y_label(unit: &str, limits: Option<&ResponseLimits>) -> String {
     }
 }
 
-/// Whether the record failed this check on any channel.
-fn failed_here(r: &RecordView, check: &str) -> bool {
-    r.checks
-        .iter()
-        .any(|c| c.id == check && c.verdict == "fail")
-}
-
 /// One overlay per response check and plan version (id, revision, SHA-256), in that order;
 /// each unit's latest record of that plan version stands for the unit.
 pub(crate) fn overlays(
@@ -122,9 +115,10 @@ pub(crate) fn overlays(
     let mut out = Vec::new();
     for ((plan_id, plan_revision, plan_sha256, check), units) in groups {
         let limits = book.response(&plan_sha256, &check);
-        // Per unit: its prepared curves and whether the check failed.
-        let mut failing: Vec<Vec<Vec<(f64, f64)>>> = Vec::new();
-        let mut others: Vec<Vec<Vec<(f64, f64)>>> = Vec::new();
+        // Per unit: its prepared curves, each with whether the check failed on it.
+        type UnitCurves = Vec<(Vec<(f64, f64)>, bool)>;
+        let mut failing: Vec<UnitCurves> = Vec::new();
+        let mut others: Vec<UnitCurves> = Vec::new();
         let mut unit_label = String::new();
         let mut not_normalised = 0usize;
         let mut grid: Option<Vec<f64>> = None;
@@ -135,7 +129,8 @@ pub(crate) fn overlays(
             let mut unit_curves = Vec::new();
             let mut failed = false;
             for c in r.checks.iter().filter(|c| c.id == check) {
-                failed |= c.verdict == "fail";
+                let this_failed = c.verdict == "fail";
+                failed |= this_failed;
                 for curve in curves_for(r, &c.channel) {
                     if unit_label.is_empty() {
                         unit_label = curve.unit.clone();
@@ -145,8 +140,8 @@ pub(crate) fn overlays(
                         continue;
                     };
                     let g = grid.get_or_insert_with(|| curve.freqs_hz.clone());
-                    // The band shows the units that passed; failing ones are drawn each.
-                    if !failed_here(r, &check) && *g == curve.freqs_hz {
+                    // The band shows the curves that passed; failing ones are drawn each.
+                    if !this_failed && *g == curve.freqs_hz {
                         if env_lo.is_empty() {
                             env_lo = vec![f64::INFINITY; g.len()];
                             env_hi = vec![f64::NEG_INFINITY; g.len()];
@@ -158,7 +153,7 @@ pub(crate) fn overlays(
                             }
                         }
                     }
-                    unit_curves.push(points);
+                    unit_curves.push((points, this_failed));
                 }
             }
             if unit_curves.is_empty() {
@@ -175,32 +170,34 @@ pub(crate) fn overlays(
             continue;
         }
         let n_failing = failing.len();
-        let room_for_others = max_units.saturating_sub(n_failing.min(max_units));
-        let sample: Vec<usize> = if others.len() <= room_for_others {
-            (0..others.len()).collect()
-        } else {
-            // Evenly spaced by serial, so the sample spans the whole run.
-            (0..room_for_others)
-                .map(|k| k * others.len() / room_for_others)
-                .collect()
-        };
+        // Failing units take up to half the room (more when there are few others), the
+        // others the rest; each an even sample by serial when there are too many.
+        let n_fail_drawn =
+            n_failing.min((max_units / 2).max(max_units.saturating_sub(others.len())));
+        let n_other_drawn = others.len().min(max_units - n_fail_drawn);
         let mut curves: Vec<PlotCurve> = Vec::new();
-        for k in &sample {
-            for points in &others[*k] {
-                curves.push(PlotCurve {
-                    points: thin(points.clone(), MAX_OVERLAY_POINTS),
-                    pen: Pen::Population,
-                });
+        let mut failed_curves: Vec<PlotCurve> = Vec::new();
+        for (group, n) in [(&others, n_other_drawn), (&failing, n_fail_drawn)] {
+            for k in even_sample(group.len(), n) {
+                for (points, failed) in &group[k] {
+                    let curve = PlotCurve {
+                        points: thin(points.clone(), MAX_OVERLAY_POINTS),
+                        pen: if *failed {
+                            Pen::Failing
+                        } else {
+                            Pen::Population
+                        },
+                    };
+                    if *failed {
+                        failed_curves.push(curve);
+                    } else {
+                        curves.push(curve);
+                    }
+                }
             }
         }
-        for unit in failing.iter().take(max_units) {
-            for points in unit {
-                curves.push(PlotCurve {
-                    points: thin(points.clone(), MAX_OVERLAY_POINTS),
-                    pen: Pen::Failing,
-                });
-            }
-        }
+        // Failing curves on top.
+        curves.append(&mut failed_curves);
         let envelope: Vec<(f64, f64, f64)> = match &grid {
             Some(g) if others.len() > 1 => g
                 .iter()
@@ -229,12 +226,21 @@ pub(crate) fn overlays(
             plan_sha256,
             n_units,
             n_failing,
-            n_drawn_units: sample.len() + n_failing.min(max_units),
+            n_drawn_units: n_fail_drawn + n_other_drawn,
             n_not_normalised: not_normalised,
             has_limits: limits.is_some(),
         });
     }
     Ok(out)
+}
+
+/// `n` indices spread evenly over `0..len` (all of them when `n >= len`).
+fn even_sample(len: usize, n: usize) -> Vec<usize> {
+    if n >= len {
+        (0..len).collect()
+    } else {
+        (0..n).map(|k| k * len / n).collect()
+    }
 }
 
 fn thin_envelope(e: Vec<(f64, f64, f64)>) -> Vec<(f64, f64, f64)> {

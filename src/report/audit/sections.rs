@@ -407,7 +407,7 @@ pub(crate) fn response_section(
         };
         let drawn = if o.n_drawn_units < o.n_units {
             format!(
-                "curves of {} of {} units drawn (every failing unit up to {max_units}, then an even sample by serial); the band spans every unit that passed",
+                "curves of {} of {} units drawn (at most {max_units}: failing units take up to half, each group an even sample by serial); the band spans every curve that passed the check",
                 o.n_drawn_units, o.n_units
             )
         } else {
@@ -427,7 +427,7 @@ pub(crate) fn response_section(
              <figcaption>{n} units, {f} failing; {drawn}{skipped}; {limits} (4).\
              <span class=\"key\" style=\"background:#6b7a8f\"></span>units\
              <span class=\"key\" style=\"background:#b42318\"></span>failing units\
-             <span class=\"key\" style=\"background:#d3d7de;height:9px\"></span>min–max of the units that passed\
+             <span class=\"key\" style=\"background:#d3d7de;height:9px\"></span>min–max of the curves that passed\
              <span class=\"key\" style=\"background:#1f2933\"></span>limits (outside washed red)</figcaption></figure>",
             c = escape(&o.check),
             p = escape(&o.plan_id),
