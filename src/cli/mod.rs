@@ -34,11 +34,13 @@ mod calibrate;
 mod checkpoint;
 mod coupler;
 mod devices;
+mod export;
 mod exposure;
 mod keys;
 mod key_files;
 mod operator_loop;
 mod records;
+mod report;
 mod run;
 mod soundcard_args;
 mod stimulus;
@@ -122,6 +124,11 @@ pub enum Command {
     Exposure(exposure::Args),
     /// Station signing keys: make one (`new`), list a keyring (`show`).
     Keys(keys::Args),
+    /// The auditor's report of a store: one self-contained HTML file (counts, yields,
+    /// failing checks, distributions, response overlays, every unit, verification).
+    Report(report::Args),
+    /// A store's records as CSV (one row per record and check) or JSON Lines.
+    Export(export::Args),
 }
 
 /// Where a `--json` document goes.
@@ -375,6 +382,8 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Devices(a) => devices::run(a),
         Command::Exposure(a) => exposure::run(a),
         Command::Keys(a) => keys::run(a),
+        Command::Report(a) => report::run(a),
+        Command::Export(a) => export::run(a),
     };
     let code = match result {
         Ok(code) => code,

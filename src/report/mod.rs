@@ -9,6 +9,8 @@
 //! The verdict is always written as a word; colour (ANSI escapes) only adds to it and is
 //! off when `color` is false, so a log or a colour-blind reader loses nothing.
 
+pub mod audit;
+pub mod export;
 pub mod svg;
 
 use crate::checks::format_hz;
