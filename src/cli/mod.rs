@@ -37,6 +37,7 @@ mod exposure;
 mod operator_loop;
 mod records;
 mod run;
+mod show;
 mod soundcard_args;
 mod stimulus;
 mod validate;
@@ -90,7 +91,8 @@ pub enum Command {
     Validate(validate::Args),
     /// Write the exact signal a plan plays (all output channels) as 32-bit float WAV.
     Stimulus(stimulus::Args),
-    /// Judge a recorded capture of a plan's stimulus.
+    /// Judge a recorded capture of a plan's stimulus, or re-analyse a stored record from
+    /// the archive (--store DIR --record ID).
     Analyze(analyze::Args),
     /// Test one unit end to end on a rig and record it in the store.
     Run(run::Args),
@@ -100,6 +102,9 @@ pub enum Command {
     Records(records::ListArgs),
     /// Recompute every record hash, the chain and every raw capture's SHA-256.
     Verify(records::VerifyArgs),
+    /// Show one record with its provenance (plan, build, station, calibration, capture,
+    /// archived inputs, playback, hashes, signature) and recover the plan that judged it.
+    Show(show::Args),
     /// Input impedance and transfer functions of a coupler model on the log grid.
     Coupler(coupler::Args),
     /// Calibrate the station: microphone inputs (sound calibrator) and drive outputs.
@@ -355,6 +360,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Station(a) => operator_loop::run(a, out),
         Command::Records(a) => records::list(a),
         Command::Verify(a) => records::verify(a),
+        Command::Show(a) => show::run(a),
         Command::Coupler(a) => coupler::run(a),
         Command::Calibrate(a) => calibrate::run(a),
         Command::Devices(a) => devices::run(a),
