@@ -58,6 +58,7 @@ mod station_run;
 mod store_basic;
 mod store_crash;
 mod store_reference;
+mod store_reproduce;
 mod store_safety;
 mod store_tamper;
 mod store_unit_append;
