@@ -57,6 +57,7 @@ mod station_loop;
 mod station_run;
 mod store_basic;
 mod store_crash;
+mod store_crash_runs;
 mod store_reference;
 mod store_reproduce;
 mod store_safety;
