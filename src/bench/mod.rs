@@ -11,6 +11,7 @@
 pub mod archive;
 mod error;
 mod prepare;
+pub mod reanalyze;
 mod record;
 pub mod tally;
 

@@ -42,6 +42,7 @@ mod operator_loop;
 mod records;
 mod report;
 mod run;
+mod show;
 mod soundcard_args;
 mod stimulus;
 mod store_cmd;
@@ -96,7 +97,8 @@ pub enum Command {
     Validate(validate::Args),
     /// Write the exact signal a plan plays (all output channels) as 32-bit float WAV.
     Stimulus(stimulus::Args),
-    /// Judge a recorded capture of a plan's stimulus.
+    /// Judge a recorded capture of a plan's stimulus, or re-analyse a stored record from
+    /// the archive (--store DIR --record ID).
     Analyze(analyze::Args),
     /// Test one unit end to end on a rig and record it in the store.
     Run(run::Args),
@@ -113,6 +115,9 @@ pub enum Command {
     Checkpoint(checkpoint::Args),
     /// Store maintenance: `store migrate` brings a store to this tragus's schema.
     Store(store_cmd::Args),
+    /// Show one record with its provenance (plan, build, station, calibration, capture,
+    /// archived inputs, playback, hashes, signature) and recover the plan that judged it.
+    Show(show::Args),
     /// Input impedance and transfer functions of a coupler model on the log grid.
     Coupler(coupler::Args),
     /// Calibrate the station: microphone inputs (sound calibrator) and drive outputs.
@@ -377,6 +382,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Verify(a) => records::verify(a),
         Command::Checkpoint(a) => checkpoint::run(a),
         Command::Store(a) => store_cmd::run(a),
+        Command::Show(a) => show::run(a),
         Command::Coupler(a) => coupler::run(a),
         Command::Calibrate(a) => calibrate::run(a),
         Command::Devices(a) => devices::run(a),

@@ -263,6 +263,11 @@ mod tests {
             capture_sha256: "b".repeat(64),
             prev_hash: "0".repeat(64),
             record_hash: "c".repeat(64),
+            build: None,
+            inputs_json: None,
+            playback_json: None,
+            key_id: None,
+            signature: None,
         }
     }
 
