@@ -236,11 +236,28 @@ impl Bench {
                 crate::rig::SOUNDCARD_NOT_BUILT
             )));
         }
+        let signer = match o.station.and_then(|s| s.signing_key.as_deref()) {
+            None => None,
+            Some(path) => {
+                let key = crate::keys::StationKey::load(path)
+                    .map_err(|e| BenchError::BadInput(Box::new(e)))?;
+                // A key of another station would sign rows its keyring entry does not cover.
+                if key.station() != station.id {
+                    return Err(BenchError::bad_input(format!(
+                        "{}: expected a key of station `{}`, found one of station `{}`",
+                        path.display(),
+                        station.id,
+                        key.station()
+                    )));
+                }
+                Some(key)
+            }
+        };
         let seed = prep.plan.rig.seed();
         Ok(Bench {
             prep,
             inputs,
-            signer: None,
+            signer,
             store,
             station,
             operator,
@@ -478,6 +495,34 @@ impl Bench {
             self.signer.as_ref(),
             outcome,
         )
+    }
+
+    /// Write a checkpoint of this bench's store, signed with the station key, into `dir`
+    /// (created if needed) as `<station>-<UTC time>.checkpoint.json`, and return its path.
+    /// The station loop writes one at the end of each session (a shift); handed off the
+    /// station, it lets `verify --checkpoint` prove that no record up to it was removed,
+    /// changed or reordered. Refused without a station key.
+    pub fn write_checkpoint(&self, dir: &Path) -> Result<PathBuf, BenchError> {
+        let key = self.signer.as_ref().ok_or_else(|| {
+            BenchError::bad_input(
+                "a checkpoint is signed with the station key: the station file names no \
+                 `signing_key` (tragus keys new --station FILE makes one)",
+            )
+        })?;
+        let not_written = |e: &dyn std::fmt::Display| {
+            BenchError::retest(format!("the checkpoint was not written: {e}"))
+        };
+        let store = crate::store::Store::open(&self.store).map_err(|e| not_written(&e))?;
+        let cp = store.checkpoint(key).map_err(|e| not_written(&e))?;
+        std::fs::create_dir_all(dir).map_err(|e| not_written(&e))?;
+        let stamp: String = cp
+            .time_utc
+            .chars()
+            .filter(|c| c.is_ascii_alphanumeric())
+            .collect();
+        let path = dir.join(format!("{}-{stamp}.checkpoint.json", self.station.id));
+        cp.write(&path).map_err(|e| not_written(&e))?;
+        Ok(path)
     }
 
     /// Test one unit and record it. `abandon` is asked once more just before the record is

@@ -57,6 +57,10 @@ pub struct Args {
     /// (operator training; tests use it to press Ctrl-C during a unit).
     #[arg(long)]
     pub sim_realtime: bool,
+    /// At the end of the session (the shift), write a checkpoint of the store signed with
+    /// the station key into this directory; keep it off the station.
+    #[arg(long, value_name = "DIR")]
+    pub checkpoint_dir: Option<PathBuf>,
     /// Sound-card options (override the station's `audio:` settings).
     #[command(flatten)]
     pub soundcard: SoundcardArgs,
@@ -358,6 +362,19 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
     if let Some(s) = &abandoned {
         text.push_str(&format!("abandoned, not recorded: {s}\n"));
     }
+    let mut checkpoint = None;
+    if let Some(dir) = &args.checkpoint_dir {
+        match bench.write_checkpoint(dir) {
+            Ok(path) => {
+                text.push_str(&format!("checkpoint written: {}\n", path.display()));
+                checkpoint = Some(path);
+            }
+            Err(e) => {
+                text.push_str(&format!("checkpoint NOT written: {e}\n"));
+                error.get_or_insert(Exit::from(e));
+            }
+        }
+    }
     screen.print(&text);
     if let Some(l) = &mut lines {
         let doc = serde_json::json!({
@@ -367,6 +384,7 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
             "counts": counts,
             "refused_lines": refused,
             "abandoned": abandoned,
+            "checkpoint": checkpoint,
         });
         if let Err(e) = l.write(&doc) {
             error.get_or_insert(Exit::bad_input(e));
