@@ -315,22 +315,7 @@ impl Store {
         &mut self,
         event: &NewSafetyEvent,
     ) -> Result<StoredSafetyEvent, StoreError> {
-        let db_path = self.db_path.clone();
-        let err = |e| sqlite_err(&db_path, e);
-        let signer = self.signer.take();
-        let result = (|| {
-            let tx = self
-                .conn
-                .transaction_with_behavior(TransactionBehavior::Immediate)
-                .map_err(err)?;
-            super::check_own_schema(&tx, &db_path)?;
-            let stored = insert_safety_event(&tx, event, signer.as_ref())
-                .map_err(|e| e.into_store(&db_path))?;
-            tx.commit().map_err(err)?;
-            Ok(stored)
-        })();
-        self.signer = signer;
-        result
+        self.append_row(|tx, signer| insert_safety_event(tx, event, signer))
     }
 
     /// The safety events matching `filter`, by id, oldest first unless
@@ -387,22 +372,28 @@ impl Store {
         &mut self,
         exposure: &NewExposure,
     ) -> Result<StoredExposure, StoreError> {
+        self.append_row(|tx, signer| insert_exposure(tx, exposure, signer))
+    }
+
+    /// One safety row on its own: `insert` inside an immediate transaction on a store that
+    /// holds only its own schema objects, signed with the store's signer, committed.
+    fn append_row<T>(
+        &mut self,
+        insert: impl FnOnce(
+            &rusqlite::Transaction<'_>,
+            Option<&crate::keys::StationKey>,
+        ) -> Result<T, RowError>,
+    ) -> Result<T, StoreError> {
         let db_path = self.db_path.clone();
         let err = |e| sqlite_err(&db_path, e);
-        let signer = self.signer.take();
-        let result = (|| {
-            let tx = self
-                .conn
-                .transaction_with_behavior(TransactionBehavior::Immediate)
-                .map_err(err)?;
-            super::check_own_schema(&tx, &db_path)?;
-            let stored = insert_exposure(&tx, exposure, signer.as_ref())
-                .map_err(|e| e.into_store(&db_path))?;
-            tx.commit().map_err(err)?;
-            Ok(stored)
-        })();
-        self.signer = signer;
-        result
+        let tx = self
+            .conn
+            .transaction_with_behavior(TransactionBehavior::Immediate)
+            .map_err(err)?;
+        super::check_own_schema(&tx, &db_path)?;
+        let stored = insert(&tx, self.signer.as_ref()).map_err(|e| e.into_store(&db_path))?;
+        tx.commit().map_err(err)?;
+        Ok(stored)
     }
 
     /// Every stored exposure of `operator`, by id.

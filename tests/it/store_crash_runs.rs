@@ -48,10 +48,11 @@ enum Kill {
 }
 
 /// How a run ended.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq)]
 enum Ended {
     Killed,
-    Exited(i32),
+    /// Exited with this code; what it wrote on stderr.
+    Exited(i32, String),
 }
 
 struct Job {
@@ -84,6 +85,7 @@ fn run_job(job: &Job, store: &Path) -> (Ended, Duration) {
     let started = Instant::now();
     let mut child = command(job, store).spawn().unwrap();
     let stderr = child.stderr.take().unwrap();
+    let mut err_text = String::new();
     match job.kill {
         Kill::At(point) => {
             let wanted = format!("{CRASH_MARKER}{point}");
@@ -109,16 +111,19 @@ fn run_job(job: &Job, store: &Path) -> (Ended, Duration) {
         Kill::After(delay) => {
             // Drain stderr meanwhile so that a chatty child never blocks on a full pipe.
             let drain = std::thread::spawn(move || {
-                let _ = std::io::copy(&mut { stderr }, &mut std::io::sink());
+                let mut err = Vec::new();
+                let _ = std::io::copy(&mut { stderr }, &mut err);
+                String::from_utf8_lossy(&err).into_owned()
             });
             std::thread::sleep(delay);
             // Not yet reaped, so the pid is still this child's even if it has exited.
             let _ = child.kill();
-            drain.join().unwrap();
+            err_text = drain.join().unwrap();
         }
         Kill::Never => {
             let mut err = String::new();
             std::io::Read::read_to_string(&mut { stderr }, &mut err).unwrap();
+            err_text = err.clone();
             let status = child.wait().unwrap();
             assert!(
                 matches!(status.code(), Some(0 | 1 | 3)),
@@ -130,7 +135,7 @@ fn run_job(job: &Job, store: &Path) -> (Ended, Duration) {
     let status = child.wait().unwrap();
     let ended = match (status.signal(), status.code()) {
         (Some(9), _) => Ended::Killed,
-        (None, Some(code)) => Ended::Exited(code),
+        (None, Some(code)) => Ended::Exited(code, err_text),
         other => panic!("{}: unexpected end {other:?}", job.serial),
     };
     (ended, started.elapsed())
@@ -260,6 +265,7 @@ fn killed_runs_leave_whole_units_with_all_their_safety_events() {
 
     // How each run ended against what the store holds.
     let (mut at_point, mut random_before, mut random_after, mut finished) = (0, 0, 0, 0);
+    let mut refused = 0;
     for (j, (ended, _)) in first
         .iter()
         .chain(&jobs)
@@ -275,8 +281,19 @@ fn killed_runs_leave_whole_units_with_all_their_safety_events() {
             (Kill::At(point), e) => panic!("{} at {point} ended {e:?}", j.serial),
             (_, Ended::Killed) if recorded => random_after += 1,
             (_, Ended::Killed) => random_before += 1,
-            (_, Ended::Exited(code)) => {
-                assert!(recorded, "{} exited {code} without a record", j.serial);
+            // A store that refuses the append (e.g. its lock held past the busy timeout on a
+            // loaded machine) ends the run with exit 3 and says the unit was NOT recorded:
+            // honest, and consistent. Any other exit without a record is a lost unit.
+            (_, Ended::Exited(3, err)) if !recorded && err.contains("NOT recorded") => {
+                eprintln!("{}: not recorded, as told:\n{err}", j.serial);
+                refused += 1;
+            }
+            (_, Ended::Exited(code, err)) => {
+                assert!(
+                    recorded,
+                    "{} exited {code} without a record:\n{err}",
+                    j.serial
+                );
                 finished += 1;
             }
         }
@@ -320,7 +337,8 @@ fn killed_runs_leave_whole_units_with_all_their_safety_events() {
     println!(
         "{N_RUNS} runs: killed before commit {} (at a crash point {at_point}, at a random \
          moment {random_before}); committed {} (finished {finished}, killed after the \
-         commit {random_after}); {scaled} scaled-down records, {} safety events",
+         commit {random_after}); refused by the store {refused}; {scaled} scaled-down \
+         records, {} safety events",
         at_point + random_before,
         records.len(),
         events.len()
@@ -329,4 +347,9 @@ fn killed_runs_leave_whole_units_with_all_their_safety_events() {
     // A quarter of the runs (by the seeded draw) were aimed at the append.
     assert!(at_point >= 30, "{at_point} runs killed at a crash point");
     assert!(finished >= PARALLEL, "{finished} runs finished");
+    // Refusals are for a loaded machine, not the rule.
+    assert!(
+        refused <= N_RUNS / 20,
+        "{refused} appends refused by the store"
+    );
 }
