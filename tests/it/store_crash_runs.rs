@@ -121,13 +121,11 @@ fn run_job(job: &Job, store: &Path) -> (Ended, Duration) {
             err_text = drain.join().unwrap();
         }
         Kill::Never => {
-            let mut err = String::new();
-            std::io::Read::read_to_string(&mut { stderr }, &mut err).unwrap();
-            err_text = err.clone();
+            std::io::Read::read_to_string(&mut { stderr }, &mut err_text).unwrap();
             let status = child.wait().unwrap();
             assert!(
                 matches!(status.code(), Some(0 | 1 | 3)),
-                "{}: {status:?}\n{err}",
+                "{}: {status:?}\n{err_text}",
                 job.serial
             );
         }
