@@ -36,6 +36,7 @@ mod plan_errors;
 mod plan_fuzz;
 mod plan_hash;
 mod plan_load;
+mod plan_refusals;
 mod report_audit;
 mod report_browser;
 mod rig_dsp;
