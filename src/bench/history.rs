@@ -267,8 +267,20 @@ mod tests {
     #[test]
     fn the_stricter_limit_applies() {
         assert_eq!(RetestRule::of(None, None).max_retests, DEFAULT_MAX_RETESTS);
-        assert_eq!(RetestRule::of(Some(5), Some(2)), RetestRule { max_retests: 2, from: "station" });
-        assert_eq!(RetestRule::of(Some(1), Some(2)), RetestRule { max_retests: 1, from: "plan" });
+        assert_eq!(
+            RetestRule::of(Some(5), Some(2)),
+            RetestRule {
+                max_retests: 2,
+                from: "station"
+            }
+        );
+        assert_eq!(
+            RetestRule::of(Some(1), Some(2)),
+            RetestRule {
+                max_retests: 1,
+                from: "plan"
+            }
+        );
         assert_eq!(RetestRule::of(None, Some(7)).from, "station");
     }
 
@@ -283,13 +295,27 @@ mod tests {
         };
         let n = h.note(&RetestRule::of(None, None));
         assert_eq!(
-            (n.earlier_tests, n.earlier_pass, n.earlier_fail, n.earlier_retest),
+            (
+                n.earlier_tests,
+                n.earlier_pass,
+                n.earlier_fail,
+                n.earlier_retest
+            ),
             (4, 1, 2, 1)
         );
         assert_eq!((n.retests, n.fails_since_pass), (3, 2));
         let line = h.summary_line(&RetestRule::of(None, None)).unwrap();
-        assert!(line.starts_with("E2-000123 tested 4× before: PASS 2026-12-01"), "{line}");
-        assert!(line.contains("FAIL 2026-12-01 larkspur-line3-st1 (plan demo-earbud r5; failed sens)"), "{line}");
-        assert!(line.ends_with("this is retest 3 of at most 3 (default)"), "{line}");
+        assert!(
+            line.starts_with("E2-000123 tested 4× before: PASS 2026-12-01"),
+            "{line}"
+        );
+        assert!(
+            line.contains("FAIL 2026-12-01 larkspur-line3-st1 (plan demo-earbud r5; failed sens)"),
+            "{line}"
+        );
+        assert!(
+            line.ends_with("this is retest 3 of at most 3 (default)"),
+            "{line}"
+        );
     }
 }

@@ -120,8 +120,7 @@ impl Tally {
             retested: self.tests - tested,
             first_tested,
             first_pass,
-            first_pass_yield: (first_tested > 0)
-                .then(|| first_pass as f64 / first_tested as f64),
+            first_pass_yield: (first_tested > 0).then(|| first_pass as f64 / first_tested as f64),
         }
     }
 }

@@ -329,7 +329,9 @@ pub fn build_report(store: &Store, options: &AuditOptions) -> Result<AuditReport
             id: "by-station",
             title: "By station",
             key_title: "station",
-            rows: with_blank(stats::tally_by(&records, &first, |r| r.record.station.clone())),
+            rows: with_blank(stats::tally_by(&records, &first, |r| {
+                r.record.station.clone()
+            })),
             extra_title: None,
         },
     ];
