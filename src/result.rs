@@ -91,6 +91,11 @@ pub struct UnitResult {
     /// absent for `analyze`, which plays nothing.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub safety: Option<crate::safety::setup::UnitSafety>,
+    /// The unit's earlier records in the store and what they decided (retest limit, passed
+    /// after a fail; docs/engineer/history.md); absent for `analyze` and in results written
+    /// before unit history existed.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub history: Option<crate::store::history::HistoryNote>,
 }
 
 /// Current UTC time in RFC 3339 with millisecond precision.

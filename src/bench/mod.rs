@@ -10,6 +10,7 @@
 
 pub mod archive;
 mod error;
+pub mod history;
 mod prepare;
 pub mod reanalyze;
 mod record;
@@ -84,6 +85,8 @@ pub struct Bench {
     soundcard: crate::rig::SoundcardSpec,
     /// Hearing safety on this bench for this plan (caps, gains, budget).
     pub safety: SafetySetup,
+    /// How many retests a unit gets here: the plan's and the station's `max_retests`.
+    pub retest_rule: history::RetestRule,
 }
 
 /// What the simulated rig is told to put in the fixture.
@@ -254,6 +257,8 @@ impl Bench {
             }
         };
         let seed = prep.plan.rig.seed();
+        let retest_rule =
+            history::RetestRule::of(prep.plan.max_retests, o.station.and_then(|s| s.max_retests));
         Ok(Bench {
             prep,
             inputs,
@@ -266,7 +271,15 @@ impl Bench {
             rig,
             soundcard: o.soundcard,
             safety,
+            retest_rule,
         })
+    }
+
+    /// The earlier records of `serial` in this bench's store (any station, any day), oldest
+    /// first: what the operator is shown before the unit is tested, and what its retest limit
+    /// is counted from ([`history`]).
+    pub fn history(&self, serial: &str) -> Result<history::UnitHistory, BenchError> {
+        history::UnitHistory::read(&self.store, serial)
     }
 
     /// True when the store does not exist yet (a new station): the caller shows the
@@ -364,6 +377,7 @@ impl Bench {
         // The one serial rule (also checked by the command line before anything loads).
         crate::serial::check_serial(serial)
             .map_err(|e| BenchError::bad_input(format!("--serial: {e}")))?;
+        let history = self.history(serial)?.note(&self.retest_rule);
         let mut rig = self.make_rig(serial, sim)?;
         tracing::info!(serial = %serial, rig = rig.name(), "playing the stimulus");
         let started = std::time::Instant::now();
@@ -412,8 +426,10 @@ impl Bench {
         };
         result.station = Some(self.station.clone());
         result.device_latency_samples = capture.device_latency_samples;
-        // The measured verdict (before any listening step).
+        // The measured verdict (before any listening step), and the retest limit: a unit
+        // retested too often is a FAIL and gets no listening step.
         result.verdict = prepare::decide_verdict(&self.prep.plan, &result, 0);
+        history::apply(&mut result, &history);
         let (store, operator) = (self.store.clone(), self.operator.clone());
         let ledger = move |since: i64| -> Result<crate::safety::dose::ExposureLedger, String> {
             let exposures = crate::store::Store::open(&store)
@@ -443,6 +459,7 @@ impl Bench {
             s.events.extend(listening.notes);
         }
         result.verdict = prepare::decide_verdict(&self.prep.plan, &result, n_listening);
+        history::apply(&mut result, &history);
         // Shown once by whoever reports the unit, kept in the store; the log has them only at
         // debug level, so that no message is printed twice.
         for e in result.safety.iter().flat_map(|s| &s.events) {

@@ -210,6 +210,7 @@ impl Prepared {
             checks: Vec::new(),
             calibration: self.calibration.clone(),
             safety: None,
+            history: None,
         }
     }
 }

@@ -1,15 +1,23 @@
 //! The running counts of an operator session: what the line lead reads off the station.
 //!
-//! Definitions (a contract: the summary JSON and the screen use them):
+//! Definitions (a contract: the summary JSON and the screen use them; docs/engineer/history.md):
 //! - a **unit** is a distinct serial number; a **test** is one completed, recorded
 //!   measurement of a unit. The same serial again is a retest of that unit, not a new unit.
 //! - `tested`: units tested this session; `tests`: tests completed (= records written).
 //! - `pass`, `fail`, `retest`: units by their **latest** verdict (they add up to
 //!   `tested`): what the line does with each unit now.
 //! - `retested`: tests of a unit already tested this session (= `tests − tested`).
-//! - `first_pass`: units whose **first** test passed; first-pass yield
-//!   = `first_pass / tested` (common practice: a unit that passes only on a retest is not a
-//!   first-pass unit).
+//! - `first_tested`: units whose **first test ever** was in this session: no earlier record
+//!   of the serial in the store (any station, any day) when it was tested. A unit first
+//!   tested in an earlier session (or on another station writing to the same store) is not
+//!   one, whatever it did this session.
+//! - `first_pass`: of those, units whose first test passed; first-pass yield
+//!   = `first_pass / first_tested` (common practice: a unit that passes only on a retest is
+//!   not a first-pass unit, and a unit enters the yield once, in the session of its first
+//!   test, so the yields of successive sessions combine into the yield of the line).
+//!
+//! The audit report counts first-pass yield by the same rule over a selection of records
+//! ([`crate::report`]'s audit statistics).
 
 use crate::Verdict;
 use std::collections::HashMap;
@@ -17,7 +25,8 @@ use std::collections::HashMap;
 /// One unit's history in the session.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 struct UnitHistory {
-    first: Verdict,
+    /// The verdict of its first test ever, when that was in this session.
+    first_ever: Option<Verdict>,
     latest: Verdict,
 }
 
@@ -43,9 +52,11 @@ pub struct Counts {
     pub retest: u64,
     /// Tests of a unit already tested this session.
     pub retested: u64,
-    /// Units whose first test passed.
+    /// Units whose first test ever (store-wide) was in this session.
+    pub first_tested: u64,
+    /// Of those, units whose first test passed.
     pub first_pass: u64,
-    /// `first_pass / tested`, 0 to 1; `None` before the first unit.
+    /// `first_pass / first_tested`, 0 to 1; `None` before the first such unit.
     pub first_pass_yield: Option<f64>,
 }
 
@@ -55,9 +66,18 @@ impl Tally {
         Tally::default()
     }
 
-    /// Count one completed test; returns true when the serial was already tested (a
-    /// retest of that unit).
+    /// Count one completed test, without knowing the store: a serial new to the session
+    /// is taken to be tested for the first time ever. Returns true when the serial was
+    /// already tested this session (a retest of that unit).
     pub fn add(&mut self, serial: &str, verdict: Verdict) -> bool {
+        let first_ever = !self.units.contains_key(serial);
+        self.add_tested(serial, verdict, first_ever)
+    }
+
+    /// Count one completed test; `first_ever`: the store held no earlier record of the
+    /// serial when it was tested (the result's `history.earlier_tests` is 0). Returns true
+    /// when the serial was already tested this session.
+    pub fn add_tested(&mut self, serial: &str, verdict: Verdict, first_ever: bool) -> bool {
         self.tests += 1;
         match self.units.get_mut(serial) {
             Some(h) => {
@@ -68,7 +88,7 @@ impl Tally {
                 self.units.insert(
                     serial.to_string(),
                     UnitHistory {
-                        first: verdict,
+                        first_ever: first_ever.then_some(verdict),
                         latest: verdict,
                     },
                 );
@@ -81,10 +101,15 @@ impl Tally {
     pub fn counts(&self) -> Counts {
         let tested = self.units.len() as u64;
         let latest = |v: Verdict| self.units.values().filter(|h| h.latest == v).count() as u64;
+        let first_tested = self
+            .units
+            .values()
+            .filter(|h| h.first_ever.is_some())
+            .count() as u64;
         let first_pass = self
             .units
             .values()
-            .filter(|h| h.first == Verdict::Pass)
+            .filter(|h| h.first_ever == Some(Verdict::Pass))
             .count() as u64;
         Counts {
             tested,
@@ -93,8 +118,9 @@ impl Tally {
             fail: latest(Verdict::Fail),
             retest: latest(Verdict::Retest),
             retested: self.tests - tested,
+            first_tested,
             first_pass,
-            first_pass_yield: (tested > 0).then(|| first_pass as f64 / tested as f64),
+            first_pass_yield: (first_tested > 0).then(|| first_pass as f64 / first_tested as f64),
         }
     }
 }
@@ -129,6 +155,21 @@ mod tests {
         );
         // Exact ratio of small integers: 1/3 in f64 both ways.
         assert_eq!(c.first_pass_yield, Some(1.0 / 3.0));
+    }
+
+    // A second session on the same store: A (first tested before, fails again, then passes)
+    // is no first test here; D is new and passes; E is new and fails. By the definitions:
+    // tested 3, first_tested 2 (D, E), first_pass 1 (D) → FPY 1/2, whatever A did.
+    #[test]
+    fn units_first_tested_in_an_earlier_session_are_not_in_the_yield() {
+        let mut t = Tally::new();
+        assert!(!t.add_tested("A", Verdict::Fail, false));
+        assert!(!t.add_tested("D", Verdict::Pass, true));
+        assert!(t.add_tested("A", Verdict::Pass, false));
+        assert!(!t.add_tested("E", Verdict::Fail, true));
+        let c = t.counts();
+        assert_eq!((c.tested, c.first_tested, c.first_pass), (3, 2, 1));
+        assert_eq!(c.first_pass_yield, Some(0.5));
     }
 
     #[test]

@@ -3,7 +3,9 @@
 //! Reads serial numbers as lines on stdin (a barcode scanner types them and presses
 //! Enter), tests and records each unit ([`crate::bench`]), shows the verdict in large words
 //! (colour only on a terminal), the failed checks with their margins and the running counts
-//! ([`crate::bench::tally`] defines them). Blank lines are skipped; a line that is not a
+//! ([`crate::bench::tally`] defines them). Before each unit it shows the serial's earlier
+//! results from the store (any station, any day), and after it what they decided: a FAIL
+//! for too many retests, a pass after a fail ([`crate::bench::history`]). Blank lines are skipped; a line that is not a
 //! serial number by [`crate::serial`]'s rule (the one `run --serial` keeps) once trimmed is
 //! refused with a message and the loop goes on.
 //!
@@ -19,6 +21,7 @@
 
 use super::soundcard_args::SoundcardArgs;
 use super::{Exit, JsonOut, Output, EXIT_PASS};
+use crate::bench::history;
 use crate::bench::tally::{Counts, Tally};
 use crate::bench::{Bench, BenchOptions, SimChoice, Tested, UnitStop};
 use crate::serial::check_serial;
@@ -165,8 +168,9 @@ fn counts_line(c: &Counts) -> String {
         .first_pass_yield
         .map_or_else(|| "—".to_string(), |y| format!("{:.1} %", 100.0 * y));
     format!(
-        "tested {} · pass {} · fail {} · retest {} · retested {} · tests {} · first-pass yield {}",
-        c.tested, c.pass, c.fail, c.retest, c.retested, c.tests, fpy
+        "tested {} · pass {} · fail {} · retest {} · retested {} · tests {} · first-pass yield {} \
+         (of {} first tested)",
+        c.tested, c.pass, c.fail, c.retest, c.retested, c.tests, fpy, c.first_tested
     )
 }
 
@@ -267,6 +271,19 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
             continue;
         }
         let sim = sims.get(serial).unwrap_or(&nominal).clone();
+        // The unit's earlier results, from every station writing to this store; the test
+        // reads them again for its retest limit.
+        match bench.history(serial) {
+            Ok(h) => {
+                if let Some(line) = h.summary_line(&bench.retest_rule) {
+                    screen.print(&format!("{line}\n"));
+                }
+            }
+            Err(e) => {
+                error = Some(e.into());
+                break StopReason::Error;
+            }
+        }
         screen.print(&format!("testing {serial} …\n"));
         let progress = screen.terminal.then(|| {
             let pb = indicatif::ProgressBar::new_spinner();
@@ -306,9 +323,13 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
         }
         match outcome {
             Ok(Tested { result, stored }) => {
-                let repeat = tally.add(serial, result.verdict);
+                let first_ever = result.history.as_ref().is_none_or(|h| h.earlier_tests == 0);
+                let repeat = tally.add_tested(serial, result.verdict, first_ever);
                 let counts = tally.counts();
                 let mut text = crate::report::render_operator(&result, screen.color);
+                for line in history::outcome_lines(result.history.as_ref()) {
+                    text.push_str(&format!("  {line}\n"));
+                }
                 if repeat {
                     text.push_str("  (retest of a unit already tested this session)\n");
                 }

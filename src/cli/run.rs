@@ -1,5 +1,7 @@
 //! `tragus run PLAN --serial SN [--station FILE] [--rig simulated|soundcard] [--store DIR]
 //! [--json OUT]`: one unit end to end ([`crate::bench`]), then the human report or JSON.
+//! The serial's earlier results in the store are shown first, and what they decided (a FAIL
+//! for too many retests, a pass after a fail) after the report ([`crate::bench::history`]).
 
 use super::soundcard_args::SoundcardArgs;
 use super::{Exit, JsonOut, Output};
@@ -127,6 +129,13 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
             None => super::operator_loop::ask_terminal(prompt),
         }
     };
+    let human = !args.json.as_ref().is_some_and(JsonOut::is_stdout);
+    // The unit's earlier results, before it is tested (the test reads them again for its
+    // retest limit).
+    let history = bench.history(&args.serial)?;
+    if let (true, Some(line)) = (human, history.summary_line(&bench.retest_rule)) {
+        outln!("{line}");
+    }
     // `run` never asks to abandon.
     let tested = bench.test_and_record(&args.serial, &sim, &|| false, &listen)?;
     let (result, stored) = (tested.result, tested.stored);
@@ -134,8 +143,11 @@ pub(crate) fn run(args: Args, out: Output) -> Result<i32, Exit> {
     if let Some(j) = &args.json {
         j.write(&result).map_err(Exit::bad_input)?;
     }
-    if !args.json.as_ref().is_some_and(JsonOut::is_stdout) {
+    if human {
         out!("{}", crate::report::render_human(&result, out.color));
+        for line in crate::bench::history::outcome_lines(result.history.as_ref()) {
+            outln!("{line}");
+        }
         if let Some(lag) = result.device_latency_samples {
             // The device path removed before the analysis (README: the sound-card rig).
             outln!(

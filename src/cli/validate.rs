@@ -1,5 +1,7 @@
 //! `tragus validate PLAN... [--station FILE]...`: check plans and station files, one
-//! `PATH:LINE:COL: message` line per problem. Station files are named by `--station`
+//! `PATH:LINE:COL: message` line per problem. A valid plan may also get warnings,
+//! `PATH:LINE:COL: warning: message` (limits far outside what its declared product could
+//! produce, docs/engineer/validate.md); they do not change the exit code. Station files are named by `--station`
 //! rather than guessed from their content, so a plan with a typo in its top key is never
 //! checked against the wrong schema.
 //!
@@ -9,7 +11,7 @@
 //! before any unit is seated.
 
 use super::{Exit, JsonOut, EXIT_BAD_INPUT, EXIT_PASS};
-use crate::plan::{load_plan, PlanError, Problem};
+use crate::plan::{load_plan_checked, CheckedPlan, PlanError, Problem};
 use serde_json::{json, Value};
 use std::path::{Path, PathBuf};
 
@@ -35,8 +37,13 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
     };
     let mut code = EXIT_PASS;
     for path in &args.plans {
-        match load_plan(path) {
-            Ok(plan) => {
+        match load_plan_checked(path) {
+            Ok(CheckedPlan { plan, warnings }) => {
+                // Warnings first, like the problems of an invalid plan, each at its value;
+                // they do not make the plan invalid (exit 0).
+                for w in &warnings {
+                    found.say(warning_line(w));
+                }
                 found.say(format_args!(
                     "{}: ok (plan {} revision {}, sha256 {})",
                     path.display(),
@@ -44,8 +51,10 @@ pub(crate) fn run(args: Args) -> Result<i32, Exit> {
                     plan.revision,
                     plan.sha256
                 ));
-                found.file(path, "plan", &[], None)["plan"] =
+                let entry = found.file(path, "plan", &[], None);
+                entry["plan"] =
                     json!({"id": plan.id, "revision": plan.revision, "sha256": plan.sha256});
+                entry["warnings"] = Value::Array(warnings.iter().map(problem_json).collect());
             }
             Err(PlanError::Invalid(problems)) => {
                 // Problems go to stdout: they are the command's output, one per line, for
@@ -137,15 +146,7 @@ impl Found {
         problems: &[Problem],
         unreadable: Option<String>,
     ) -> &mut Value {
-        let mut list: Vec<Value> = problems
-            .iter()
-            .map(|p| {
-                json!({
-                    "path": p.location.path, "line": p.location.line, "col": p.location.col,
-                    "message": p.message,
-                })
-            })
-            .collect();
+        let mut list: Vec<Value> = problems.iter().map(problem_json).collect();
         if let Some(message) = unreadable {
             // The entry names the file already; the message says only what is wrong.
             let prefix = format!("{}: ", path.display());
@@ -157,6 +158,22 @@ impl Found {
         }));
         self.files.last_mut().expect("just pushed")
     }
+}
+
+/// A problem or warning as `--json` gives it.
+fn problem_json(p: &Problem) -> Value {
+    json!({
+        "path": p.location.path, "line": p.location.line, "col": p.location.col,
+        "message": p.message,
+    })
+}
+
+/// A warning as printed: `PATH:LINE:COL: warning: message`.
+fn warning_line(w: &Problem) -> String {
+    format!(
+        "{}:{}:{}: warning: {}",
+        w.location.path, w.location.line, w.location.col, w.message
+    )
 }
 
 /// Set the plan up on the station as `run` would (nothing is played) and say whether it may

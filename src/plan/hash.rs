@@ -46,7 +46,8 @@
 //! so, or by default because a sensitivity check is in dB SPL); a plan in dB FS/FS has no such
 //! key. The top-level `"product"` is present only when the plan declares one:
 //! `{"response_peak_db":R,"sensitivity_db":R,"sensitivity_unit":S,"tolerance_db":R}` (the
-//! values as written, not converted).
+//! values as written, not converted). The top-level `"max_retests":I` is present only when
+//! the plan declares it.
 //!
 //! A channel's `"correction"` key is present only when the channel is corrected (the
 //! plan-wide `correction:` applied, or its own; absent for `correction: none`), so that a
@@ -204,6 +205,7 @@ fn to_canonical(plan: &Plan) -> C {
         nominal_impedance_ohm,
         level_unit,
         product,
+        max_retests,
     } = plan;
     let st = stimulus;
     let stimulus = obj([
@@ -293,6 +295,11 @@ fn to_canonical(plan: &Plan) -> C {
                 ("tolerance_db", real(p.tolerance_db)),
             ]),
         );
+    }
+    // Only when declared (it decides verdicts: a unit retested too often fails), so plans
+    // without it keep their hash.
+    if let Some(n) = max_retests {
+        top.insert("max_retests", int(*n));
     }
     C::Obj(top)
 }

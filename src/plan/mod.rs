@@ -34,7 +34,7 @@ pub use checks::polarity::Polarity;
 pub use checks::response::{LimitLine, Normalize};
 pub use checks::{CheckKind, CheckSpec};
 pub use rig::RigKind;
-pub use validate::{load_plan, load_plan_str};
+pub use validate::{load_plan, load_plan_checked, load_plan_str, CheckedPlan};
 
 /// Default number of points per octave of the analysis grid.
 pub const DEFAULT_POINTS_PER_OCTAVE: u32 = 24;
@@ -42,6 +42,9 @@ pub const DEFAULT_POINTS_PER_OCTAVE: u32 = 24;
 pub const DEFAULT_MAX_HARMONIC: usize = 5;
 /// Default minimum SNR (dB) for a valid measurement.
 pub const DEFAULT_MIN_SNR_DB: f64 = 20.0;
+/// Highest `max_retests` a plan or a station may set: a line retests a unit a few times at
+/// most (common practice); a larger number is a typo, or a wish to have no limit.
+pub const MAX_RETESTS_LIMIT: u32 = 100;
 
 /// A validated test plan, ready to drive a run.
 #[derive(Debug, Clone, PartialEq)]
@@ -77,6 +80,9 @@ pub struct Plan {
     /// What the product's specification declares (`product:`), used by the hearing-safety
     /// checks to bound the sound level before anything plays.
     pub product: Option<ProductSpec>,
+    /// How many times a unit may be retested under this plan (`max_retests:`); `None` when
+    /// the plan leaves it to the station or the default (docs/engineer/history.md).
+    pub max_retests: Option<u32>,
 }
 
 /// The product's declared acoustic output (`product:`), in the reference coupler.

@@ -107,6 +107,8 @@ pub struct RawTop {
     pub checks: Option<IgnoredAny>,
     /// Decoded on its own into [`RawPlan::correction`].
     pub correction: Option<IgnoredAny>,
+    /// How many times a unit may be retested under this plan.
+    pub max_retests: Option<Spanned<i128>>,
 }
 
 /// A list of numbers meant to hold two (a band `[low_hz, high_hz]` or a point `[hz, db]`);

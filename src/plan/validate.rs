@@ -59,11 +59,35 @@ pub fn load_plan(path: &Path) -> Result<Plan, PlanError> {
 
 /// Load a plan from text; `path` is used in messages and to resolve relative CSV paths.
 pub fn load_plan_str(text: &str, path: &Path) -> Result<Plan, PlanError> {
+    load_checked_str(text, path).map(|c| c.plan)
+}
+
+/// A valid plan and the warnings its validation gave: limits that no unit of the declared
+/// product could meet or that none could fail ([`super::checks::plausible`]). A warning does
+/// not refuse the plan; `tragus validate` prints them with their positions.
+#[derive(Debug, Clone)]
+pub struct CheckedPlan {
+    /// The plan.
+    pub plan: Plan,
+    /// Its warnings, `path:line:col` of the value each is about, in file order.
+    pub warnings: Vec<Problem>,
+}
+
+/// [`load_plan`], keeping the warnings.
+pub fn load_plan_checked(path: &Path) -> Result<CheckedPlan, PlanError> {
+    crate::config::load_file(path, load_checked_str)
+}
+
+/// [`load_plan_str`], keeping the warnings.
+pub fn load_checked_str(text: &str, path: &Path) -> Result<CheckedPlan, PlanError> {
     let label = path.display().to_string();
     let (raw, mut problems) = raw::parse(text, &label);
     if let Some(raw) = raw {
-        match Plan::from_raw(&raw, path) {
-            Ok(plan) if problems.is_empty() => return Ok(plan),
+        match Plan::checked_from_raw(&raw, path) {
+            Ok(mut checked) if problems.is_empty() => {
+                crate::config::sort_problems(&mut checked.warnings, &label);
+                return Ok(checked);
+            }
             Ok(_) => {}
             Err(more) => problems.extend(more),
         }
@@ -83,15 +107,29 @@ impl Plan {
     /// Stage two: validate a decoded plan, read its limit files (relative to `source`'s
     /// directory), apply defaults and hash it. Returns every problem found.
     pub fn from_raw(raw: &RawPlan, source: &Path) -> Result<Plan, Vec<Problem>> {
+        Plan::checked_from_raw(raw, source).map(|c| c.plan)
+    }
+
+    /// [`Plan::from_raw`], keeping the warnings (unsorted).
+    pub fn checked_from_raw(raw: &RawPlan, source: &Path) -> Result<CheckedPlan, Vec<Problem>> {
         let mut v = Validator {
             path: source.display().to_string(),
             dir: source.parent().unwrap_or(Path::new(".")).to_path_buf(),
             problems: Vec::new(),
             nominal_impedance_ohm: None,
+            level_limits: Vec::new(),
         };
         let plan = v.plan(raw, source);
         match plan {
-            Some(plan) if v.problems.is_empty() => Ok(plan),
+            Some(plan) if v.problems.is_empty() => {
+                let warnings = super::checks::plausible::warnings(
+                    &v.level_limits,
+                    plan.level_unit,
+                    plan.product.as_ref(),
+                    plan.nominal_impedance_ohm,
+                );
+                Ok(CheckedPlan { plan, warnings })
+            }
             _ => {
                 if v.problems.is_empty() && raw.n_problems == 0 {
                     // Every refusal above reports why; kept so that an error is never silent.
@@ -117,6 +155,9 @@ pub(super) struct Validator {
     pub(super) problems: Vec<Problem>,
     /// The plan's `nominal_impedance_ohm`, once read (checks in dB SPL/mW need it).
     pub(super) nominal_impedance_ohm: Option<f64>,
+    /// Absolute level limits the checks hold, with where each is written: compared with
+    /// the product's declaration once the whole plan is read (warnings only).
+    pub(super) level_limits: Vec<super::checks::plausible::LevelLimit>,
 }
 
 impl Validator {
@@ -343,6 +384,12 @@ impl Validator {
             }
         };
         self.nominal_impedance_ohm = nominal_impedance_ohm.flatten();
+        let max_retests = match &t.max_retests {
+            None => Some(None),
+            Some(v) => self
+                .int_in_range(v, "max_retests", 0, i128::from(super::MAX_RETESTS_LIMIT))
+                .map(|n| Some(n as u32)),
+        };
 
         if raw.stimulus.is_none() && !top.was_rejected("stimulus") {
             self.report(top.pos, "missing required key `stimulus`".into());
@@ -415,6 +462,7 @@ impl Validator {
             nominal_impedance_ohm: nominal_impedance_ohm?,
             level_unit: level_unit?,
             product: product?,
+            max_retests: max_retests?,
         };
         plan.sha256 = super::hash::plan_sha256(&plan);
         Some(plan)

@@ -15,7 +15,7 @@ use marked_yaml::Node;
 use sha2::{Digest, Sha256};
 use std::path::{Path, PathBuf};
 
-const TOP_KEYS: [&str; 13] = [
+const TOP_KEYS: [&str; 14] = [
     "station",
     "description",
     "mode",
@@ -29,6 +29,7 @@ const TOP_KEYS: [&str; 13] = [
     "store",
     "signing_key",
     "caps",
+    "max_retests",
 ];
 const AUDIO_KEYS: [&str; 6] = [
     "host",
@@ -229,6 +230,17 @@ impl Reader {
             None => Some(Caps::default()),
             Some(n) => self.caps(n),
         };
+        let max_retests = match top.get_node("max_retests") {
+            None => Some(None),
+            Some(n) => self
+                .int_in(
+                    n,
+                    "max_retests",
+                    0,
+                    i128::from(crate::plan::MAX_RETESTS_LIMIT),
+                )
+                .map(|x| Some(x as u32)),
+        };
 
         Some(Station {
             id: id?,
@@ -243,6 +255,7 @@ impl Reader {
             store: store?,
             signing_key: signing_key?,
             caps: caps?,
+            max_retests: max_retests?,
             sha256: hex::encode(Sha256::digest(text.as_bytes())),
             source: source.to_path_buf(),
         })

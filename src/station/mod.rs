@@ -37,6 +37,8 @@
 //! calibration: ../calibration/line3-st1.yaml            # required in production mode
 //! store: ../tragus-data/line3-st1 # optional; default tragus-data
 //! signing_key: line3-st1.key      # optional: the station's private key (`tragus keys new`)
+//! max_retests: 2                  # optional, 0 to 100: retests of a unit before it is a FAIL
+//!                                 #   (the stricter of the plan's and this; default 3)
 //! caps:                           # optional; every key optional, defaults in Caps
 //!   max_drive_v_rms: 0.5
 //!   max_drive_v_peak: 0.8
@@ -212,6 +214,9 @@ pub struct Station {
     pub signing_key: Option<PathBuf>,
     /// Hardware caps.
     pub caps: Caps,
+    /// How many times a unit may be retested on this station (`max_retests:`); `None` when
+    /// the station leaves it to the plan or the default (docs/engineer/history.md).
+    pub max_retests: Option<u32>,
     /// Hex SHA-256 of the station file's bytes.
     pub sha256: String,
     /// The file the station came from.

@@ -211,6 +211,7 @@ mod capture;
 mod checkpoint;
 mod error;
 mod hash;
+pub mod history;
 mod read_only;
 mod record;
 mod safety;

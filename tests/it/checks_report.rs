@@ -30,6 +30,7 @@ fn result(verdict: Verdict, checks: Vec<CheckResult>) -> UnitResult {
         checks,
         calibration: CalibrationInfo::uncalibrated(),
         safety: None,
+        history: None,
     }
 }
 

@@ -185,7 +185,7 @@ fn unknown_top_level_key_suggests_the_nearest() {
         [
             "t.yaml:7:1: unknown key `zzz`, expected one of plan, revision, description, \
           sample_rate_hz, nominal_impedance_ohm, level_unit, stimulus, analysis, channels, rig, product, checks, \
-          correction"
+          correction, max_retests"
         ]
     );
 }

@@ -139,6 +139,8 @@ fn expected_counts(recs: &[serde_json::Value]) -> serde_json::Value {
         "fail": by("fail"),
         "retest": by("retest"),
         "retested": recs.len() as u64 - units,
+        // Every test here is on a new store: each unit's first test ever is in the session.
+        "first_tested": units,
         "first_pass": first_pass,
         "first_pass_yield": first_pass as f64 / units as f64,
     })

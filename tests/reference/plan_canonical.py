@@ -366,6 +366,9 @@ def canonical(path):
             "sensitivity_unit": pr["sensitivity_unit"],
             "tolerance_db": real(pr["tolerance_db"]),
         }
+    # Present only when declared (hash contract).
+    if "max_retests" in plan:
+        doc["max_retests"] = plan["max_retests"]
     return dump(doc)
 
 

@@ -16,6 +16,9 @@
 //! - faults the rig reported while capturing (buffer xruns, a hearing-safety guard trip):
 //!   the WAV file holds the samples, not the rig's report, so these come back from the
 //!   stored measurement's `rig_fault` retest reasons, as the analysis reported them;
+//! - the unit's history (`history` in the stored result: its earlier records counted when
+//!   it was tested, and the retest limit): the rule is applied again from them
+//!   ([`super::history::carry_over`]), so a FAIL for too many retests is one again;
 //! - for an abandoned sweep (`playback_json.abandoned`), everything: nothing was measured,
 //!   so the re-analysis is "not judged", with the stored retest reason, and only the
 //!   verdict rule is applied again.
@@ -310,6 +313,8 @@ pub fn reanalyze(store: &Store, record: &StoredRecord) -> Result<Reanalysis, Ben
     let n_carried = carried.len();
     result.checks.extend(carried);
     result.verdict = decide_verdict(&prep.plan, &result, n_carried);
+    // The retest limit, from the facts the record keeps (the store has later records now).
+    super::history::carry_over(&stored, &mut result, record.id)?;
     let comparison = compare(&result, &stored, record);
     Ok(Reanalysis {
         record_id: record.id,

@@ -6,7 +6,7 @@
 //!   kind: harmonic
 //!   order: 3                 # 2 to the plan's analysis.max_harmonic
 //!   band_hz: [100, 5000]     # inside the sweep
-//!   max_db: -40
+//!   max_db: -40              # dB re the fundamental, at most 0
 //! ```
 //!
 //! Canonical fields: `"band"`, `"max_db"`, `"order"`.
@@ -63,7 +63,7 @@ impl Kind for Harmonic {
                 None
             }
         });
-        let max_db = v.check_number(check, &c.max_db, "max_db");
+        let max_db = v.check_re_fundamental(check, &c.max_db, "max_db");
         Some(CheckKind::Harmonic {
             order: order?,
             band: b?,

@@ -207,6 +207,55 @@ impl Validator {
         self.required_positive(check.sec, value, check.ctx, key, unit)
     }
 
+    /// A THD limit (already above 0 %) at most 100 %. THD, re the fundamental, exceeds
+    /// 100 % only when the harmonics together are louder than the tone itself, a broken
+    /// unit; a limit above it passes such a unit, so it is refused as the typo it almost
+    /// surely is (a limit in per mille, say).
+    pub(in crate::plan) fn at_most_100_percent(
+        &mut self,
+        check: &CheckInput,
+        value: &Option<Spanned<f64>>,
+        x: f64,
+    ) -> Option<f64> {
+        if x <= 100.0 {
+            return Some(x);
+        }
+        let at = value.as_ref().map_or(check.sec.pos, Pos::of_value);
+        self.report(
+            at,
+            format!(
+                "{}: expected a limit above 0 % and at most 100 % of the fundamental, found {x}",
+                check.label("max_percent")
+            ),
+        );
+        None
+    }
+
+    /// A required limit in dB re the fundamental (a harmonic, rub and buzz): at most 0 dB.
+    /// Above 0 dB the distortion would be louder than the tone itself; such a limit passes
+    /// every unit (common practice: these limits are tens of dB below the fundamental).
+    pub(in crate::plan) fn check_re_fundamental(
+        &mut self,
+        check: &CheckInput,
+        value: &Option<Spanned<f64>>,
+        key: &str,
+    ) -> Option<f64> {
+        let x = self.check_number(check, value, key)?;
+        if x <= 0.0 {
+            return Some(x);
+        }
+        let at = value.as_ref().map_or(check.sec.pos, Pos::of_value);
+        self.report(
+            at,
+            format!(
+                "{}: expected a limit at or below 0 dB re the fundamental (a negative number: \
+                 how far below the tone it must stay), found {x}",
+                check.label(key)
+            ),
+        );
+        None
+    }
+
     /// The required `band_hz:`, inside the sweep.
     pub(in crate::plan) fn check_band(
         &mut self,

@@ -31,6 +31,7 @@ pub mod balance;
 pub mod harmonic;
 mod item;
 pub mod listening;
+pub(in crate::plan) mod plausible;
 pub mod polarity;
 pub mod response;
 pub mod rub_buzz;

@@ -16,8 +16,10 @@
 //! (`origin` is `"inline"` or the CSV path as written); `"smoothing_fraction"`: I or `null`;
 //! `"normalize"`: `{"at_hz":R}`, `{"band":{"high_hz":R,"low_hz":R}}` or `null`.
 
+pub(in crate::plan) mod crossing;
 pub mod limit_csv;
 
+use super::plausible::{LevelLimit, Side};
 use super::{CheckInput, CheckKind, Fields, Kind};
 use crate::config::{label, read_data_file, Location, Pos};
 use crate::plan::hash::{self, C};
@@ -39,6 +41,30 @@ pub struct LimitLine {
     pub points: Vec<(f64, f64)>,
     /// Where the points came from: `inline` or the CSV path as written in the plan.
     pub origin: String,
+}
+
+/// A limit line as validation read it: its points, where each was written (a CSV line or
+/// an inline pair) and where the plan names it, for messages about the line as a whole.
+#[derive(Debug, Clone)]
+pub(in crate::plan) struct PlacedLine {
+    /// The line.
+    pub(in crate::plan) line: LimitLine,
+    /// Where each point was written, in point order.
+    pub(in crate::plan) at: Vec<Location>,
+    /// Where the plan names the line (the value of `upper:` or `lower:`).
+    pub(in crate::plan) named_at: Location,
+    /// How messages name it (`check fr: upper`).
+    pub(in crate::plan) what: String,
+}
+
+impl PlacedLine {
+    /// Where point `i` was written, and for a point of a CSV file the plan position that
+    /// names the file (`None` for inline points, which are in the plan already).
+    pub(in crate::plan) fn point_at(&self, i: usize) -> (Location, Option<&Location>) {
+        let at = self.at[i].clone();
+        let named = (at.path != self.named_at.path).then_some(&self.named_at);
+        (at, named)
+    }
 }
 
 /// How a response is normalised before it is compared with its limits.
@@ -124,6 +150,20 @@ impl Kind for Response {
             .lower
             .as_ref()
             .and_then(|l| v.limit(l, &check.label("lower"), band));
+        let crossed = match (&upper, &lower) {
+            (Some(u), Some(l)) => crossing::refuse_crossed(v, check, u, l),
+            _ => false,
+        };
+        if c.normalize.is_none() {
+            // Absolute levels only: a normalised response is relative to itself.
+            for (line, side) in [(&upper, Side::Upper), (&lower, Side::Lower)] {
+                if let Some(l) = line {
+                    v.level_limits.extend(LevelLimit::of_line(side, l));
+                }
+            }
+        }
+        let upper = upper.map(|l| l.line);
+        let lower = lower.map(|l| l.line);
         if c.upper.is_none()
             && c.lower.is_none()
             && !sec.was_rejected("upper")
@@ -151,6 +191,7 @@ impl Kind for Response {
         };
         let (upper, lower) = (upper?, lower?);
         (upper.is_some() || lower.is_some()).then_some(())?;
+        (!crossed).then_some(())?;
         Some(CheckKind::Response {
             upper,
             lower,
@@ -251,7 +292,7 @@ impl Validator {
         v: &Spanned<RawLimit>,
         what: &str,
         sweep: Option<SweepBand>,
-    ) -> Option<LimitLine> {
+    ) -> Option<PlacedLine> {
         let value_pos = Pos::of_value(v);
         let mut all_points_ok = true;
         // (hz, db, where) per point.
@@ -344,9 +385,14 @@ impl Validator {
                 }
             }
         }
-        ok.then(|| LimitLine {
-            points: points.iter().map(|(hz, db, _)| (*hz, *db)).collect(),
-            origin,
+        ok.then(|| PlacedLine {
+            line: LimitLine {
+                points: points.iter().map(|(hz, db, _)| (*hz, *db)).collect(),
+                origin,
+            },
+            at: points.into_iter().map(|(_, _, loc)| loc).collect(),
+            named_at: value_pos.at(&self.path),
+            what: what.to_string(),
         })
     }
 }

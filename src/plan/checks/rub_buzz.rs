@@ -5,7 +5,7 @@
 //! - id: rb
 //!   kind: rub_buzz
 //!   band_hz: [100, 5000]     # inside the sweep
-//!   max_db: -30
+//!   max_db: -30              # dB re the fundamental, at most 0
 //! ```
 //!
 //! Canonical fields: `"band"`, `"max_db"`.
@@ -37,7 +37,7 @@ impl Kind for RubBuzz {
 
     fn validate(v: &mut Validator, check: &CheckInput, c: &RawRubBuzz) -> Option<CheckKind> {
         let b = v.check_band(check, &c.band_hz);
-        let max_db = v.check_number(check, &c.max_db, "max_db");
+        let max_db = v.check_re_fundamental(check, &c.max_db, "max_db");
         Some(CheckKind::RubBuzz {
             band: b?,
             max_db: max_db?,

@@ -16,6 +16,7 @@
 //! `"db_spl_per_mw"`) only when not the default `db`, so plans written before units existed
 //! keep their hash.
 
+use super::plausible::{LevelLimit, Side};
 use super::{CheckInput, CheckKind, Fields, Kind};
 use crate::config::{found_scalar, Pos};
 use crate::plan::hash;
@@ -94,6 +95,18 @@ impl Kind for Sensitivity {
                 ),
             );
             return None;
+        }
+        if let (Some(u), Some(lo), Some(hi), Some(lo_v), Some(hi_v)) =
+            (unit, min_db, max_db, &c.min_db, &c.max_db)
+        {
+            for (key, side, db, value) in [
+                ("min_db", Side::Lower, lo, lo_v),
+                ("max_db", Side::Upper, hi, hi_v),
+            ] {
+                let at = Pos::of_value(value).at(&v.path);
+                v.level_limits
+                    .push(LevelLimit::window(check.label(key), side, u, db, at));
+            }
         }
         Some(CheckKind::Sensitivity {
             band: b?,

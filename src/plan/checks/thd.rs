@@ -5,7 +5,7 @@
 //! - id: thd
 //!   kind: thd
 //!   band_hz: [100, 5000]     # inside the sweep
-//!   max_percent: 1           # above 0
+//!   max_percent: 1           # above 0, at most 100
 //! ```
 //!
 //! Canonical fields: `"band"`, `"max_percent"`.
@@ -37,7 +37,9 @@ impl Kind for Thd {
 
     fn validate(v: &mut Validator, check: &CheckInput, c: &RawThd) -> Option<CheckKind> {
         let b = v.check_band(check, &c.band_hz);
-        let max_percent = v.check_positive(check, &c.max_percent, "max_percent", "%");
+        let max_percent = v
+            .check_positive(check, &c.max_percent, "max_percent", "%")
+            .and_then(|x| v.at_most_100_percent(check, &c.max_percent, x));
         Some(CheckKind::Thd {
             band: b?,
             max_percent: max_percent?,

@@ -234,7 +234,9 @@ pub fn build_report(store: &Store, options: &AuditOptions) -> Result<AuditReport
         .collect();
     let exposures = exposures_of(store, selection, operators)?;
 
-    let total = stats::Tally::of(&records);
+    // First-pass yield counts each unit's first test ever, store-wide (stats module doc).
+    let first = stats::FirstTests::of_store(store)?;
+    let total = stats::Tally::of(&records, &first);
     let units = units::units_of(&records);
     let detailed = units::choose_detailed(&units, options.detail_limit);
     let n_detailed = detailed.iter().filter(|d| **d).count();
@@ -305,14 +307,14 @@ pub fn build_report(store: &Store, options: &AuditOptions) -> Result<AuditReport
             id: "by-day",
             title: "By day (UTC)",
             key_title: "day",
-            rows: with_blank(stats::tally_by(&records, stats::day_of)),
+            rows: with_blank(stats::tally_by(&records, &first, stats::day_of)),
             extra_title: None,
         },
         sections::Groups {
             id: "by-plan",
             title: "By plan revision",
             key_title: "plan",
-            rows: stats::tally_by(&records, |r| {
+            rows: stats::tally_by(&records, &first, |r| {
                 format!("{} r{}", r.record.plan_id, r.record.plan_revision)
             })
             .into_iter()
@@ -327,7 +329,9 @@ pub fn build_report(store: &Store, options: &AuditOptions) -> Result<AuditReport
             id: "by-station",
             title: "By station",
             key_title: "station",
-            rows: with_blank(stats::tally_by(&records, |r| r.record.station.clone())),
+            rows: with_blank(stats::tally_by(&records, &first, |r| {
+                r.record.station.clone()
+            })),
             extra_title: None,
         },
     ];

@@ -568,9 +568,11 @@ pub(crate) fn notes_section(out: &mut String, detail_note: &str) {
 <li>A <b>unit</b> is a serial number; its records are taken in chain order (by record id) within this report's selection. \
 <b>Records</b>: records selected. <b>Units</b>: distinct serials among them. <b>Pass / fail / retest</b>: units by the verdict of their \
 latest record (they add up to the units). <b>Yield</b> = units whose latest record passed ÷ units. <b>First-pass yield</b> = units whose \
-first record passed ÷ units. <b>Retested units</b>: units with more than one record; <b>retest rate</b> = retested units ÷ units. \
-A group (UTC day, plan revision, station) is counted as if the selection held only its records, so a unit tested on two days counts on both. \
-A time window can cut a unit's earlier records off, and then its first record here is not its first test.</li>\n\
+first test ever passed ÷ units whose first test ever is in the selection; a unit's first test ever is its first record in the whole store \
+(any station, plan and day), as the station loop counts it, so a unit first tested before a time window is not in the window's first-pass yield. \
+<b>Retested units</b>: units with more than one record; <b>retest rate</b> = retested units ÷ units. \
+A group (UTC day, plan revision, station) is counted as if the selection held only its records, so a unit tested on two days counts on both \
+(in the first-pass yield of the day of its first test only).</li>\n\
 <li>The Pareto counts, per check id, the records in which that check failed on at least one channel, most frequent first; the cumulative \
 share is the running sum over all such counts.</li>\n\
 <li>Scalar checks are the kinds other than response whose results carry a worst margin (dB, positive inside the limits). Each unit contributes \

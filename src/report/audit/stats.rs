@@ -1,18 +1,24 @@
 //! The figures of the audit report: counts and yields (overall and per group), the Pareto
 //! of failing checks, and the distribution of each scalar check with its Cpk.
 //!
-//! Definitions (also in the report's footnote and docs/architecture.md, "Audit report and
-//! export"); a **unit** is a serial number, its records taken in chain order (by id):
+//! Definitions (also in the report's footnote, docs/architecture.md, "Audit report and
+//! export", and docs/engineer/history.md); a **unit** is a serial number, its records taken
+//! in chain order (by id):
 //! - *records*: records in the selection; *units*: distinct serials among them;
 //! - *pass / fail / retest*: units by the verdict of their latest record (they add up to
 //!   the units);
 //! - *yield*: units passing on their latest record ÷ units;
-//! - *first-pass yield*: units whose first record passed ÷ units;
+//! - *first-pass yield*: units whose first test ever passed ÷ units whose first test ever
+//!   is in the selection. A unit's first test ever is its first record in the whole store
+//!   ([`FirstTests`], any station, plan and day), the same rule as the station loop's
+//!   ([`crate::bench::tally`]): a unit whose first record lies before a time window, or on a
+//!   station or plan the selection leaves out, is not in the first-pass yield of the window;
 //! - *retested units*: units with more than one record; *retest rate*: retested units ÷
 //!   units; *re-tests*: records − units.
 //!
 //! A group (a UTC day, a plan revision, a station) is counted as if the selection held only
-//! that group's records, so a unit tested on two days counts on both.
+//! that group's records, so a unit tested on two days counts on both; its first test ever
+//! lies in one group only, so it counts in the first-pass yield of that one.
 
 use std::collections::{BTreeMap, HashMap};
 
@@ -27,8 +33,31 @@ pub(crate) struct Tally {
     pub pass: u64,
     pub fail: u64,
     pub retest: u64,
+    /// Units whose first test ever is among the records.
+    pub first_tested: u64,
+    /// Of those, units whose first test ever passed.
     pub first_pass: u64,
     pub retested_units: u64,
+}
+
+/// Each serial's first record in the whole store (its first test ever), by record id.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub(crate) struct FirstTests(HashMap<String, i64>);
+
+impl FirstTests {
+    /// Read from the store.
+    pub fn of_store(store: &crate::store::Store) -> Result<FirstTests, crate::store::StoreError> {
+        store.first_record_ids().map(FirstTests)
+    }
+
+    /// True when `r` is its unit's first test ever. A serial the map does not know (a
+    /// record appended after the map was read) was not tested before it.
+    fn is_first(&self, r: &RecordView, first_in_set: bool) -> bool {
+        match self.0.get(&r.record.serial) {
+            Some(id) => *id == r.record.id,
+            None => first_in_set,
+        }
+    }
 }
 
 /// `num / den`, `None` when there is nothing to divide.
@@ -37,21 +66,25 @@ pub(crate) fn ratio(num: u64, den: u64) -> Option<f64> {
 }
 
 impl Tally {
-    /// Count `records`, given in chain order.
-    pub fn of<'a>(records: impl IntoIterator<Item = &'a RecordView>) -> Tally {
-        // serial → (first verdict, latest verdict, records)
-        let mut units: HashMap<&str, (Verdict, Verdict, u64)> = HashMap::new();
+    /// Count `records`, given in chain order; `first` names each unit's first test ever.
+    pub fn of<'a>(records: impl IntoIterator<Item = &'a RecordView>, first: &FirstTests) -> Tally {
+        // serial → (verdict of its first test ever when among the records, latest verdict,
+        // records)
+        let mut units: HashMap<&str, (Option<Verdict>, Verdict, u64)> = HashMap::new();
         let mut n = 0u64;
         for r in records {
             n += 1;
             let v = r.record.verdict;
+            let seen = units.contains_key(r.record.serial.as_str());
+            let first_ever = first.is_first(r, !seen).then_some(v);
             units
                 .entry(r.record.serial.as_str())
                 .and_modify(|u| {
+                    u.0 = u.0.or(first_ever);
                     u.1 = v;
                     u.2 += 1;
                 })
-                .or_insert((v, v, 1));
+                .or_insert((first_ever, v, 1));
         }
         let mut t = Tally {
             records: n,
@@ -64,7 +97,8 @@ impl Tally {
                 Verdict::Fail => t.fail += 1,
                 Verdict::Retest => t.retest += 1,
             }
-            t.first_pass += u64::from(*first == Verdict::Pass);
+            t.first_tested += u64::from(first.is_some());
+            t.first_pass += u64::from(*first == Some(Verdict::Pass));
             t.retested_units += u64::from(*count > 1);
         }
         t
@@ -75,9 +109,9 @@ impl Tally {
         ratio(self.pass, self.units)
     }
 
-    /// Units passing on their first record ÷ units.
+    /// Units whose first test ever passed ÷ units whose first test ever is counted here.
     pub fn first_pass_yield(&self) -> Option<f64> {
-        ratio(self.first_pass, self.units)
+        ratio(self.first_pass, self.first_tested)
     }
 
     /// Units with more than one record ÷ units.
@@ -89,6 +123,7 @@ impl Tally {
 /// Tallies per group key, groups in key order.
 pub(crate) fn tally_by(
     records: &[RecordView],
+    first: &FirstTests,
     key: impl Fn(&RecordView) -> String,
 ) -> Vec<(String, Tally)> {
     let mut groups: BTreeMap<String, Vec<&RecordView>> = BTreeMap::new();
@@ -97,7 +132,7 @@ pub(crate) fn tally_by(
     }
     groups
         .into_iter()
-        .map(|(k, rs)| (k, Tally::of(rs)))
+        .map(|(k, rs)| (k, Tally::of(rs, first)))
         .collect()
 }
 
