@@ -10,6 +10,7 @@
 
 pub mod archive;
 mod error;
+pub mod line;
 mod prepare;
 pub mod reanalyze;
 mod record;
@@ -19,7 +20,7 @@ pub use error::{BenchError, Cause, ErrorKind};
 pub use prepare::{load, load_coupler, load_station, Prepared};
 
 use crate::calibration::policy::{self, CalibrationSource};
-use crate::rig::simulated::{SimUnit, SimulatedRig, UnitKind};
+use crate::rig::simulated::{PhysicalPopulation, SimUnit, SimulatedRig, UnitKind};
 use crate::rig::Rig;
 use crate::safety::event::SafetyEvent;
 use crate::safety::listening_steps::{run_listening_steps, Heard, ListeningBench};
@@ -79,6 +80,10 @@ pub struct Bench {
     pub pace_realtime: bool,
     seed: u64,
     rig: RigKind,
+    /// The simulated population, built once per bench (simulated rig only; `None` for the
+    /// behavioural rig v1): its fixture's per-frequency tables are made at the first unit
+    /// and shared by every later one.
+    population: Option<PhysicalPopulation>,
     // Read only by the sound-card rig, which a build without the feature does not have.
     #[cfg_attr(not(feature = "soundcard"), allow(dead_code))]
     soundcard: crate::rig::SoundcardSpec,
@@ -97,6 +102,9 @@ pub struct SimChoice {
     pub label: String,
     /// Amplifier gain fault, dB (0 = as calibrated).
     pub amplifier_db: f64,
+    /// How many times the unit was reseated before this test (0: first seating); a
+    /// reseated unit meets fresh converter noise ([`SimulatedRig::with_reseat`]).
+    pub reseat: u32,
 }
 
 /// One unit tested, not yet recorded: what the store is to hold.
@@ -254,6 +262,10 @@ impl Bench {
             }
         };
         let seed = prep.plan.rig.seed();
+        let population = match rig {
+            RigKind::Simulated => simulated_population(&prep.plan, o.station, o.fixture)?,
+            RigKind::Soundcard => None,
+        };
         Ok(Bench {
             prep,
             inputs,
@@ -264,6 +276,7 @@ impl Bench {
             pace_realtime: false,
             seed,
             rig,
+            population,
             soundcard: o.soundcard,
             safety,
         })
@@ -304,7 +317,32 @@ impl Bench {
             defect_channel,
             label: unit.to_string(),
             amplifier_db: 0.0,
+            reseat: 0,
         })
+    }
+
+    /// The seed of the simulated population (the plan's `rig.seed` unless set).
+    pub fn population_seed(&self) -> u64 {
+        self.seed
+    }
+
+    /// Simulate another population (another draw of units and noise) than the plan's seed.
+    pub fn set_population_seed(&mut self, seed: u64) {
+        self.seed = seed;
+    }
+
+    /// The simulated population this bench tests (`None`: sound card, or the behavioural
+    /// rig v1 when no fixture model is known).
+    pub fn population(&self) -> Option<&PhysicalPopulation> {
+        self.population.as_ref()
+    }
+
+    /// Test another bench's population (a clone of it, sharing its fixture tables) in place
+    /// of this bench's own: benches of one line make the tables once.
+    pub fn share_population(&mut self, population: Option<PhysicalPopulation>) {
+        if population.is_some() {
+            self.population = population;
+        }
     }
 
     /// Expected time one unit's sweep plays, s (for a progress indicator).
@@ -335,20 +373,15 @@ impl Bench {
             .iter()
             .map(|m| (m.output, m.input))
             .collect();
-        let rig = match simulated_fixture(&self.prep.plan)? {
-            // The physical unit (rig v2) in the fixture the correction models, so the
-            // correction can be judged against the physics it assumes.
-            Some((coupler, tap)) => {
-                tracing::info!(fixture = %coupler.id, "simulated rig: physical earphone");
-                SimulatedRig::physical(routes, self.seed, unit, coupler, &tap)
-                    .map_err(|e| BenchError::BadInput(e.into()))?
-            }
+        let rig = match &self.population {
+            Some(pop) => pop.rig(routes, self.seed, unit),
             // No fixture model known: the behavioural unit (rig v1).
             None => SimulatedRig::new(routes, self.seed, unit),
         };
         Ok(Box::new(
             rig.with_drive_monitors(monitors)
-                .with_amplifier_gain_db(sim.amplifier_db),
+                .with_amplifier_gain_db(sim.amplifier_db)
+                .with_reseat(sim.reseat),
         ))
     }
 
@@ -561,6 +594,57 @@ impl Bench {
             crate::rig::SOUNDCARD_NOT_BUILT
         )))
     }
+}
+
+/// The simulated population of a bench, made once: the plan's own product
+/// ([`crate::plan::Plan::simulated_earphone`], else the demo earbud) in the fixture the
+/// correction models, so the correction can be judged against the physics it assumes; a
+/// plan that names `product.earphone` but corrects no channel is seated in the station's
+/// fixture (or `--fixture`). `None` (the behavioural rig v1) when no fixture is known and
+/// the plan names no earphone.
+fn simulated_population(
+    plan: &crate::plan::Plan,
+    station: Option<&Station>,
+    fixture: Option<&Path>,
+) -> Result<Option<PhysicalPopulation>, BenchError> {
+    let bad = |e: crate::rig::simulated::PhysicalRigError| BenchError::BadInput(e.into());
+    let seat = match simulated_fixture(plan)? {
+        Some(found) => Some(found),
+        None if plan.product_earphone.is_some() => match (fixture, station) {
+            (Some(f), _) => {
+                let m = load_coupler(f)?;
+                let tap = m.tap_names().first().map(|t| t.to_string());
+                Some((m.coupler(), tap.unwrap_or_default()))
+            }
+            (None, Some(Station {
+                fixture: Some(fx), ..
+            })) => {
+                let tap = fx
+                    .tap
+                    .clone()
+                    .or_else(|| fx.model.tap_names().first().map(|t| t.to_string()));
+                Some((fx.model.coupler(), tap.unwrap_or_default()))
+            }
+            _ => {
+                return Err(BenchError::bad_input(
+                    "--rig simulated: the plan names its earphone (product.earphone), which                      the simulated rig seats in a fixture: expected a corrected channel, a                      station fixture or --fixture, found none",
+                ))
+            }
+        },
+        None => None,
+    };
+    let Some((coupler, tap)) = seat else {
+        return Ok(None);
+    };
+    tracing::info!(fixture = %coupler.id, "simulated rig: physical earphone");
+    let pop = match plan.simulated_earphone() {
+        Some(e) => {
+            tracing::info!(earphone = e.named_by, "simulated rig: the plan's own product");
+            PhysicalPopulation::of_product(coupler, &tap, e.model, e.spread).map_err(bad)?
+        }
+        None => PhysicalPopulation::new(coupler, &tap).map_err(bad)?,
+    };
+    Ok(Some(pop))
 }
 
 /// The fixture the simulated rig puts the unit in: the one the plan's correction names

@@ -398,6 +398,7 @@ impl Validator {
             None => Some(None),
             Some(p) => self.product(p).map(Some),
         };
+        let product_earphone = raw.product.as_ref().map_or(Some(None), |p| self.earphone(p));
 
         corrections?;
         let mut plan = Plan {
@@ -415,6 +416,7 @@ impl Validator {
             nominal_impedance_ohm: nominal_impedance_ohm?,
             level_unit: level_unit?,
             product: product?,
+            product_earphone: product_earphone?,
         };
         plan.sha256 = super::hash::plan_sha256(&plan);
         Some(plan)
