@@ -639,7 +639,10 @@ fn simulated_population(
     tracing::info!(fixture = %coupler.id, "simulated rig: physical earphone");
     let pop = match plan.simulated_earphone() {
         Some(e) => {
-            tracing::info!(earphone = e.named_by, "simulated rig: the plan's own product");
+            tracing::info!(
+                earphone = e.named_by,
+                "simulated rig: the plan's own product"
+            );
             PhysicalPopulation::of_product(coupler, &tap, e.model, e.spread).map_err(bad)?
         }
         None => PhysicalPopulation::new(coupler, &tap).map_err(bad)?,

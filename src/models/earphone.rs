@@ -167,7 +167,9 @@ pub fn load_earphone_file_str(text: &str, path: &Path) -> Result<EarphoneFile, E
                 None => Some(None),
                 Some(n) => spread::read_spread(&mut v, n, model.as_ref()).map(Some),
             };
-            model.zip(spread).map(|(model, spread)| EarphoneFile { model, spread })
+            model
+                .zip(spread)
+                .map(|(model, spread)| EarphoneFile { model, spread })
         }
         _ => None,
     };

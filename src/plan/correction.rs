@@ -290,7 +290,11 @@ impl Validator {
     }
 
     /// Load a virtual-earphone file named at `v` (relative to the plan), with its spread.
-    pub(super) fn earphone_file(&mut self, v: &Spanned<String>, what: &str) -> Option<EarphoneFile> {
+    pub(super) fn earphone_file(
+        &mut self,
+        v: &Spanned<String>,
+        what: &str,
+    ) -> Option<EarphoneFile> {
         let file = self.dir.join(v.as_str());
         let text = match read_data_file(&file, "earphone") {
             Ok(t) => t,

@@ -398,7 +398,10 @@ impl Validator {
             None => Some(None),
             Some(p) => self.product(p).map(Some),
         };
-        let product_earphone = raw.product.as_ref().map_or(Some(None), |p| self.earphone(p));
+        let product_earphone = raw
+            .product
+            .as_ref()
+            .map_or(Some(None), |p| self.earphone(p));
 
         corrections?;
         let mut plan = Plan {

@@ -71,3 +71,4 @@ mod store_tamper_matrix;
 mod store_unit_append;
 mod store_verify;
 mod two_stations;
+mod virtual_line;

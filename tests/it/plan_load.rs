@@ -63,6 +63,7 @@ fn loopback_plan_is_the_station_self_test() {
         nominal_impedance_ohm: None,
         level_unit: tragus::plan::LevelUnit::DbFsPerFs,
         product: None,
+        product_earphone: None,
         checks: vec![
             check(
                 "flat",
@@ -134,6 +135,7 @@ fn reference_plan_loads_every_kind() {
         nominal_impedance_ohm: None,
         level_unit: tragus::plan::LevelUnit::DbFsPerFs,
         product: None,
+        product_earphone: None,
         checks: vec![
             check(
                 "fr",

@@ -160,13 +160,19 @@ fn test_one(bench: &mut Bench, u: &Planned, keep: bool) -> Result<UnitRun, Bench
     let plan = &bench.prep.plan;
     let line = UnitLine {
         serial: u.serial.clone(),
-        defect: u.defect.map_or(NO_DEFECT.to_string(), |(d, _)| d.to_string()),
+        defect: u
+            .defect
+            .map_or(NO_DEFECT.to_string(), |(d, _)| d.to_string()),
         defect_channel: u
             .defect
             .and_then(|(_, c)| plan.channels.get(c).map(|ch| ch.name.clone())),
         first_verdict,
         final_verdict: r.verdict,
-        tests: if first_verdict == Verdict::Retest { 2 } else { 1 },
+        tests: if first_verdict == Verdict::Retest {
+            2
+        } else {
+            1
+        },
         failed_checks: failed,
         retest_reasons: r.retest_reasons.clone(),
         closest,

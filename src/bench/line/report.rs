@@ -315,9 +315,17 @@ impl LineReport {
                 r.defect, r.units, r.pass, r.fail, r.retest
             );
         }
-        let _ = writeln!(o, "\nescapes (defect units that passed): {}", self.escapes.len());
+        let _ = writeln!(
+            o,
+            "\nescapes (defect units that passed): {}",
+            self.escapes.len()
+        );
         for e in &self.escapes {
-            let _ = writeln!(o, "  {} {} on {}: {}", e.serial, e.defect, e.channel, e.reason);
+            let _ = writeln!(
+                o,
+                "  {} {} on {}: {}",
+                e.serial, e.defect, e.channel, e.reason
+            );
         }
         o
     }

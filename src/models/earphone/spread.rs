@@ -70,16 +70,46 @@ struct Key {
 }
 
 const KEYS: [Key; 10] = [
-    Key { unit: "Ω", per_si: 1.0 },
-    Key { unit: "µH", per_si: 1e6 },
-    Key { unit: "T·m", per_si: 1.0 },
-    Key { unit: "mg", per_si: 1e6 },
-    Key { unit: "mm/N", per_si: 1e3 },
-    Key { unit: "N·s/m", per_si: 1.0 },
-    Key { unit: "mm²", per_si: 1e6 },
-    Key { unit: "mm³", per_si: 1e9 },
-    Key { unit: "Pa·s/m³", per_si: 1.0 },
-    Key { unit: "kg/m⁴", per_si: 1.0 },
+    Key {
+        unit: "Ω",
+        per_si: 1.0,
+    },
+    Key {
+        unit: "µH",
+        per_si: 1e6,
+    },
+    Key {
+        unit: "T·m",
+        per_si: 1.0,
+    },
+    Key {
+        unit: "mg",
+        per_si: 1e6,
+    },
+    Key {
+        unit: "mm/N",
+        per_si: 1e3,
+    },
+    Key {
+        unit: "N·s/m",
+        per_si: 1.0,
+    },
+    Key {
+        unit: "mm²",
+        per_si: 1e6,
+    },
+    Key {
+        unit: "mm³",
+        per_si: 1e9,
+    },
+    Key {
+        unit: "Pa·s/m³",
+        per_si: 1.0,
+    },
+    Key {
+        unit: "kg/m⁴",
+        per_si: 1.0,
+    },
 ];
 
 /// The keys of `spread:` that vary a model parameter, in the order units draw them.

@@ -51,6 +51,7 @@ pub fn plan(channels: &[&str], checks: Vec<CheckSpec>) -> Plan {
         nominal_impedance_ohm: None,
         level_unit: tragus::plan::LevelUnit::DbFsPerFs,
         product: None,
+        product_earphone: None,
     }
 }
 
