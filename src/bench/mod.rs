@@ -11,6 +11,7 @@
 pub mod archive;
 mod error;
 pub mod history;
+pub mod line;
 mod prepare;
 pub mod reanalyze;
 mod record;
@@ -20,7 +21,7 @@ pub use error::{BenchError, Cause, ErrorKind};
 pub use prepare::{load, load_coupler, load_station, Prepared};
 
 use crate::calibration::policy::{self, CalibrationSource};
-use crate::rig::simulated::{SimUnit, SimulatedRig, UnitKind};
+use crate::rig::simulated::{PhysicalPopulation, SimUnit, SimulatedRig, UnitKind};
 use crate::rig::Rig;
 use crate::safety::event::SafetyEvent;
 use crate::safety::listening_steps::{run_listening_steps, Heard, ListeningBench};
@@ -80,6 +81,10 @@ pub struct Bench {
     pub pace_realtime: bool,
     seed: u64,
     rig: RigKind,
+    /// The simulated population, built once per bench (simulated rig only; `None` for the
+    /// behavioural rig v1): its fixture's per-frequency tables are made at the first unit
+    /// and shared by every later one.
+    population: Option<PhysicalPopulation>,
     // Read only by the sound-card rig, which a build without the feature does not have.
     #[cfg_attr(not(feature = "soundcard"), allow(dead_code))]
     soundcard: crate::rig::SoundcardSpec,
@@ -100,6 +105,9 @@ pub struct SimChoice {
     pub label: String,
     /// Amplifier gain fault, dB (0 = as calibrated).
     pub amplifier_db: f64,
+    /// How many times the unit was reseated before this test (0: first seating); a
+    /// reseated unit meets fresh converter noise ([`SimulatedRig::with_reseat`]).
+    pub reseat: u32,
 }
 
 /// One unit tested, not yet recorded: what the store is to hold.
@@ -259,6 +267,10 @@ impl Bench {
         let seed = prep.plan.rig.seed();
         let retest_rule =
             history::RetestRule::of(prep.plan.max_retests, o.station.and_then(|s| s.max_retests));
+        let population = match rig {
+            RigKind::Simulated => prepare::simulated_population(&prep.plan, o.station, o.fixture)?,
+            RigKind::Soundcard => None,
+        };
         Ok(Bench {
             prep,
             inputs,
@@ -269,6 +281,7 @@ impl Bench {
             pace_realtime: false,
             seed,
             rig,
+            population,
             soundcard: o.soundcard,
             safety,
             retest_rule,
@@ -317,7 +330,32 @@ impl Bench {
             defect_channel,
             label: unit.to_string(),
             amplifier_db: 0.0,
+            reseat: 0,
         })
+    }
+
+    /// The seed of the simulated population (the plan's `rig.seed` unless set).
+    pub fn population_seed(&self) -> u64 {
+        self.seed
+    }
+
+    /// Simulate another population (another draw of units and noise) than the plan's seed.
+    pub fn set_population_seed(&mut self, seed: u64) {
+        self.seed = seed;
+    }
+
+    /// The simulated population this bench tests (`None`: sound card, or the behavioural
+    /// rig v1 when no fixture model is known).
+    pub fn population(&self) -> Option<&PhysicalPopulation> {
+        self.population.as_ref()
+    }
+
+    /// Test another bench's population (a clone of it, sharing its fixture tables) in place
+    /// of this bench's own: benches of one line make the tables once.
+    pub fn share_population(&mut self, population: Option<PhysicalPopulation>) {
+        if population.is_some() {
+            self.population = population;
+        }
     }
 
     /// Expected time one unit's sweep plays, s (for a progress indicator).
@@ -348,20 +386,15 @@ impl Bench {
             .iter()
             .map(|m| (m.output, m.input))
             .collect();
-        let rig = match simulated_fixture(&self.prep.plan)? {
-            // The physical unit (rig v2) in the fixture the correction models, so the
-            // correction can be judged against the physics it assumes.
-            Some((coupler, tap)) => {
-                tracing::info!(fixture = %coupler.id, "simulated rig: physical earphone");
-                SimulatedRig::physical(routes, self.seed, unit, coupler, &tap)
-                    .map_err(|e| BenchError::BadInput(e.into()))?
-            }
+        let rig = match &self.population {
+            Some(pop) => pop.rig(routes, self.seed, unit),
             // No fixture model known: the behavioural unit (rig v1).
             None => SimulatedRig::new(routes, self.seed, unit),
         };
         Ok(Box::new(
             rig.with_drive_monitors(monitors)
-                .with_amplifier_gain_db(sim.amplifier_db),
+                .with_amplifier_gain_db(sim.amplifier_db)
+                .with_reseat(sim.reseat),
         ))
     }
 
@@ -578,28 +611,4 @@ impl Bench {
             crate::rig::SOUNDCARD_NOT_BUILT
         )))
     }
-}
-
-/// The fixture the simulated rig puts the unit in: the one the plan's correction names
-/// (after `--fixture` or the station's fixture), shared by every corrected channel since a
-/// station has one fixture. `None` when no channel is corrected.
-fn simulated_fixture(
-    plan: &crate::plan::Plan,
-) -> Result<Option<(crate::acoustics::network::Coupler, String)>, BenchError> {
-    let mut found: Option<&crate::plan::CorrectionSpec> = None;
-    for c in plan.channels.iter().filter_map(|c| c.correction.as_ref()) {
-        match found {
-            None => found = Some(c),
-            Some(f) if f.fixture.sha256 == c.fixture.sha256 && f.fixture_tap == c.fixture_tap => {}
-            Some(f) => {
-                return Err(BenchError::bad_input(format!(
-                    "--rig simulated: expected one fixture model and tap for every corrected \
-                     channel (the simulated station has one fixture), found `{}` tap `{}` and \
-                     `{}` tap `{}`; give --fixture to use one",
-                    f.fixture.id, f.fixture_tap, c.fixture.id, c.fixture_tap
-                )))
-            }
-        }
-    }
-    Ok(found.map(|c| (c.fixture.coupler(), c.fixture_tap.clone())))
 }

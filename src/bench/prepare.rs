@@ -7,6 +7,7 @@ use crate::dsp::sweep::Stimulus;
 use crate::models::coupler::{load_model, CouplerModel, ModelError};
 use crate::plan::{load_plan, Plan, PlanError};
 use crate::result::{now_utc_rfc3339, CalibrationInfo, PlanInfo, ToolInfo, UnitResult};
+use crate::rig::simulated::PhysicalPopulation;
 use crate::rig::Capture;
 use crate::station::Station;
 use std::path::Path;
@@ -243,4 +244,82 @@ pub(crate) fn decide_verdict(
         measured.iter().map(|c| c.verdict),
         listening.iter().map(|c| c.verdict),
     )
+}
+
+/// The simulated population of a bench, made once: the plan's own product
+/// ([`crate::plan::Plan::simulated_earphone`], else the demo earbud) in the fixture the
+/// correction models, so the correction can be judged against the physics it assumes; a
+/// plan that names `product.earphone` but corrects no channel is seated in the station's
+/// fixture (or `--fixture`). `None` (the behavioural rig v1) when no fixture is known and
+/// the plan names no earphone.
+pub(super) fn simulated_population(
+    plan: &crate::plan::Plan,
+    station: Option<&Station>,
+    fixture: Option<&Path>,
+) -> Result<Option<PhysicalPopulation>, BenchError> {
+    let bad = |e: crate::rig::simulated::PhysicalRigError| BenchError::BadInput(e.into());
+    let seat = match simulated_fixture(plan)? {
+        Some(found) => Some(found),
+        None if plan.product_earphone.is_some() => match (fixture, station) {
+            (Some(f), _) => {
+                let m = load_coupler(f)?;
+                let tap = m.tap_names().first().map(|t| t.to_string());
+                Some((m.coupler(), tap.unwrap_or_default()))
+            }
+            (None, Some(Station {
+                fixture: Some(fx), ..
+            })) => {
+                let tap = fx
+                    .tap
+                    .clone()
+                    .or_else(|| fx.model.tap_names().first().map(|t| t.to_string()));
+                Some((fx.model.coupler(), tap.unwrap_or_default()))
+            }
+            _ => {
+                return Err(BenchError::bad_input(
+                    "--rig simulated: the plan names its earphone (product.earphone), which                      the simulated rig seats in a fixture: expected a corrected channel, a                      station fixture or --fixture, found none",
+                ))
+            }
+        },
+        None => None,
+    };
+    let Some((coupler, tap)) = seat else {
+        return Ok(None);
+    };
+    tracing::info!(fixture = %coupler.id, "simulated rig: physical earphone");
+    let pop = match plan.simulated_earphone() {
+        Some(e) => {
+            tracing::info!(
+                earphone = e.named_by,
+                "simulated rig: the plan's own product"
+            );
+            PhysicalPopulation::of_product(coupler, &tap, e.model, e.spread).map_err(bad)?
+        }
+        None => PhysicalPopulation::new(coupler, &tap).map_err(bad)?,
+    };
+    Ok(Some(pop))
+}
+
+/// The fixture the simulated rig puts the unit in: the one the plan's correction names
+/// (after `--fixture` or the station's fixture), shared by every corrected channel since a
+/// station has one fixture. `None` when no channel is corrected.
+fn simulated_fixture(
+    plan: &crate::plan::Plan,
+) -> Result<Option<(crate::acoustics::network::Coupler, String)>, BenchError> {
+    let mut found: Option<&crate::plan::CorrectionSpec> = None;
+    for c in plan.channels.iter().filter_map(|c| c.correction.as_ref()) {
+        match found {
+            None => found = Some(c),
+            Some(f) if f.fixture.sha256 == c.fixture.sha256 && f.fixture_tap == c.fixture_tap => {}
+            Some(f) => {
+                return Err(BenchError::bad_input(format!(
+                    "--rig simulated: expected one fixture model and tap for every corrected \
+                     channel (the simulated station has one fixture), found `{}` tap `{}` and \
+                     `{}` tap `{}`; give --fixture to use one",
+                    f.fixture.id, f.fixture_tap, c.fixture.id, c.fixture_tap
+                )))
+            }
+        }
+    }
+    Ok(found.map(|c| (c.fixture.coupler(), c.fixture_tap.clone())))
 }

@@ -43,6 +43,7 @@ mod records;
 mod report;
 mod run;
 mod show;
+mod simulate_line;
 mod soundcard_args;
 mod stimulus;
 mod store_cmd;
@@ -134,6 +135,9 @@ pub enum Command {
     Report(report::Args),
     /// A store's records as CSV (one row per record and check) or JSON Lines.
     Export(export::Args),
+    /// A virtual line: N simulated units of the plan's product with a defect mix, tested
+    /// through the engine; predicted yield, Pareto of failing checks, defect × verdict.
+    SimulateLine(simulate_line::Args),
 }
 
 /// Where a `--json` document goes.
@@ -390,6 +394,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Keys(a) => keys::run(a),
         Command::Report(a) => report::run(a),
         Command::Export(a) => export::run(a),
+        Command::SimulateLine(a) => simulate_line::run(a, out),
     };
     let code = match result {
         Ok(code) => code,

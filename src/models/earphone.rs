@@ -26,6 +26,7 @@
 //! front_volume_mm3: 80            # > 0
 //! outlet: {length_mm: 3, radius_mm: 1, loss: zwikker_kosten}   # loss optional, as for tubes
 //! damper: {resistance_pa_s_m3: 1.5e7, inertance_kg_m4: 200}    # both ≥ 0
+//! spread: {bl_t_m: 3%, mms_mg: 0.36}   # optional manufacturing spread, σ ([`spread`])
 //! ```
 //!
 //! Conversions: µH, mg and mm² are divided by 1e6, mm/N and the outlet's mm by 1e3, mm³ by
@@ -48,6 +49,16 @@
 //!
 //! with `ITEM` the coupler form of a tube or slit (`{"tube":{"length_m":R,"loss":S,
 //! "radius_m":R}}`, `{"slit":{"gap_m":R,"length_m":R,"width_m":R}}`).
+//!
+//! # Manufacturing spread (`spread:`, optional; [`spread`])
+//!
+//! A file may declare how its product varies from unit to unit, per parameter (a relative
+//! σ such as `3%`, or an absolute one in the unit of the key of the same name), for the
+//! simulated rig's population ([`EarphoneFile::spread`]). The spread is deliberately not
+//! part of the model nor of the canonical form above: the correction uses the design, and
+//! declaring or changing a spread changes neither a correction's identity nor a plan's hash
+//! (it changes what a simulation draws, never how a capture is judged). Without the
+//! section, the simulated rig draws the demo population's own spread.
 
 use super::coupler::{
     item, loss, ChainCtx, DEFAULT_STATIC_PRESSURE_PA, DEFAULT_TEMPERATURE_C,
@@ -67,7 +78,19 @@ use std::path::Path;
 
 pub use crate::acoustics::canonical::EARPHONE_CANONICAL_FORM as CANONICAL_FORM;
 
-const TOP_KEYS: [&str; 16] = [
+pub mod spread;
+pub use spread::{EarphoneSpread, Sigma};
+
+/// An earphone file as loaded: the model (the design) and its declared spread.
+#[derive(Debug, Clone, PartialEq)]
+pub struct EarphoneFile {
+    /// The design, as the correction and the plan hash see it.
+    pub model: EarphoneModel,
+    /// The `spread:` section, when the file has one.
+    pub spread: Option<EarphoneSpread>,
+}
+
+const TOP_KEYS: [&str; 17] = [
     "earphone",
     "description",
     "temperature_c",
@@ -84,6 +107,7 @@ const TOP_KEYS: [&str; 16] = [
     "front_volume_mm3",
     "outlet",
     "damper",
+    "spread",
 ];
 
 /// Why an earphone file could not be loaded.
@@ -102,9 +126,15 @@ pub enum EarphoneFileError {
     Invalid(Vec<Problem>),
 }
 
-/// Load and validate an earphone parameter file (read by [`crate::config::load_file`]).
+/// Load and validate an earphone parameter file (read by [`crate::config::load_file`]):
+/// the model only (a `spread:` section is validated, then left out).
 pub fn load_earphone(path: &Path) -> Result<EarphoneModel, EarphoneFileError> {
-    crate::config::load_file(path, load_earphone_str)
+    load_earphone_file(path).map(|f| f.model)
+}
+
+/// Load and validate an earphone parameter file with its `spread:` section.
+pub fn load_earphone_file(path: &Path) -> Result<EarphoneFile, EarphoneFileError> {
+    crate::config::load_file(path, load_earphone_file_str)
 }
 
 impl FileError for EarphoneFileError {
@@ -117,21 +147,35 @@ impl FileError for EarphoneFileError {
     }
 }
 
-/// Load an earphone file from text; `path` labels the problems.
+/// Load an earphone file from text; `path` labels the problems. The model only.
 pub fn load_earphone_str(text: &str, path: &Path) -> Result<EarphoneModel, EarphoneFileError> {
+    load_earphone_file_str(text, path).map(|f| f.model)
+}
+
+/// Load an earphone file from text with its `spread:` section; `path` labels the problems.
+pub fn load_earphone_file_str(text: &str, path: &Path) -> Result<EarphoneFile, EarphoneFileError> {
     let label = path.display().to_string();
     let (root, mut problems) = parse_tree(text, &label, "earphone file");
     let mut v = NodeReader::new(
         label.clone(),
         path.parent().unwrap_or(Path::new(".")).to_path_buf(),
     );
-    let model = match &root {
-        Some(Node::Mapping(m)) => earphone(&mut v, m),
+    let file = match &root {
+        Some(Node::Mapping(m)) => {
+            let model = earphone(&mut v, m);
+            let spread = match m.get_node("spread") {
+                None => Some(None),
+                Some(n) => spread::read_spread(&mut v, n, model.as_ref()).map(Some),
+            };
+            model
+                .zip(spread)
+                .map(|(model, spread)| EarphoneFile { model, spread })
+        }
         _ => None,
     };
     problems.append(&mut v.problems);
-    match model {
-        Some(m) if problems.is_empty() => Ok(m),
+    match file {
+        Some(f) if problems.is_empty() => Ok(f),
         _ => {
             if problems.is_empty() {
                 problems.push(Problem {

@@ -11,7 +11,9 @@ use crate::config::{
     found_scalar, is_channel_name, label, read_data_file, suggest, Location, Pos, Problem,
 };
 use crate::models::coupler::{load_model_str, CouplerModel, ModelError};
-use crate::models::earphone::{load_earphone_str, EarphoneFileError};
+use crate::models::earphone::{
+    load_earphone_file_str, EarphoneFile, EarphoneFileError, EarphoneSpread,
+};
 use marked_yaml::Spanned;
 use serde::de::Visitor;
 use serde::{Deserialize, Deserializer};
@@ -156,12 +158,14 @@ impl Validator {
         let source = self
             .required(sec, &c.source, ctx, "source")
             .and_then(|v| self.source(v, &label(ctx, "source"), needed_hz));
+        let (source, source_spread) = source?;
         Some(CorrectionSpec {
             fixture: fixture?,
             fixture_tap: fixture_tap?,
             reference: reference?,
             reference_tap: reference_tap?,
-            source: source?,
+            source,
+            source_spread,
         })
     }
 
@@ -224,17 +228,20 @@ impl Validator {
         None
     }
 
-    /// The correction's source: a name, or a mapping naming an earphone or Thévenin file.
+    /// The correction's source: a name, or a mapping naming an earphone or Thévenin file;
+    /// with an earphone file's `spread:` (for the simulated rig).
     fn source(
         &mut self,
         v: &Spanned<RawSource>,
         what: &str,
         needed_hz: Option<(f64, f64)>,
-    ) -> Option<Source> {
+    ) -> Option<(Source, Option<EarphoneSpread>)> {
         const KINDS: [&str; 3] = ["volume_velocity", "virtual_earphone", "thevenin_csv"];
         let pos = Pos::of_value(v);
         match &**v {
-            RawSource::Name(name) if name == "volume_velocity" => Some(Source::VolumeVelocity),
+            RawSource::Name(name) if name == "volume_velocity" => {
+                Some((Source::VolumeVelocity, None))
+            }
             RawSource::Name(name) if KINDS.contains(&name.as_str()) => {
                 self.report(
                     pos,
@@ -258,10 +265,12 @@ impl Validator {
                 None
             }
             RawSource::Map(m) => match (&m.virtual_earphone, &m.thevenin_csv) {
-                (Some(file), None) => self.earphone_file(file, &format!("{what}.virtual_earphone")),
-                (None, Some(file)) => {
-                    self.thevenin_file(file, &format!("{what}.thevenin_csv"), needed_hz)
-                }
+                (Some(file), None) => self
+                    .earphone_file(file, &format!("{what}.virtual_earphone"))
+                    .map(|f| (Source::VirtualEarphone(f.model), f.spread)),
+                (None, Some(file)) => self
+                    .thevenin_file(file, &format!("{what}.thevenin_csv"), needed_hz)
+                    .map(|s| (s, None)),
                 (a, b) => {
                     let found = if a.is_some() && b.is_some() {
                         "both"
@@ -280,8 +289,12 @@ impl Validator {
         }
     }
 
-    /// Load a virtual-earphone file named at `v` (relative to the plan).
-    fn earphone_file(&mut self, v: &Spanned<String>, what: &str) -> Option<Source> {
+    /// Load a virtual-earphone file named at `v` (relative to the plan), with its spread.
+    pub(super) fn earphone_file(
+        &mut self,
+        v: &Spanned<String>,
+        what: &str,
+    ) -> Option<EarphoneFile> {
         let file = self.dir.join(v.as_str());
         let text = match read_data_file(&file, "earphone") {
             Ok(t) => t,
@@ -290,8 +303,8 @@ impl Validator {
                 return None;
             }
         };
-        match load_earphone_str(&text, &file) {
-            Ok(m) => Some(Source::VirtualEarphone(m)),
+        match load_earphone_file_str(&text, &file) {
+            Ok(f) => Some(f),
             Err(EarphoneFileError::Invalid(problems)) => {
                 self.file_problems(problems, what);
                 None

@@ -47,7 +47,9 @@
 //! key. The top-level `"product"` is present only when the plan declares one:
 //! `{"response_peak_db":R,"sensitivity_db":R,"sensitivity_unit":S,"tolerance_db":R}` (the
 //! values as written, not converted). The top-level `"max_retests":I` is present only when
-//! the plan declares it.
+//! the plan declares it. The product's earphone file (`product.earphone`) and
+//! an earphone file's `spread:` are not part of the form: they decide what the simulated rig
+//! simulates, never how a capture is judged.
 //!
 //! A channel's `"correction"` key is present only when the channel is corrected (the
 //! plan-wide `correction:` applied, or its own; absent for `correction: none`), so that a
@@ -206,6 +208,8 @@ fn to_canonical(plan: &Plan) -> C {
         level_unit,
         product,
         max_retests,
+        // What the simulated rig simulates, not how a capture is judged: not in the form.
+        product_earphone: _,
     } = plan;
     let st = stimulus;
     let stimulus = obj([

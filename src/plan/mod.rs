@@ -83,6 +83,21 @@ pub struct Plan {
     /// How many times a unit may be retested under this plan (`max_retests:`); `None` when
     /// the plan leaves it to the station or the default (docs/engineer/history.md).
     pub max_retests: Option<u32>,
+    /// The product's earphone file (`product: {earphone: FILE}`): the unit the simulated rig
+    /// simulates. Not part of the plan hash: it changes what a simulation produces, never how
+    /// a capture is judged (see [`Plan::simulated_earphone`]).
+    pub product_earphone: Option<crate::models::earphone::EarphoneFile>,
+}
+
+/// The earphone the simulated rig simulates for a plan ([`Plan::simulated_earphone`]).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct SimulatedEarphone<'a> {
+    /// The design (nominal unit).
+    pub model: &'a crate::acoustics::source::EarphoneModel,
+    /// Its declared manufacturing spread (`None`: the demo spread).
+    pub spread: Option<&'a crate::models::earphone::EarphoneSpread>,
+    /// Which plan key named it (`product.earphone` or `correction.source.virtual_earphone`).
+    pub named_by: &'static str,
 }
 
 /// The product's declared acoustic output (`product:`), in the reference coupler.
@@ -99,6 +114,34 @@ pub struct ProductSpec {
     /// The sensitivity in dB SPL/V (converted with the plan's `nominal_impedance_ohm` when
     /// declared per mW: `L(1 V) = L(1 mW) − 10·lg(R / 1000 Ω)`).
     pub sensitivity_db_spl_per_v: f64,
+}
+
+impl Plan {
+    /// The plan's own product as the simulated rig simulates it: the file of
+    /// `product: {earphone: FILE}` when the plan names one, else the virtual earphone of the
+    /// first channel corrected with one (`correction: {source: {virtual_earphone: FILE}}`,
+    /// the product's design by the correction's own meaning); `None` when neither (the
+    /// simulated rig then uses its demo earbud).
+    pub fn simulated_earphone(&self) -> Option<SimulatedEarphone<'_>> {
+        if let Some(f) = &self.product_earphone {
+            return Some(SimulatedEarphone {
+                model: &f.model,
+                spread: f.spread.as_ref(),
+                named_by: "product.earphone",
+            });
+        }
+        self.channels
+            .iter()
+            .filter_map(|c| c.correction.as_ref())
+            .find_map(|c| match &c.source {
+                crate::acoustics::source::Source::VirtualEarphone(m) => Some(SimulatedEarphone {
+                    model: m,
+                    spread: c.source_spread.as_ref(),
+                    named_by: "correction.source.virtual_earphone",
+                }),
+                _ => None,
+            })
+    }
 }
 
 impl ProductSpec {
@@ -232,6 +275,9 @@ pub struct CorrectionSpec {
     pub reference_tap: String,
     /// The earphone as a source (volume velocity, Thévenin table, virtual earphone).
     pub source: Source,
+    /// The `spread:` of a virtual earphone source's file: not part of the correction (nor of
+    /// the plan hash); the simulated rig draws its units from it.
+    pub source_spread: Option<crate::models::earphone::EarphoneSpread>,
 }
 
 /// Which rig runs the plan by default.

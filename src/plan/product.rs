@@ -1,11 +1,14 @@
 //! The `product:` section: what the product's specification declares (sensitivity,
-//! tolerance, response peak), which the hearing-safety checks bound the level with. Its
-//! schema ([`RawProduct`]) and validation.
+//! tolerance, response peak), which the hearing-safety checks bound the level with, and
+//! optionally the product's earphone file (`earphone: FILE`, relative to the plan), the
+//! unit the simulated rig simulates ([`super::Plan::simulated_earphone`]). Its schema
+//! ([`RawProduct`]) and validation.
 
 use super::raw::Section;
 use super::validate::Validator;
 use super::{ProductSpec, SensitivityUnit};
 use crate::config::{found_scalar, Pos};
+use crate::models::earphone::EarphoneFile;
 use marked_yaml::Spanned;
 use serde::Deserialize;
 
@@ -21,9 +24,20 @@ pub struct RawProduct {
     pub tolerance_db: Option<Spanned<f64>>,
     /// Highest response above the sensitivity anywhere in the sweep band, dB.
     pub response_peak_db: Option<Spanned<f64>>,
+    /// The product's earphone file (a virtual-earphone file, optionally with `spread:`).
+    pub earphone: Option<Spanned<String>>,
 }
 
 impl Validator {
+    /// `product.earphone`: the earphone file loaded (problems in it at their own positions,
+    /// prefixed with the key). `Some(None)` when not given, `None` when it could not be read.
+    pub(super) fn earphone(&mut self, sec: &Section<RawProduct>) -> Option<Option<EarphoneFile>> {
+        match &sec.value.earphone {
+            None => Some(None),
+            Some(file) => self.earphone_file(file, "product.earphone").map(Some),
+        }
+    }
+
     /// `product:`: the declared sensitivity (per V, or per mW with the plan's nominal
     /// impedance), its tolerance and the response peak above it.
     pub(super) fn product(&mut self, sec: &Section<RawProduct>) -> Option<ProductSpec> {

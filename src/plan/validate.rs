@@ -445,6 +445,10 @@ impl Validator {
             None => Some(None),
             Some(p) => self.product(p).map(Some),
         };
+        let product_earphone = raw
+            .product
+            .as_ref()
+            .map_or(Some(None), |p| self.earphone(p));
 
         corrections?;
         let mut plan = Plan {
@@ -463,6 +467,7 @@ impl Validator {
             level_unit: level_unit?,
             product: product?,
             max_retests: max_retests?,
+            product_earphone: product_earphone?,
         };
         plan.sha256 = super::hash::plan_sha256(&plan);
         Some(plan)

@@ -73,3 +73,4 @@ mod store_unit_append;
 mod store_verify;
 mod two_stations;
 mod unit_history;
+mod virtual_line;

@@ -64,6 +64,7 @@ fn loopback_plan_is_the_station_self_test() {
         level_unit: tragus::plan::LevelUnit::DbFsPerFs,
         product: None,
         max_retests: None,
+        product_earphone: None,
         checks: vec![
             check(
                 "flat",
@@ -136,6 +137,7 @@ fn reference_plan_loads_every_kind() {
         level_unit: tragus::plan::LevelUnit::DbFsPerFs,
         product: None,
         max_retests: None,
+        product_earphone: None,
         checks: vec![
             check(
                 "fr",

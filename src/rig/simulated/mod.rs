@@ -30,7 +30,10 @@ pub use physical::{
     Fixture, PhysicalEarphone, PhysicalParams, PhysicalRigError, Simulation, DRIVE_V_PER_FS,
     MIC_FS_PER_PA, NOMINAL_NONLINEARITY,
 };
-pub use population::{physical_unit_params, PhysicalPopulation, PhysicalSpread, PHYSICAL_SPREAD};
+pub use population::{
+    declared_unit_params, physical_unit_params, PhysicalPopulation, PhysicalSpread, UnitSpread,
+    PHYSICAL_SPREAD,
+};
 
 use super::{Capture, Guard, Rig, RigError};
 use crate::dsp::sweep::Stimulus;
@@ -389,6 +392,16 @@ impl SimulatedRig {
     /// `gain_db` (a knob turned, or an intermittent fault, while a plan runs).
     pub fn with_amplifier_change(mut self, after_samples: u64, gain_db: f64) -> Self {
         self.amplifier_change = Some((after_samples, 10f64.powf(gain_db / 20.0)));
+        self
+    }
+
+    /// The unit reseated `reseat` times before this test (0: its first seating): the
+    /// converter noise of a reseated unit is drawn afresh, as an operator's retest after
+    /// reseating a unit meets new noise; the unit itself is the same.
+    pub fn with_reseat(mut self, reseat: u32) -> Self {
+        if let (Some(unit), true) = (&self.unit, reseat > 0) {
+            self.noise_tag = format!("{}#reseat-{reseat}", unit.serial);
+        }
         self
     }
 

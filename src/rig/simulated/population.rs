@@ -1,17 +1,34 @@
-//! The physical population (simulated rig v2): nominal demo earpiece, seeded manufacturing
-//! spread per serial and channel, and the named defects as changes of the physics.
+//! The physical population (simulated rig v2): a nominal earpiece (the demo one, or the
+//! plan's own product from its earphone file), seeded manufacturing spread per serial and
+//! channel, and the named defects as changes of the physics.
 //!
 //! Sits between [`super::physical`] (one earpiece in a fixture) and [`super::SimulatedRig`]
 //! (routes, latency, noise, clipping). Seeding is the one of the behavioural population:
 //! a ChaCha20 stream per (population seed, serial, channel), so a serial is always the same
-//! unit. All magnitudes are invented demo values.
+//! unit. The spread is the demo one ([`PHYSICAL_SPREAD`], uniform) unless the earphone file
+//! declares its own ([`UnitSpread::Declared`]: normal σ per parameter, truncated at ±3σ,
+//! [`crate::models::earphone::spread`]). All magnitudes are invented demo values.
 
 use super::nonlinear::Rub;
 use super::physical::{Fixture, PhysicalEarphone, PhysicalParams, PhysicalRigError};
 use super::{seeded_rng, Defect, SimUnit, SimulatedRig, UnitKind};
 use crate::acoustics::network::Coupler;
+use crate::acoustics::source::EarphoneModel;
+use crate::models::earphone::spread::TRUNCATE_SIGMAS;
+use crate::models::earphone::EarphoneSpread;
 use rand::Rng;
+use rand_distr::StandardNormal;
 use std::sync::Arc;
+
+/// How the units of a population vary around its nominal earpiece.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum UnitSpread {
+    /// The demo population's uniform spread ([`PHYSICAL_SPREAD`], [`physical_unit_params`]):
+    /// an earphone file without a `spread:` section gets it.
+    Demo,
+    /// The σ an earphone file declares ([`declared_unit_params`]).
+    Declared(EarphoneSpread),
+}
 
 /// Half-widths of the uniform manufacturing spread of the physical population, fractions.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -68,6 +85,40 @@ pub fn physical_unit_params(
     p.nonlinearity.bl_b2_per_m2 *= draw(s.nonlinearity);
     p.nonlinearity.k_k1_per_m *= draw(s.nonlinearity);
     p.nonlinearity.k_k2_per_m2 *= draw(s.nonlinearity);
+    p
+}
+
+/// `nominal` with the declared spread `spread` for channel `channel` of unit `serial` in
+/// population `seed`: one truncated standard normal draw per model parameter
+/// ([`EarphoneSpread::vary`], fixed order), then one per nonlinear coefficient (b1, b2, k1,
+/// k2), each scaled by `1 + σ·z`. A draw beyond ±3σ is drawn again. A σ of 0 leaves its
+/// parameter exactly nominal.
+pub fn declared_unit_params(
+    seed: u64,
+    serial: &str,
+    channel: usize,
+    nominal: &PhysicalParams,
+    spread: &EarphoneSpread,
+) -> PhysicalParams {
+    let mut rng = seeded_rng("physical-unit-declared", seed, serial, channel as u64);
+    let mut z = || loop {
+        let d: f64 = rng.sample(StandardNormal);
+        if d.abs() <= TRUNCATE_SIGMAS {
+            return d;
+        }
+    };
+    let mut p = nominal.clone();
+    p.model = spread.vary(&nominal.model, &mut z);
+    let s = spread.nonlinearity;
+    let n = &mut p.nonlinearity;
+    for c in [
+        &mut n.bl_b1_per_m,
+        &mut n.bl_b2_per_m2,
+        &mut n.k_k1_per_m,
+        &mut n.k_k2_per_m2,
+    ] {
+        *c *= 1.0 + s * z();
+    }
     p
 }
 
@@ -130,11 +181,13 @@ impl PhysicalParams {
     }
 }
 
-/// The physical population in one fixture: the nominal earpiece and the fixture (with its
-/// seal-leak variant), whose per-frequency tables are shared by every unit measured.
+/// The physical population in one fixture: the nominal earpiece, its spread and the
+/// fixture (with its seal-leak variant), whose per-frequency tables are shared by every unit
+/// measured (built at the first unit, reused by every later one: a line's set-up).
 #[derive(Debug, Clone)]
 pub struct PhysicalPopulation {
     nominal: PhysicalParams,
+    spread: UnitSpread,
     fixture: Arc<Fixture>,
     leaky: Arc<Fixture>,
 }
@@ -157,9 +210,44 @@ impl PhysicalPopulation {
         let leaky = fixture.with_seal_leak();
         Ok(PhysicalPopulation {
             nominal,
+            spread: UnitSpread::Demo,
             fixture: Arc::new(fixture),
             leaky: Arc::new(leaky),
         })
+    }
+
+    /// The population of an earphone file's product in the fixture `coupler`: `model` as the
+    /// nominal earpiece, in the fixture's air (one air for the whole rig: the earpiece sits
+    /// in the fixture), with the demo nonlinearity, no rub and the demo converters
+    /// ([`PhysicalParams::nominal`] for everything the file does not say); its declared
+    /// `spread`, else the demo spread.
+    pub fn of_product(
+        coupler: Coupler,
+        tap: &str,
+        model: &EarphoneModel,
+        spread: Option<&EarphoneSpread>,
+    ) -> Result<Self, PhysicalRigError> {
+        let mut nominal = PhysicalParams::nominal(coupler.air);
+        nominal.model = EarphoneModel {
+            air: coupler.air,
+            ..model.clone()
+        };
+        let pop = Self::with_nominal(coupler, tap, nominal)?;
+        Ok(match spread {
+            Some(s) => pop.with_spread(UnitSpread::Declared(*s)),
+            None => pop,
+        })
+    }
+
+    /// The same population with another spread.
+    pub fn with_spread(mut self, spread: UnitSpread) -> Self {
+        self.spread = spread;
+        self
+    }
+
+    /// How the units vary.
+    pub fn spread(&self) -> &UnitSpread {
+        &self.spread
     }
 
     /// The nominal earpiece (before spread).
@@ -175,9 +263,14 @@ impl PhysicalPopulation {
     /// Channel `channel` of `unit` in population `seed`: spread, then the unit's defect when
     /// it is on this channel.
     pub fn unit_params(&self, seed: u64, unit: &SimUnit, channel: usize) -> PhysicalParams {
-        let p = match unit.kind {
-            UnitKind::Design => self.nominal.clone(),
-            _ => physical_unit_params(seed, &unit.serial, channel, &self.nominal),
+        let p = match (unit.kind, &self.spread) {
+            (UnitKind::Design, _) => self.nominal.clone(),
+            (_, UnitSpread::Demo) => {
+                physical_unit_params(seed, &unit.serial, channel, &self.nominal)
+            }
+            (_, UnitSpread::Declared(s)) => {
+                declared_unit_params(seed, &unit.serial, channel, &self.nominal, s)
+            }
         };
         match unit.kind {
             UnitKind::Defect(d) if channel == unit.defect_channel => p.with_defect(d),

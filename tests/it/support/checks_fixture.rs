@@ -52,6 +52,7 @@ pub fn plan(channels: &[&str], checks: Vec<CheckSpec>) -> Plan {
         level_unit: tragus::plan::LevelUnit::DbFsPerFs,
         product: None,
         max_retests: None,
+        product_earphone: None,
     }
 }
 
