@@ -13,6 +13,7 @@ mod error;
 mod prepare;
 pub mod reanalyze;
 mod record;
+pub mod replay;
 pub mod tally;
 
 pub use error::{BenchError, Cause, ErrorKind};

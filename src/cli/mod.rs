@@ -40,6 +40,7 @@ mod key_files;
 mod keys;
 mod operator_loop;
 mod records;
+mod replay;
 mod report;
 mod run;
 mod show;
@@ -134,6 +135,9 @@ pub enum Command {
     Report(report::Args),
     /// A store's records as CSV (one row per record and check) or JSON Lines.
     Export(export::Args),
+    /// Judge a store's raw captures again under another plan or revision (read-only):
+    /// verdict transitions, checks newly failing, worst margins, yield before and after.
+    Replay(replay::Args),
 }
 
 /// Where a `--json` document goes.
@@ -390,6 +394,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Keys(a) => keys::run(a),
         Command::Report(a) => report::run(a),
         Command::Export(a) => export::run(a),
+        Command::Replay(a) => replay::run(a),
     };
     let code = match result {
         Ok(code) => code,
