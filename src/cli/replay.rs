@@ -166,6 +166,13 @@ fn render(r: &ReplayReport) -> String {
     ));
     s.push_str("\nchecks (fails before → after; worst margin before → after):\n");
     for c in &r.checks {
+        if !c.in_new_plan {
+            s.push_str(&format!(
+                "  {:<8} {:<11} {:>3} failed before; not a check of the new plan\n",
+                c.id, c.channel, c.n_fail_before
+            ));
+            continue;
+        }
         s.push_str(&format!(
             "  {:<8} {:<11} {:>3} → {:<3} {} → {}\n",
             c.id,

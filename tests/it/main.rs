@@ -36,6 +36,8 @@ mod plan_errors;
 mod plan_fuzz;
 mod plan_hash;
 mod plan_load;
+mod replay;
+mod replay;
 mod report_audit;
 mod report_browser;
 mod rig_dsp;

@@ -113,6 +113,8 @@ pub struct CheckChange {
     pub channel: String,
     /// Check kind.
     pub kind: String,
+    /// False for a check only the plans the records were judged by have.
+    pub in_new_plan: bool,
     /// Records where the check failed before.
     pub n_fail_before: usize,
     /// Records where it fails under the new plan.
@@ -412,6 +414,7 @@ fn check_changes(records: &[RecordReplay]) -> Vec<CheckChange> {
                         id: c.id.clone(),
                         channel: c.channel.clone(),
                         kind: c.kind.clone(),
+                        in_new_plan: false,
                         n_fail_before: 0,
                         n_fail_after: 0,
                         newly_failing: Vec::new(),
@@ -422,6 +425,7 @@ fn check_changes(records: &[RecordReplay]) -> Vec<CheckChange> {
                     out.len() - 1
                 });
             let ch = &mut out[i];
+            ch.in_new_plan |= c.after.is_some();
             let failed = |s: &Option<super::CheckSide>| {
                 s.as_ref().is_some_and(|s| s.verdict == Verdict::Fail)
             };

@@ -100,6 +100,11 @@ pub(super) struct Settings {
     n_dirs: usize,
     new_plan: PathBuf,
     new_sha256: String,
+    /// The new plan's stimulus before any station's channel map (the sweep does not depend
+    /// on the routing).
+    new_stimulus: Result<Stimulus, String>,
+    /// Directories written, with what they hold in words (for messages).
+    labels: Vec<(PathBuf, String)>,
     /// Plan bundle SHA-256 → its tree (main file, fixture file and the fixture's SHA-256).
     plans: HashMap<String, Result<PlanTree, String>>,
     /// (station bundle, calibration bundle) → the station loaded from its written tree.
@@ -124,6 +129,8 @@ impl Settings {
             n_dirs: 0,
             new_plan: path.to_path_buf(),
             new_sha256: plan.sha256.clone(),
+            new_stimulus: Stimulus::from_plan(plan).map_err(|e| e.to_string()),
+            labels: Vec::new(),
             plans: HashMap::new(),
             stations: HashMap::new(),
             origins: HashMap::new(),
@@ -137,13 +144,38 @@ impl Settings {
         &self.list[i]
     }
 
-    fn fresh_dir(&mut self, what: &str) -> PathBuf {
+    /// A new directory for the archived input `role` of SHA-256 `sha`.
+    fn fresh_dir(&mut self, role: &str, sha: &str) -> PathBuf {
         self.n_dirs += 1;
-        self.tmp.path().join(format!("{what}-{}", self.n_dirs))
+        let dir = self.tmp.path().join(format!("{role}-{}", self.n_dirs));
+        let short: String = sha.chars().take(12).collect();
+        self.labels
+            .push((dir.clone(), format!("archived {role} {short}…:")));
+        dir
+    }
+
+    /// `message` with the private directories' paths replaced by what they hold.
+    fn readable(&self, message: String) -> String {
+        let mut m = message;
+        for (dir, label) in &self.labels {
+            let prefix = format!("{}/", dir.display());
+            while let Some(at) = m.find(&prefix) {
+                let mut end = at + prefix.len();
+                while m[end..].starts_with("up/") {
+                    end += 3;
+                }
+                m.replace_range(at..end, &format!("{label} "));
+            }
+        }
+        m
     }
 
     /// Everything `record` needs that is shared with others, built the first time.
     pub fn task(&mut self, store: &Store, record: &StoredRecord) -> Task {
+        self.task_of(store, record).map_err(|e| self.readable(e))
+    }
+
+    fn task_of(&mut self, store: &Store, record: &StoredRecord) -> Task {
         let playback = playback(record).map_err(|e| e.to_string())?;
         let bundle = |role: &str| -> Result<Option<InputBundle>, String> {
             archived_input(store, record, role).map_err(|e| e.to_string())
@@ -161,7 +193,7 @@ impl Settings {
         if !self.plans.contains_key(&plan_sha) {
             let tree = match bundle("plan") {
                 Ok(Some(b)) => {
-                    let dir = self.fresh_dir("plan");
+                    let dir = self.fresh_dir("plan", &plan_sha);
                     write_plan(&b, &dir)
                 }
                 Ok(None) => Err("no archived plan".to_string()),
@@ -174,7 +206,7 @@ impl Settings {
             let loaded = match (bundle("station"), bundle("calibration")) {
                 (Ok(None), _) => Ok(None),
                 (Ok(Some(st)), Ok(cal)) => {
-                    let dir = self.fresh_dir("station");
+                    let dir = self.fresh_dir("station", &station_sha);
                     materialise_station(&st, cal.as_ref(), &dir)
                         .map(Some)
                         .map_err(|e| e.to_string())
@@ -194,6 +226,8 @@ impl Settings {
             let origin = load_origin(&tree.main, station.as_ref(), &record.plan_sha256);
             self.origins.insert(origin_key.clone(), origin);
         }
+        let origin = self.origins[&origin_key].as_ref().map_err(Clone::clone)?;
+        same_sweep(origin, self.new_stimulus.as_ref().map_err(Clone::clone)?)?;
         let fixture_sha = tree
             .fixture
             .as_ref()
@@ -302,30 +336,7 @@ fn load_origin(
 /// tested, the same level unit. Returns the channel map ([`Ready::channel_map`]).
 fn fits(origin: &Origin, setting: &Setting) -> Result<Vec<usize>, String> {
     let (old, new, plan) = (&origin.stimulus, &setting.stimulus, &setting.plan);
-    if old.sample_rate_hz != new.sample_rate_hz {
-        return Err(format!(
-            "the new plan samples at {} Hz, the capture was made at {} Hz",
-            new.sample_rate_hz, old.sample_rate_hz
-        ));
-    }
-    if old.sweep != new.sweep {
-        let (a, b) = (&old.sweep, &new.sweep);
-        return Err(format!(
-            "the new plan plays another sweep ({:.6}–{:.6} Hz, {:.6} s, peak {:.2} dB FS, \
-             starting at sample {}) than the captured one ({:.6}–{:.6} Hz, {:.6} s, peak {:.2} \
-             dB FS, starting at sample {})",
-            b.f1_hz,
-            b.f2_hz,
-            b.duration_s,
-            20.0 * b.amplitude.log10(),
-            b.start_sample,
-            a.f1_hz,
-            a.f2_hz,
-            a.duration_s,
-            20.0 * a.amplitude.log10(),
-            a.start_sample
-        ));
-    }
+    same_sweep(origin, new)?;
     if old != new {
         return Err(format!(
             "the new plan plays its sweep on outputs {:?} with {} samples, the captured \
@@ -373,4 +384,35 @@ fn fits(origin: &Origin, setting: &Setting) -> Result<Vec<usize>, String> {
         map.push(i);
     }
     Ok(map)
+}
+
+/// The capture holds the new plan's sweep: same sample rate, same sweep (frequencies,
+/// duration, level, fades, leading silence).
+fn same_sweep(origin: &Origin, new: &Stimulus) -> Result<(), String> {
+    let old = &origin.stimulus;
+    if old.sample_rate_hz != new.sample_rate_hz {
+        return Err(format!(
+            "the new plan samples at {} Hz, the capture was made at {} Hz",
+            new.sample_rate_hz, old.sample_rate_hz
+        ));
+    }
+    if old.sweep != new.sweep {
+        let (a, b) = (&old.sweep, &new.sweep);
+        let words = |p: &crate::dsp::sweep::SweepParams| {
+            format!(
+                "{} to {} in {:.4} s at {:.2} dB FS peak, from sample {}",
+                crate::checks::format_hz(p.f1_hz),
+                crate::checks::format_hz(p.f2_hz),
+                p.duration_s,
+                20.0 * p.amplitude.log10(),
+                p.start_sample
+            )
+        };
+        return Err(format!(
+            "the new plan plays another sweep ({}) than the captured one ({})",
+            words(b),
+            words(a)
+        ));
+    }
+    Ok(())
 }
