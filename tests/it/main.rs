@@ -37,7 +37,6 @@ mod plan_fuzz;
 mod plan_hash;
 mod plan_load;
 mod replay;
-mod replay;
 mod report_audit;
 mod report_browser;
 mod rig_dsp;

@@ -57,6 +57,17 @@ fn judge_with(
 ) -> Result<(UnitResult, Value, usize), String> {
     let stored: Value = serde_json::from_str(&record.result_json)
         .map_err(|e| format!("its result_json is not JSON: {e}"))?;
+    // The record names the station file it was tested on: the archived one must be it.
+    let recorded = stored["station"]["sha256"].as_str();
+    if let (Some(r), Some(info)) = (recorded, &station) {
+        if Some(r) != info.sha256.as_deref() {
+            return Err(format!(
+                "the archived station file loads with sha256 {}, but the record names station \
+                 file sha256 {r}",
+                info.sha256.as_deref().unwrap_or("none")
+            ));
+        }
+    }
     let err = |e: super::super::BenchError| e.to_string();
     let n = ready.n_origin_channels;
     let remap =

@@ -299,7 +299,7 @@ pub(super) fn summarise(
         t.record_ids.push(r.record_id);
     }
     let mut transitions: Vec<Transition> = transitions.into_values().collect();
-    transitions.sort_by(|a, b| b.count.cmp(&a.count));
+    transitions.sort_by_key(|t| std::cmp::Reverse(t.count));
 
     let mut latest: BTreeMap<&str, &RecordReplay> = BTreeMap::new();
     for r in &records {

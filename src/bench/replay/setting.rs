@@ -217,9 +217,6 @@ impl Settings {
         }
         let tree = self.plans[&plan_sha].as_ref().map_err(Clone::clone)?;
         let station = self.stations[&station_key].as_ref().map_err(Clone::clone)?;
-        if let Some(st) = station {
-            check_station(record, &st.info())?;
-        }
 
         let origin_key = (plan_sha.clone(), station_sha.clone(), cal_sha.clone());
         if !self.origins.contains_key(&origin_key) {
@@ -281,22 +278,6 @@ fn write_plan(b: &InputBundle, dir: &Path) -> Result<PlanTree, String> {
         _ => None,
     };
     Ok(PlanTree { main, fixture })
-}
-
-/// The record names the station file it was tested on: the archived one must be it.
-fn check_station(record: &StoredRecord, info: &StationInfo) -> Result<(), String> {
-    let stored: serde_json::Value = serde_json::from_str(&record.result_json)
-        .map_err(|e| format!("record #{}: its result_json is not JSON: {e}", record.id))?;
-    let recorded = stored["station"]["sha256"].as_str();
-    if recorded.is_some_and(|r| Some(r) != info.sha256.as_deref()) {
-        return Err(format!(
-            "the archived station file loads with sha256 {}, but the record names station \
-             file sha256 {}",
-            info.sha256.as_deref().unwrap_or("none"),
-            recorded.unwrap_or("none")
-        ));
-    }
-    Ok(())
 }
 
 /// The plan a record was tested with, loaded from its archive on its station; its hash
