@@ -406,7 +406,7 @@ pub(crate) fn strings(v: &Value) -> Vec<String> {
 
 /// What the rig reported while capturing, as the stored analysis took it: every channel got
 /// the same `rig_fault` reasons, so the first measured channel's are the rig's.
-pub(crate) fn rig_faults(stored: &Value) -> Vec<String> {
+fn rig_faults(stored: &Value) -> Vec<String> {
     let Some(first) = stored["channels"].as_array().and_then(|c| c.first()) else {
         return Vec::new();
     };
