@@ -15,6 +15,7 @@ pub mod line;
 mod prepare;
 pub mod reanalyze;
 mod record;
+pub mod replay;
 pub mod tally;
 
 pub use error::{BenchError, Cause, ErrorKind};

@@ -40,6 +40,7 @@ mod key_files;
 mod keys;
 mod operator_loop;
 mod records;
+mod replay;
 mod report;
 mod run;
 mod show;
@@ -138,6 +139,9 @@ pub enum Command {
     /// A virtual line: N simulated units of the plan's product with a defect mix, tested
     /// through the engine; predicted yield, Pareto of failing checks, defect × verdict.
     SimulateLine(simulate_line::Args),
+    /// Judge a store's raw captures again under another plan or revision (read-only):
+    /// verdict transitions, checks newly failing, worst margins, yield before and after.
+    Replay(replay::Args),
 }
 
 /// Where a `--json` document goes.
@@ -395,6 +399,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Report(a) => report::run(a),
         Command::Export(a) => export::run(a),
         Command::SimulateLine(a) => simulate_line::run(a, out),
+        Command::Replay(a) => replay::run(a),
     };
     let code = match result {
         Ok(code) => code,

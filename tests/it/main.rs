@@ -37,6 +37,7 @@ mod plan_fuzz;
 mod plan_hash;
 mod plan_load;
 mod plan_refusals;
+mod replay;
 mod report_audit;
 mod report_browser;
 mod rig_dsp;

@@ -14,7 +14,7 @@ const STATION_FILE_KEYS: [&str; 2] = ["calibration", "signing_key"];
 /// loader only checks exist (the calibration file, the signing key): those are put back
 /// where it looks for them (the archived calibration's text; an empty stand-in for
 /// anything else), the tree written deep enough that a path with `..` stays inside `base`.
-pub(super) fn materialise_station(
+pub(crate) fn materialise_station(
     bundle: &InputBundle,
     calibration: Option<&InputBundle>,
     base: &Path,
@@ -108,10 +108,10 @@ fn lexical(dir: &[String], rel: &Path) -> Option<(Vec<String>, usize)> {
 }
 
 /// A directory of its own under the system's temporary directory, removed when dropped.
-pub(super) struct TempDir(PathBuf);
+pub(crate) struct TempDir(PathBuf);
 
 impl TempDir {
-    pub(super) fn new() -> Result<TempDir, BenchError> {
+    pub(crate) fn new() -> Result<TempDir, BenchError> {
         use std::sync::atomic::{AtomicU64, Ordering};
         static COUNTER: AtomicU64 = AtomicU64::new(0);
         let base = std::env::temp_dir();
@@ -142,7 +142,7 @@ impl TempDir {
         )))
     }
 
-    pub(super) fn path(&self) -> &Path {
+    pub(crate) fn path(&self) -> &Path {
         &self.0
     }
 }

@@ -33,10 +33,10 @@ use super::BenchError;
 use crate::checks::CheckResult;
 use crate::result::{CalibrationInfo, ToolInfo, UnitResult};
 use crate::rig::recording::RecordingRig;
-use crate::rig::Rig;
+use crate::rig::{Capture, Rig};
 use crate::store::{InputBundle, Store, StoredRecord};
 use crate::Verdict;
-use files::{materialise_station, TempDir};
+pub(crate) use files::{materialise_station, TempDir};
 use serde_json::Value;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -294,27 +294,19 @@ pub fn reanalyze(store: &Store, record: &StoredRecord) -> Result<Reanalysis, Ben
                 record.id
             ))
         })?;
-        let data = crate::wav::decode_wav(&bytes).map_err(|e| {
-            BenchError::bad_input(format!(
-                "record #{}: its capture {} is not a readable WAV file: {e}",
-                record.id, record.capture_sha256
-            ))
-        })?;
         let path = store.capture_path(&record.capture_sha256);
-        let mut rig = RecordingRig::from_data(&path, data);
-        let mut capture = rig.play_and_capture(&prep.stimulus, prep.plan.n_inputs())?;
-        capture.faults.extend(rig_faults(&stored));
+        let capture = capture_of(record, &stored, &bytes, &path, &prep)?;
         prep.judge_capture(&capture, &serial, &record.rig, simulated_unit, &gains)?
     };
-    result.tool = ToolInfo::default();
-    result.time_utc = record.time_utc.clone();
-    result.station = station_info;
-    result.device_latency_samples = stored["device_latency_samples"].as_i64();
     let n_carried = carried.len();
-    result.checks.extend(carried);
-    result.verdict = decide_verdict(&prep.plan, &result, n_carried);
-    // The retest limit, from the facts the record keeps (the store has later records now).
-    super::history::carry_over(&stored, &mut result, record.id)?;
+    finish(
+        &prep.plan,
+        &mut result,
+        &stored,
+        record,
+        station_info,
+        carried,
+    )?;
     let comparison = compare(&result, &stored, record);
     Ok(Reanalysis {
         record_id: record.id,
@@ -325,8 +317,52 @@ pub fn reanalyze(store: &Store, record: &StoredRecord) -> Result<Reanalysis, Ben
     })
 }
 
+/// The stored raw capture of `record` (`bytes`, read from `path`) as the rig handed it to
+/// the analysis for `prep`'s stimulus, with the faults the rig reported while capturing
+/// carried over from the stored result (module doc).
+pub(crate) fn capture_of(
+    record: &StoredRecord,
+    stored: &Value,
+    bytes: &[u8],
+    path: &Path,
+    prep: &Prepared,
+) -> Result<Capture, BenchError> {
+    let data = crate::wav::decode_wav(bytes).map_err(|e| {
+        BenchError::bad_input(format!(
+            "record #{}: its capture {} is not a readable WAV file: {e}",
+            record.id, record.capture_sha256
+        ))
+    })?;
+    let mut rig = RecordingRig::from_data(path, data);
+    let mut capture = rig.play_and_capture(&prep.stimulus, prep.plan.n_inputs())?;
+    capture.faults.extend(rig_faults(stored));
+    Ok(capture)
+}
+
+/// Complete a re-judged `result` as the record had it: the record's time, station and
+/// device latency, the current software as its tool, the `carried` checks (listening
+/// steps, last) appended, and the unit verdict decided again by the bench's one rule.
+pub(crate) fn finish(
+    plan: &crate::plan::Plan,
+    result: &mut UnitResult,
+    stored: &Value,
+    record: &StoredRecord,
+    station: Option<crate::station::StationInfo>,
+    carried: Vec<CheckResult>,
+) -> Result<(), BenchError> {
+    result.tool = ToolInfo::default();
+    result.time_utc = record.time_utc.clone();
+    result.station = station;
+    result.device_latency_samples = stored["device_latency_samples"].as_i64();
+    let n_carried = carried.len();
+    result.checks.extend(carried);
+    result.verdict = decide_verdict(plan, result, n_carried);
+    // The retest limit, from the facts the record keeps (the store has later records now).
+    super::history::carry_over(stored, result, record.id)
+}
+
 /// A per-plan-channel list of `what` must have one value per plan channel.
-fn per_channel(
+pub(crate) fn per_channel(
     record: &StoredRecord,
     what: &str,
     values: &[f64],
@@ -343,7 +379,10 @@ fn per_channel(
 }
 
 /// The calibration the unit was judged under, from the stored result.
-fn calibration_of(stored: &Value, record: &StoredRecord) -> Result<CalibrationInfo, BenchError> {
+pub(crate) fn calibration_of(
+    stored: &Value,
+    record: &StoredRecord,
+) -> Result<CalibrationInfo, BenchError> {
     let c = &stored["calibration"];
     let (Some(mode), Some(level_unit)) = (c["mode"].as_str(), c["level_unit"].as_str()) else {
         return Err(BenchError::bad_input(format!(
@@ -360,7 +399,7 @@ fn calibration_of(stored: &Value, record: &StoredRecord) -> Result<CalibrationIn
     })
 }
 
-fn strings(v: &Value) -> Vec<String> {
+pub(crate) fn strings(v: &Value) -> Vec<String> {
     v.as_array()
         .map(|a| {
             a.iter()
@@ -386,7 +425,10 @@ fn rig_faults(stored: &Value) -> Vec<String> {
 }
 
 /// The stored listening-step checks (operator answers), which nothing can re-measure.
-fn carried_checks(stored: &Value, record: &StoredRecord) -> Result<Vec<CheckResult>, BenchError> {
+pub(crate) fn carried_checks(
+    stored: &Value,
+    record: &StoredRecord,
+) -> Result<Vec<CheckResult>, BenchError> {
     let mut out = Vec::new();
     for c in stored["checks"].as_array().into_iter().flatten() {
         if c["kind"] != "listening" {
@@ -413,7 +455,7 @@ fn carried_checks(stored: &Value, record: &StoredRecord) -> Result<Vec<CheckResu
 }
 
 /// `result` against the stored result (module doc).
-fn compare(result: &UnitResult, stored: &Value, record: &StoredRecord) -> Comparison {
+pub(crate) fn compare(result: &UnitResult, stored: &Value, record: &StoredRecord) -> Comparison {
     let mut differences = Vec::new();
     if result.verdict != record.verdict {
         differences.push(format!(

@@ -2,6 +2,7 @@
 
 pub mod checks_fixture;
 pub mod common;
+pub mod demo_store;
 pub mod soundcard;
 pub mod source_support;
 pub mod store_support;
