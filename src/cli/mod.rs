@@ -38,6 +38,7 @@ mod export;
 mod exposure;
 mod key_files;
 mod keys;
+mod limits;
 mod operator_loop;
 mod records;
 mod report;
@@ -134,6 +135,9 @@ pub enum Command {
     Report(report::Args),
     /// A store's records as CSV (one row per record and check) or JSON Lines.
     Export(export::Args),
+    /// Test-engineer tools for limits: `limits derive` makes a plan's limits from golden
+    /// units in a store (limit CSVs, a new plan revision, a report and a preview).
+    Limits(limits::Args),
 }
 
 /// Where a `--json` document goes.
@@ -390,6 +394,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Keys(a) => keys::run(a),
         Command::Report(a) => report::run(a),
         Command::Export(a) => export::run(a),
+        Command::Limits(a) => limits::run(a),
     };
     let code = match result {
         Ok(code) => code,

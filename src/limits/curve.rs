@@ -2,7 +2,12 @@
 //!
 //! Per grid frequency f: the golden curves' mean μ(f) and sample standard deviation σ(f)
 //! ([`super::stats`]); the half-width `h(f) = clamp(k·σ̃(f), min, max)`, where σ̃ is σ
-//! optionally smoothed over 1/N octave ([`smooth_spread`]); the lines are `μ ± h`.
+//! optionally smoothed over 1/N octave ([`smooth_spread`]); the lines are `μ ± h`. With
+//! [`Settings::cover_golden`] (the default) each side's `k·σ̃` is first raised, where
+//! needed, to reach the farthest golden curve on that side: the golden units are good by
+//! definition, and a line that rejects one of them is wrong about the line, not the unit.
+//! The clamp comes after, so a maximum half-width still cuts (and the report says how
+//! often).
 //!
 //! Only the spread is smoothed, never the mean: the mean follows every peak and notch the
 //! golden units share, so the lines keep their shape; smoothing the spread only evens out
@@ -26,6 +31,10 @@ pub struct CurveStats {
     pub mean_db: Vec<f64>,
     /// Sample standard deviation per frequency, dB.
     pub sd_db: Vec<f64>,
+    /// Lowest golden level per frequency, dB.
+    pub min_db: Vec<f64>,
+    /// Highest golden level per frequency, dB.
+    pub max_db: Vec<f64>,
 }
 
 /// Mean and spread of `curves` (each a level per frequency of `freqs_hz`, dB).
@@ -50,6 +59,8 @@ pub fn curve_stats(freqs_hz: &[f64], curves: &[Vec<f64>]) -> Result<CurveStats, 
     }
     let mut mean_db = Vec::with_capacity(freqs_hz.len());
     let mut sd_db = Vec::with_capacity(freqs_hz.len());
+    let mut min_db = Vec::with_capacity(freqs_hz.len());
+    let mut max_db = Vec::with_capacity(freqs_hz.len());
     let mut column = vec![0.0; curves.len()];
     for (j, &f) in freqs_hz.iter().enumerate() {
         for (c, v) in curves.iter().zip(&mut column) {
@@ -63,12 +74,16 @@ pub fn curve_stats(freqs_hz: &[f64], curves: &[Vec<f64>]) -> Result<CurveStats, 
         })?;
         mean_db.push(s.mean);
         sd_db.push(s.sd);
+        min_db.push(s.min);
+        max_db.push(s.max);
     }
     Ok(CurveStats {
         freqs_hz: freqs_hz.to_vec(),
         n_curves: curves.len(),
         mean_db,
         sd_db,
+        min_db,
+        max_db,
     })
 }
 
@@ -100,56 +115,61 @@ pub fn smooth_spread(freqs_hz: &[f64], sd_db: &[f64], fraction: u32) -> Vec<f64>
 pub struct Envelope {
     /// Grid frequencies, Hz.
     pub freqs_hz: Vec<f64>,
-    /// `μ + h`, dB.
+    /// `μ + h_upper`, dB.
     pub upper_db: Vec<f64>,
-    /// `μ − h`, dB.
+    /// `μ − h_lower`, dB.
     pub lower_db: Vec<f64>,
-    /// The half-width h used at each frequency, dB.
-    pub half_width_db: Vec<f64>,
-    /// Grid points where `k·σ̃` was below the minimum half-width (h raised to it).
+    /// The upper line's half-width at each frequency, dB.
+    pub upper_half_width_db: Vec<f64>,
+    /// The lower line's half-width at each frequency, dB.
+    pub lower_half_width_db: Vec<f64>,
+    /// Line points (both sides counted) raised to the minimum half-width.
     pub n_at_min: usize,
-    /// Grid points where `k·σ̃` was above the maximum half-width (h cut to it): a golden
-    /// unit may lie outside the lines there.
+    /// Line points cut to the maximum half-width: a golden curve may lie outside there.
     pub n_at_max: usize,
+    /// Line points widened beyond `k·σ̃` to reach a golden curve.
+    pub n_widened_to_golden: usize,
 }
 
-/// The lines `μ ± clamp(k·σ̃, min, max)` of `stats` (module doc).
+/// The lines of `stats` (module doc).
 pub fn envelope(stats: &CurveStats, settings: &Settings) -> Envelope {
     let spread = match settings.smoothing_fraction {
         Some(n) => smooth_spread(&stats.freqs_hz, &stats.sd_db, n),
         None => stats.sd_db.clone(),
     };
-    let (mut n_at_min, mut n_at_max) = (0, 0);
-    let half_width_db: Vec<f64> = spread
-        .iter()
-        .map(|sd| {
-            let h = settings.k * sd;
-            if h < settings.min_half_width_db {
-                n_at_min += 1;
-            } else if h > settings.max_half_width_db {
-                n_at_max += 1;
-            }
-            h.clamp(settings.min_half_width_db, settings.max_half_width_db)
-        })
-        .collect();
-    Envelope {
+    let mut e = Envelope {
         freqs_hz: stats.freqs_hz.clone(),
-        upper_db: stats
-            .mean_db
-            .iter()
-            .zip(&half_width_db)
-            .map(|(m, h)| m + h)
-            .collect(),
-        lower_db: stats
-            .mean_db
-            .iter()
-            .zip(&half_width_db)
-            .map(|(m, h)| m - h)
-            .collect(),
-        half_width_db,
-        n_at_min,
-        n_at_max,
+        upper_db: Vec::new(),
+        lower_db: Vec::new(),
+        upper_half_width_db: Vec::new(),
+        lower_half_width_db: Vec::new(),
+        n_at_min: 0,
+        n_at_max: 0,
+        n_widened_to_golden: 0,
+    };
+    for (i, sd) in spread.iter().enumerate() {
+        let mean = stats.mean_db[i];
+        let farthest = [stats.max_db[i] - mean, mean - stats.min_db[i]];
+        let mut half = [0.0; 2];
+        for (side, h) in half.iter_mut().enumerate() {
+            let mut raw = settings.k * sd;
+            if settings.cover_golden && farthest[side] > raw {
+                raw = farthest[side];
+                e.n_widened_to_golden += 1;
+            }
+            if raw < settings.min_half_width_db {
+                e.n_at_min += 1;
+            } else if raw > settings.max_half_width_db {
+                e.n_at_max += 1;
+            }
+            *h = raw.clamp(settings.min_half_width_db, settings.max_half_width_db);
+        }
+        e.upper_db.push(mean + half[0]);
+        e.lower_db.push(mean - half[1]);
+        e.upper_half_width_db.push(half[0]);
+        e.lower_half_width_db.push(half[1]);
     }
+    e
 }
 
 /// The capability of a curve check: Cp and Cpk at every grid frequency against the lines
@@ -202,7 +222,9 @@ mod tests {
     use super::*;
 
     fn grid() -> Vec<f64> {
-        (0..49).map(|k| 100.0 * 2f64.powf(k as f64 / 12.0)).collect()
+        (0..49)
+            .map(|k| 100.0 * 2f64.powf(k as f64 / 12.0))
+            .collect()
     }
 
     #[test]
@@ -230,7 +252,10 @@ mod tests {
         }
         // A step from 0.2 to 1.0 at 800 Hz: every smoothed value stays within [0.2, 1.0],
         // far from the step it is the value itself (an RMS is a mean).
-        let step: Vec<f64> = f.iter().map(|&x| if x < 800.0 { 0.2 } else { 1.0 }).collect();
+        let step: Vec<f64> = f
+            .iter()
+            .map(|&x| if x < 800.0 { 0.2 } else { 1.0 })
+            .collect();
         let s = smooth_spread(&f, &step, 3);
         assert!(s.iter().all(|v| (0.2 - 1e-12..=1.0 + 1e-12).contains(v)));
         assert!((s[0] - 0.2).abs() < 1e-12 && (s[s.len() - 1] - 1.0).abs() < 1e-12);
@@ -243,16 +268,48 @@ mod tests {
             freqs_hz: f.clone(),
             n_curves: 30,
             mean_db: vec![-3.0; f.len()],
-            sd_db: f.iter().map(|&x| if x < 400.0 { 0.1 } else { 3.0 }).collect(),
+            sd_db: f
+                .iter()
+                .map(|&x| if x < 400.0 { 0.1 } else { 3.0 })
+                .collect(),
+            min_db: vec![-3.1; f.len()],
+            max_db: vec![-2.9; f.len()],
         };
         let s = Settings::default();
         let e = envelope(&stats, &s);
         for (i, &x) in f.iter().enumerate() {
             let want = if x < 400.0 { 1.0 } else { 6.0 };
-            assert_eq!(e.half_width_db[i], want);
+            assert_eq!(e.upper_half_width_db[i], want);
+            assert_eq!(e.lower_half_width_db[i], want);
             assert_eq!(e.upper_db[i], -3.0 + want);
             assert_eq!(e.lower_db[i], -3.0 - want);
         }
-        assert_eq!(e.n_at_min + e.n_at_max, f.len());
+        assert_eq!(e.n_at_min + e.n_at_max, 2 * f.len());
+        assert_eq!(e.n_widened_to_golden, 0);
+    }
+
+    #[test]
+    fn lines_reach_the_farthest_golden_curve() {
+        // σ 0.5 → 3σ = 1.5 dB, but one golden curve sits 2.5 dB above the mean: the upper
+        // line moves out to it, the lower stays at 1.5 dB; without covering both at 1.5.
+        let f = grid();
+        let stats = CurveStats {
+            freqs_hz: f.clone(),
+            n_curves: 30,
+            mean_db: vec![0.0; f.len()],
+            sd_db: vec![0.5; f.len()],
+            min_db: vec![-1.0; f.len()],
+            max_db: vec![2.5; f.len()],
+        };
+        let e = envelope(&stats, &Settings::default());
+        assert!(e.upper_db.iter().all(|v| *v == 2.5));
+        assert!(e.lower_db.iter().all(|v| *v == -1.5));
+        assert_eq!(e.n_widened_to_golden, f.len());
+        let plain = Settings {
+            cover_golden: false,
+            ..Settings::default()
+        };
+        let e = envelope(&stats, &plain);
+        assert!(e.upper_db.iter().all(|v| *v == 1.5));
     }
 }

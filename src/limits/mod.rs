@@ -63,6 +63,8 @@ pub struct Settings {
     pub max_error_db: f64,
     /// How scalar limits are placed.
     pub method: Method,
+    /// Widen a limit, where needed, to take in every golden value ([`curve`], [`scalar`]).
+    pub cover_golden: bool,
 }
 
 impl Default for Settings {
@@ -74,6 +76,7 @@ impl Default for Settings {
             smoothing_fraction: None,
             max_error_db: DEFAULT_MAX_ERROR_DB,
             method: Method::Sigma,
+            cover_golden: true,
         }
     }
 }
@@ -148,7 +151,13 @@ mod tests {
             ..Settings::default()
         };
         let p = bad.problems().join("\n");
-        for opt in ["--k", "--max-half-width-db", "--smoothing", "--max-error-db", "--quantile"] {
+        for opt in [
+            "--k",
+            "--max-half-width-db",
+            "--smoothing",
+            "--max-error-db",
+            "--quantile",
+        ] {
             assert!(p.contains(opt), "{p}");
         }
     }

@@ -8,6 +8,8 @@
 //! - [`Method::Quantile`]`(q)`: as far as the golden set's `q`-quantile (upper limit) or
 //!   `(1 − q)`-quantile (lower limit) lies from μ;
 //!
+//! with [`Settings::cover_golden`] (the default) raised, where needed, to reach the
+//! farthest golden value on its side (a limit never rejects a unit it was made from);
 //! then clamped to `[min_half_width_db, max_half_width_db]` (the minimum is the *floor* of
 //! the width: a limit never closer to the mean than that, however tight the golden units
 //! are). A one-sided limit may also have an absolute floor: an upper limit never below it
@@ -59,6 +61,8 @@ pub enum Clamp {
     MaxHalfWidth,
     /// Raised to the absolute floor.
     Floor,
+    /// Widened beyond the statistic to take in the farthest golden value.
+    Golden,
 }
 
 /// Derive the limits of a check from its golden `values` (dB; module doc). `floor_db` is
@@ -69,18 +73,29 @@ pub fn derive_scalar(
     settings: &Settings,
     floor_db: Option<f64>,
 ) -> Result<ScalarLimits, LimitsError> {
-    let golden = summary(values)
-        .filter(|s| s.n >= 2)
-        .ok_or_else(|| LimitsError(format!(
+    let golden = summary(values).filter(|s| s.n >= 2).ok_or_else(|| {
+        LimitsError(format!(
             "expected at least 2 finite golden values, found {} value(s){}",
             values.len(),
-            if values.iter().any(|v| !v.is_finite()) { " with one not a number" } else { "" }
-        )))?;
-    let clamp_half = |h: f64| {
+            if values.iter().any(|v| !v.is_finite()) {
+                " with one not a number"
+            } else {
+                ""
+            }
+        ))
+    })?;
+    let clamp_half = |h: f64, farthest: f64| {
+        let (h, widened) = if settings.cover_golden && farthest > h {
+            (farthest, true)
+        } else {
+            (h, false)
+        };
         if h < settings.min_half_width_db {
             (settings.min_half_width_db, Clamp::MinHalfWidth)
         } else if h > settings.max_half_width_db {
             (settings.max_half_width_db, Clamp::MaxHalfWidth)
+        } else if widened {
+            (h, Clamp::Golden)
         } else {
             (h, Clamp::None)
         }
@@ -93,7 +108,7 @@ pub fn derive_scalar(
             (hi - golden.mean, golden.mean - lo)
         }
     };
-    let (up_half, mut clamp) = clamp_half(up_raw);
+    let (up_half, mut clamp) = clamp_half(up_raw, golden.max - golden.mean);
     let mut usl = golden.mean + up_half;
     if let (Sides::Upper, Some(floor)) = (sides, floor_db) {
         if usl < floor {
@@ -104,7 +119,7 @@ pub fn derive_scalar(
     let lsl = match sides {
         Sides::Upper => None,
         Sides::Both => {
-            let (lo_half, lo_clamp) = clamp_half(lo_raw);
+            let (lo_half, lo_clamp) = clamp_half(lo_raw, golden.mean - golden.min);
             if clamp == Clamp::None {
                 clamp = lo_clamp;
             }
@@ -185,6 +200,26 @@ mod tests {
         let v: Vec<f64> = (0..10).map(|i| -60.0 + 10.0 * (i % 2) as f64).collect();
         let l = derive_scalar(&v, Sides::Upper, &s, None).unwrap();
         assert_eq!(l.clamp, Clamp::MaxHalfWidth);
+    }
+
+    #[test]
+    fn a_far_golden_value_widens_the_limit() {
+        // 29 zeros and one 10 (by hand): μ = 1/3, Σ(x−μ)² = 29/9 + (29/3)² = 96.67,
+        // σ = √(96.67/29) = 1.826, 3σ = 5.48 < max − μ = 9.67 → the limit reaches 10.
+        let mut v = vec![0.0; 29];
+        v.push(10.0);
+        let s = Settings {
+            max_half_width_db: 20.0,
+            ..Settings::default()
+        };
+        let l = derive_scalar(&v, Sides::Upper, &s, None).unwrap();
+        assert_eq!((l.usl_db, l.clamp), (10.0, Clamp::Golden));
+        let plain = Settings {
+            cover_golden: false,
+            ..s
+        };
+        let l = derive_scalar(&v, Sides::Upper, &plain, None).unwrap();
+        assert!(l.usl_db < 10.0 && l.clamp == Clamp::None);
     }
 
     #[test]

@@ -120,7 +120,9 @@ pub fn thin(
         ));
     }
     if line_db.iter().any(|v| !v.is_finite()) {
-        return Err(LimitsError("the line has a level that is not a number".into()));
+        return Err(LimitsError(
+            "the line has a level that is not a number".into(),
+        ));
     }
     if !(max_error_db >= MIN_MAX_ERROR_DB) {
         return Err(LimitsError(format!(
@@ -128,7 +130,11 @@ pub fn thin(
              written {LEVEL_STEP_DB} dB), found {max_error_db}"
         )));
     }
-    let exact: Vec<(f64, f64)> = freqs_hz.iter().copied().zip(line_db.iter().copied()).collect();
+    let exact: Vec<(f64, f64)> = freqs_hz
+        .iter()
+        .copied()
+        .zip(line_db.iter().copied())
+        .collect();
     for reserve in [0.1, 0.2, 0.3, 0.4] {
         let lo = reserve * max_error_db;
         let hi = max_error_db * (1.0 - reserve) - LEVEL_STEP_DB;
@@ -150,7 +156,13 @@ pub fn thin(
 
 /// The greedy path through the corridor `U + s·[lo, hi]` (module doc), vertices at grid
 /// frequencies, (Hz, dB).
-fn corridor_path(freqs_hz: &[f64], line_db: &[f64], side: Side, lo: f64, hi: f64) -> Vec<(f64, f64)> {
+fn corridor_path(
+    freqs_hz: &[f64],
+    line_db: &[f64],
+    side: Side,
+    lo: f64,
+    hi: f64,
+) -> Vec<(f64, f64)> {
     let s = side.sign();
     let (a_off, b_off) = if s > 0.0 { (lo, hi) } else { (-hi, -lo) };
     let tube = |j: usize| (line_db[j] + a_off, line_db[j] + b_off);
@@ -334,7 +346,10 @@ mod tests {
         assert_eq!(level_text(1.2341, Side::Upper), "1.235");
         assert_eq!(level_text(1.2349, Side::Lower), "1.234");
         assert_eq!(level_text(-0.0004, Side::Upper), "0.000");
-        assert_eq!(freq_text(1059.2537, Round::Nearest, (20.0, 20e3)), "1059.25");
+        assert_eq!(
+            freq_text(1059.2537, Round::Nearest, (20.0, 20e3)),
+            "1059.25"
+        );
         assert_eq!(freq_text(50.118_72, Round::Down, (20.0, 20e3)), "50.1187");
         assert_eq!(freq_text(19_999.99, Round::Up, (20.0, 20e3)), "20000");
     }
