@@ -89,7 +89,8 @@ pub struct DeriveArgs {
     #[arg(long, value_name = "KIND=VALUE", value_parser = parse_floor)]
     pub floor: Vec<(String, f64)>,
     /// Do not widen a limit to take in golden values beyond mean ± k·σ (by default every
-    /// limit reaches at least the farthest golden value on its side).
+    /// line, and every scalar limit of the sigma method, reaches at least the farthest
+    /// golden value on its side).
     #[arg(long)]
     pub no_cover: bool,
     /// One check per channel (`<id>-<channel>`) instead of one limit for all channels.

@@ -63,7 +63,8 @@ pub struct Settings {
     pub max_error_db: f64,
     /// How scalar limits are placed.
     pub method: Method,
-    /// Widen a limit, where needed, to take in every golden value ([`curve`], [`scalar`]).
+    /// Widen a limit, where needed, to take in every golden value ([`curve`]; [`scalar`] with
+    /// the sigma method only).
     pub cover_golden: bool,
 }
 

@@ -4,12 +4,13 @@
 //! Every value here is in dB (THD as `20·lg(THD / 100 %)`, the scale of its margin), and a
 //! limit is placed at a distance from the golden mean μ, its *half-width*:
 //!
-//! - [`Method::Sigma`]: `k·σ`;
-//! - [`Method::Quantile`]`(q)`: as far as the golden set's `q`-quantile (upper limit) or
+//! - sigma ([`Method::Sigma`]): `k·σ`;
+//! - quantile ([`Method::Quantile`] q): as far as the golden set's `q`-quantile (upper limit) or
 //!   `(1 − q)`-quantile (lower limit) lies from μ;
 //!
-//! with [`Settings::cover_golden`] (the default) raised, where needed, to reach the
-//! farthest golden value on its side (a limit never rejects a unit it was made from);
+//! with [`Settings::cover_golden`] (the default) and the sigma method, raised where needed
+//! to reach the farthest golden value on its side (a limit never rejects a unit it was
+//! made from; a quantile is a choice to leave the tail out, so it is not widened);
 //! then clamped to `[min_half_width_db, max_half_width_db]` (the minimum is the *floor* of
 //! the width: a limit never closer to the mean than that, however tight the golden units
 //! are). A one-sided limit may also have an absolute floor: an upper limit never below it
@@ -84,8 +85,10 @@ pub fn derive_scalar(
             }
         ))
     })?;
+    // A quantile is the engineer's choice to leave the tail out: never covered.
+    let cover = settings.cover_golden && settings.method == Method::Sigma;
     let clamp_half = |h: f64, farthest: f64| {
-        let (h, widened) = if settings.cover_golden && farthest > h {
+        let (h, widened) = if cover && farthest > h {
             (farthest, true)
         } else {
             (h, false)

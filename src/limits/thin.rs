@@ -124,7 +124,7 @@ pub fn thin(
             "the line has a level that is not a number".into(),
         ));
     }
-    if !(max_error_db >= MIN_MAX_ERROR_DB) {
+    if max_error_db.is_nan() || max_error_db < MIN_MAX_ERROR_DB {
         return Err(LimitsError(format!(
             "expected a thinning error of at least {MIN_MAX_ERROR_DB} dB (ten steps of the \
              written {LEVEL_STEP_DB} dB), found {max_error_db}"
@@ -278,7 +278,7 @@ fn checked(
         return None;
     }
     let worst = deviation(&points, exact, side)?;
-    (worst.0 >= 0.0 && worst.1 <= max_error_db).then(|| ThinnedLine {
+    (worst.0 >= 0.0 && worst.1 <= max_error_db).then_some(ThinnedLine {
         side,
         fields,
         points,
