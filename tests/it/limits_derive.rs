@@ -557,14 +557,15 @@ fn command_line(store: &Path, dir: &Path, golden_list: &Path, used_out: &Path) {
         "{text}"
     );
     // Split per channel: one check per channel, each with its own lines; the plan loads.
+    // Golden units by time window.
     let split = dir.join("split");
     let o = derive_cli(
         store,
         &plan,
         &split,
         &[
-            "--serials",
-            &ten,
+            "--since",
+            "2000-01-01T00:00:00Z",
             "--per-channel",
             "--check",
             "fr",
@@ -592,6 +593,16 @@ fn command_line(store: &Path, dir: &Path, golden_list: &Path, used_out: &Path) {
     assert!(split
         .join("limits/demo-earbud-r6-fr-right-lower.csv")
         .is_file());
+    // Chosen by time: every unit whose latest record passes; the failing defect units are
+    // left out, the retests (no valid measurement) never considered.
+    let report: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(split.join("derive-report.json")).unwrap()).unwrap();
+    let n_failing = records(store)
+        .iter()
+        .filter(|r| r.verdict == Verdict::Fail)
+        .count();
+    assert_eq!(report["golden"]["n_units"], N_GOLDEN);
+    assert_eq!(report["golden"]["left_out"].as_array().unwrap().len(), n_failing);
 }
 
 /// A plan with an error is refused at its file:line:col before the store is read.
