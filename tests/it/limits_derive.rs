@@ -602,7 +602,10 @@ fn command_line(store: &Path, dir: &Path, golden_list: &Path, used_out: &Path) {
         .filter(|r| r.verdict == Verdict::Fail)
         .count();
     assert_eq!(report["golden"]["n_units"], N_GOLDEN);
-    assert_eq!(report["golden"]["left_out"].as_array().unwrap().len(), n_failing);
+    assert_eq!(
+        report["golden"]["left_out"].as_array().unwrap().len(),
+        n_failing
+    );
 }
 
 /// A plan with an error is refused at its file:line:col before the store is read.
