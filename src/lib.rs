@@ -17,6 +17,7 @@ pub mod correction;
 pub mod digest;
 pub mod dsp;
 pub mod keys;
+pub mod limits;
 pub mod models;
 pub mod plan;
 pub mod report;

@@ -9,6 +9,7 @@
 //! so they test and record a unit in exactly the same way; nothing here prints or exits.
 
 pub mod archive;
+pub mod derive;
 mod error;
 pub mod history;
 pub mod line;

@@ -38,6 +38,7 @@ mod export;
 mod exposure;
 mod key_files;
 mod keys;
+mod limits;
 mod operator_loop;
 mod records;
 mod replay;
@@ -142,6 +143,9 @@ pub enum Command {
     /// Judge a store's raw captures again under another plan or revision (read-only):
     /// verdict transitions, checks newly failing, worst margins, yield before and after.
     Replay(replay::Args),
+    /// Test-engineer tools for limits: `limits derive` makes a plan's limits from golden
+    /// units in a store (limit CSVs, a new plan revision, a report and a preview).
+    Limits(limits::Args),
 }
 
 /// Where a `--json` document goes.
@@ -400,6 +404,7 @@ pub fn main_with_args<I: IntoIterator<Item = OsString>>(args: I) -> i32 {
         Command::Export(a) => export::run(a),
         Command::SimulateLine(a) => simulate_line::run(a, out),
         Command::Replay(a) => replay::run(a),
+        Command::Limits(a) => limits::run(a),
     };
     let code = match result {
         Ok(code) => code,

@@ -32,6 +32,7 @@ const LAYERS: &[(&str, u8, &str)] = &[
     ("checks", 3, "stages"),
     ("safety", 3, "stages"),
     ("calibration", 3, "stages"),
+    ("limits", 3, "stages"),
     ("result", 4, "records"),
     ("store", 4, "records"),
     ("report", 4, "records"),

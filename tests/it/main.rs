@@ -28,6 +28,7 @@ mod exposure_cli;
 mod keys;
 mod keys_cli;
 mod layers;
+mod limits_derive;
 mod pipeline_captures;
 mod pipeline_correction;
 mod pipeline_reference;
