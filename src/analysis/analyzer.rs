@@ -45,7 +45,6 @@ use crate::plan::{ChannelSpec, Plan, Polarity};
 use crate::rig::Capture;
 use realfft::num_complex::Complex;
 use std::collections::BTreeMap;
-use std::f64::consts::PI;
 use std::sync::Arc;
 
 type C32 = Complex<f32>;
@@ -129,8 +128,6 @@ struct Scratch {
     time: Vec<C32>,
     /// Capture spectrum.
     y: Split<f32>,
-    /// Work spectrum.
-    spec: Split<f32>,
     /// Capture spectrum minus the linear part's output.
     resid: Split<f32>,
     /// The deconvolved buffer: h, then the residual's h, then the rub-and-buzz residual.
@@ -157,7 +154,6 @@ impl Scratch {
             ws: t.fft.make_scratch(),
             time: t.fft.make_time(),
             y: split32(),
-            spec: split32(),
             resid: split32(),
             h: t.fft.make_time(),
             union: t.fft.make_time(),
@@ -345,9 +341,16 @@ impl Analyzer {
         }
 
         // 1. Full deconvolution with the band-limited inverse of the played stimulus.
-        t.fft.forward(&s.time, &mut s.y.re, &mut s.y.im, &mut s.ws);
-        mul_into(&mut s.spec, &s.y, &t.x_inv);
-        t.fft.inverse(&s.spec.re, &s.spec.im, &mut s.h, &mut s.ws);
+        {
+            let (y, x) = (&mut s.y, &t.x_inv);
+            t.fft
+                .forward_map_inverse(&s.time, &mut s.h, &mut s.ws, |k0, re, im| {
+                    let n = re.len();
+                    y.re[k0..k0 + n].copy_from_slice(re);
+                    y.im[k0..k0 + n].copy_from_slice(im);
+                    mul_in_place(re, im, &x.re[k0..k0 + n], &x.im[k0..k0 + n]);
+                });
+        }
         let h = &s.h;
 
         // Latency: the largest magnitude outside the region the harmonics occupy.
@@ -420,11 +423,21 @@ impl Analyzer {
         let distortion = self.outputs.harmonics || self.outputs.rub_buzz;
         if distortion {
             // 3. Residual = capture − linear output, in the spectrum of the capture.
-            t.fft.forward(&s.union, &mut s.spec.re, &mut s.spec.im, &mut s.ws);
-            for_circular(lin_start, lin_len, n_fft, |_, src| set(&mut s.union, src, 0.0));
-            residual_into(&mut s.resid, &s.y, &s.spec, &t.x_spec, &t.lin_comp);
-            mul_into(&mut s.spec, &s.resid, &t.x_inv_analytic);
-            t.fft.inverse(&s.spec.re, &s.spec.im, &mut s.h, &mut s.ws);
+            {
+                let (y, r) = (&s.y, &mut s.resid);
+                t.fft
+                    .forward_map_inverse(&s.union, &mut s.h, &mut s.ws, |k0, re, im| {
+                        let k = k0..k0 + re.len();
+                        residual_in_place(re, im, &y.re[k.clone()], &y.im[k.clone()], t, k0);
+                        r.re[k.clone()].copy_from_slice(re);
+                        r.im[k.clone()].copy_from_slice(im);
+                        let (xr, xi) = (&t.x_inv_analytic.re[k.clone()], &t.x_inv_analytic.im[k]);
+                        mul_in_place(re, im, xr, xi);
+                    });
+            }
+            for_circular(lin_start, lin_len, n_fft, |_, src| {
+                set(&mut s.union, src, 0.0)
+            });
 
             // 4. Harmonic IRs: window each, advance by the fractional delay, sample on the
             //    grid; the windows also go into `union` for step 5.
@@ -518,36 +531,41 @@ impl Analyzer {
     }
 }
 
-/// `out = a·b` per bin (the complex product, in the operation order of `num_complex`).
-fn mul_into(out: &mut Split<f32>, a: &Split<f32>, b: &Split<f32>) {
-    let n = out.re.len();
-    let (or, oi) = (&mut out.re[..n], &mut out.im[..n]);
-    let (ar, ai, br, bi) = (&a.re[..n], &a.im[..n], &b.re[..n], &b.im[..n]);
+/// `(re, im) ·= (br, bi)` per bin (the complex product, in the operation order of
+/// `num_complex`, so results equal those of `Complex` arithmetic to the bit).
+#[inline(always)]
+fn mul_in_place(re: &mut [f32], im: &mut [f32], br: &[f32], bi: &[f32]) {
+    let n = re.len();
+    let (im, br, bi) = (&mut im[..n], &br[..n], &bi[..n]);
     for k in 0..n {
-        or[k] = ar[k] * br[k] - ai[k] * bi[k];
-        oi[k] = ar[k] * bi[k] + ai[k] * br[k];
+        let (ar, ai) = (re[k], im[k]);
+        re[k] = ar * br[k] - ai * bi[k];
+        im[k] = ar * bi[k] + ai * br[k];
     }
 }
 
-/// `out = y − (hl·x)·c` per bin.
-fn residual_into(
-    out: &mut Split<f32>,
-    y: &Split<f32>,
-    hl: &Split<f32>,
-    x: &Split<f32>,
-    c: &Split<f32>,
+/// `(re, im) = y − (hl·x)·c` per bin, where `(re, im)` holds hl for the bins from `k0`.
+#[inline(always)]
+fn residual_in_place(
+    re: &mut [f32],
+    im: &mut [f32],
+    yr: &[f32],
+    yi: &[f32],
+    t: &Tables,
+    k0: usize,
 ) {
-    let n = out.re.len();
-    let (or, oi) = (&mut out.re[..n], &mut out.im[..n]);
-    let (yr, yi, hr, hi) = (&y.re[..n], &y.im[..n], &hl.re[..n], &hl.im[..n]);
-    let (xr, xi, cr, ci) = (&x.re[..n], &x.im[..n], &c.re[..n], &c.im[..n]);
+    let n = re.len();
+    let (im, yr, yi) = (&mut im[..n], &yr[..n], &yi[..n]);
+    let (xr, xi) = (&t.x_spec.re[k0..k0 + n], &t.x_spec.im[k0..k0 + n]);
+    let (cr, ci) = (&t.lin_comp.re[k0..k0 + n], &t.lin_comp.im[k0..k0 + n]);
     for k in 0..n {
-        let tr = hr[k] * xr[k] - hi[k] * xi[k];
-        let ti = hr[k] * xi[k] + hi[k] * xr[k];
+        let (hr, hi) = (re[k], im[k]);
+        let tr = hr * xr[k] - hi * xi[k];
+        let ti = hr * xi[k] + hi * xr[k];
         let ur = tr * cr[k] - ti * ci[k];
         let ui = tr * ci[k] + ti * cr[k];
-        or[k] = yr[k] - ur;
-        oi[k] = yi[k] - ui;
+        re[k] = yr[k] - ur;
+        im[k] = yi[k] - ui;
     }
 }
 
@@ -574,9 +592,6 @@ fn harmonics_into(
     let df_harm = fs / t.n_harm as f64;
     let mut hd_lin = Vec::with_capacity(t.harmonics.len());
     for hw in &t.harmonics {
-        let centre_abs = p as f64 + hw.centre;
-        let c_int = centre_abs.floor();
-        let c_frac = centre_abs - c_int;
         let len = hw.lead + hw.tail;
         let start = harmonic_start(t, hw.centre, hw.lead, p);
         let dst0 = t.n_harm - hw.lead;
@@ -613,8 +628,9 @@ fn harmonics_into(
             let i = (pos.floor() as usize).min(hr.len() - 2);
             let tt = pos - i as f64;
             let hn = C64::new(hr[i], hi[i]) * (1.0 - tt) + C64::new(hr[i + 1], hi[i + 1]) * tt;
-            // Time zero of harmonic n is c_int + c_frac: advance by the fraction.
-            let hn = hn * C64::from_polar(1.0, 2.0 * PI * fh * c_frac / fs);
+            // Time zero of harmonic n is c_int + c_frac: its spectrum would be advanced by
+            // the fraction, e^{j2π·fh·c_frac/fs}, a phase that leaves the magnitude, the only
+            // thing reported, as it is; so it is not applied.
             let ratio = hn.norm() / h1_grid[g].norm().max(1e-300);
             row_lin[g] = Some(ratio);
             row_db[g] = Some(20.0 * ratio.max(1e-15).log10());
@@ -631,23 +647,28 @@ fn rub_buzz(t: &Tables, s: &mut Scratch, p: usize, h1_grid: &[C64]) -> Vec<Optio
     let fs = t.fs_hz;
     let n_fft = t.n_fft;
     // `union` holds the harmonic windows at their places in the deconvolved buffer.
-    t.fft.forward(&s.union, &mut s.spec.re, &mut s.spec.im, &mut s.ws);
     {
-        let n = s.spec.re.len();
-        let (br, bi) = (&mut s.spec.re[..n], &mut s.spec.im[..n]);
-        let (rr, ri) = (&s.resid.re[..n], &s.resid.im[..n]);
-        let (xr, xi) = (&t.x_fwd_analytic.re[..n], &t.x_fwd_analytic.im[..n]);
-        let w = &t.harm_band[..n];
-        for k in 0..n {
-            // Band-limited like the harmonics, so that the DC and slow envelope terms of
-            // even-order distortion (x² has a DC part) do not read as buzz.
-            let ur = br[k] * xr[k] - bi[k] * xi[k];
-            let ui = br[k] * xi[k] + bi[k] * xr[k];
-            br[k] = (rr[k] - ur) * w[k];
-            bi[k] = (ri[k] - ui) * w[k];
-        }
+        let r = &s.resid;
+        t.fft
+            .forward_map_inverse(&s.union, &mut s.h, &mut s.ws, |k0, br, bi| {
+                let n = br.len();
+                let bi = &mut bi[..n];
+                let (rr, ri) = (&r.re[k0..k0 + n], &r.im[k0..k0 + n]);
+                let (xr, xi) = (
+                    &t.x_fwd_analytic.re[k0..k0 + n],
+                    &t.x_fwd_analytic.im[k0..k0 + n],
+                );
+                let w = &t.harm_band[k0..k0 + n];
+                for k in 0..n {
+                    // Band-limited like the harmonics, so that the DC and slow envelope terms
+                    // of even-order distortion (x² has a DC part) do not read as buzz.
+                    let ur = br[k] * xr[k] - bi[k] * xi[k];
+                    let ui = br[k] * xi[k] + bi[k] * xr[k];
+                    br[k] = (rr[k] - ur) * w[k];
+                    bi[k] = (ri[k] - ui) * w[k];
+                }
+            });
     }
-    t.fft.inverse(&s.spec.re, &s.spec.im, &mut s.h, &mut s.ws);
     let e = &s.h;
     let grid = &t.grid_hz;
     let half_width_oct = if grid.len() > 1 {

@@ -100,7 +100,11 @@ pub(super) fn max_abs(packed: &[Complex<f32>], lo: usize, hi: usize) -> f32 {
         for i in 0..LANES / 2 {
             let (x, y) = (chunk[i].re.abs(), chunk[i].im.abs());
             lane[2 * i] = if x > lane[2 * i] { x } else { lane[2 * i] };
-            lane[2 * i + 1] = if y > lane[2 * i + 1] { y } else { lane[2 * i + 1] };
+            lane[2 * i + 1] = if y > lane[2 * i + 1] {
+                y
+            } else {
+                lane[2 * i + 1]
+            };
         }
     }
     for c in rest {
@@ -118,7 +122,11 @@ pub(super) fn argmax_abs(packed: &[Complex<f32>], end: usize) -> usize {
         .iter()
         .position(|c| c.re.abs() == m || c.im.abs() == m)
     {
-        return if whole[k].re.abs() == m { 2 * k } else { 2 * k + 1 };
+        return if whole[k].re.abs() == m {
+            2 * k
+        } else {
+            2 * k + 1
+        };
     }
     if end % 2 == 1 && get(packed, end - 1).abs() == m {
         return end - 1;
@@ -181,10 +189,15 @@ mod tests {
             assert_eq!(scan.peak, plain_peak, "n={n}");
             assert_eq!(scan.n_clipped, plain_clip, "n={n}");
             for i in 0..2 * time.len() {
-                let want = x.get(i).map_or(0.0, |v| if v.is_finite() { *v } else { 0.0 });
+                let want = x
+                    .get(i)
+                    .map_or(0.0, |v| if v.is_finite() { *v } else { 0.0 });
                 assert_eq!(get(&time, i), want, "n={n} i={i}");
             }
-            let clean: Vec<f32> = x.iter().map(|v| if v.is_finite() { *v } else { 0.0 }).collect();
+            let clean: Vec<f32> = x
+                .iter()
+                .map(|v| if v.is_finite() { *v } else { 0.0 })
+                .collect();
             let p = packed(&clean);
             for (lo, hi) in [(0, n), (1, n), (0, n.saturating_sub(1)), (3, n / 2 + 3)] {
                 let hi = hi.min(n);
@@ -209,7 +222,10 @@ mod tests {
                 .map(|&v| f64::from(v) * f64::from(v))
                 .sum();
             let got = sum_squares_finite(&x);
-            assert!((got - plain_sq).abs() <= 1e-14 * plain_sq.max(1e-300), "n={n}");
+            assert!(
+                (got - plain_sq).abs() <= 1e-14 * plain_sq.max(1e-300),
+                "n={n}"
+            );
         }
     }
 }
