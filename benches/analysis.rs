@@ -185,25 +185,28 @@ fn bench_threads(c: &mut Criterion) {
             .num_threads(threads)
             .build()
             .expect("thread pool");
-        group.bench_function(BenchmarkId::from_parameter(format!("{threads} thread(s)")), |b| {
-            b.iter(|| {
-                pool.install(|| {
-                    caps.par_chunks(4)
-                        .map(|chunk| {
-                            // Analyzers are reused from batch to batch, as replay does.
-                            let taken = idle.lock().expect("pool").pop();
-                            let mut an = taken.unwrap_or_else(|| s.analyzer.clone());
-                            let passed = chunk
-                                .iter()
-                                .filter(|cap| judge(&mut an, &s, cap) == tragus::Verdict::Pass)
-                                .count();
-                            idle.lock().expect("pool").push(an);
-                            passed
-                        })
-                        .sum::<usize>()
+        group.bench_function(
+            BenchmarkId::from_parameter(format!("{threads} thread(s)")),
+            |b| {
+                b.iter(|| {
+                    pool.install(|| {
+                        caps.par_chunks(4)
+                            .map(|chunk| {
+                                // Analyzers are reused from batch to batch, as replay does.
+                                let taken = idle.lock().expect("pool").pop();
+                                let mut an = taken.unwrap_or_else(|| s.analyzer.clone());
+                                let passed = chunk
+                                    .iter()
+                                    .filter(|cap| judge(&mut an, &s, cap) == tragus::Verdict::Pass)
+                                    .count();
+                                idle.lock().expect("pool").push(an);
+                                passed
+                            })
+                            .sum::<usize>()
+                    })
                 })
-            })
-        });
+            },
+        );
     }
     group.finish();
 }
