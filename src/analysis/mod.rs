@@ -4,8 +4,10 @@
 //! plans, inverse sweep spectra, windows, grid) and reused for every unit.
 
 mod analyzer;
+mod passes;
+mod tables;
 
-pub use analyzer::{AnalysisError, Analyzer, HARMONIC_TOP_FRACTION_OF_NYQUIST};
+pub use analyzer::{AnalysisError, Analyzer, Outputs, HARMONIC_TOP_FRACTION_OF_NYQUIST};
 
 use crate::plan::Polarity;
 use std::collections::BTreeMap;

@@ -1,7 +1,7 @@
 //! Everything built once per plan on a bench, and one capture judged with it.
 
 use super::error::BenchError;
-use crate::analysis::Analyzer;
+use crate::analysis::{Analyzer, Outputs};
 use crate::correction::PlanCorrections;
 use crate::dsp::sweep::Stimulus;
 use crate::models::coupler::{load_model, CouplerModel, ModelError};
@@ -38,7 +38,9 @@ pub fn load_coupler(path: &Path) -> Result<CouplerModel, BenchError> {
     })
 }
 
-/// Everything built once per plan.
+/// Everything built once per plan. Cloning is cheap (the analyzer's tables and transform
+/// plans are shared, the clone gets its own scratch): a batch keeps one per thread.
+#[derive(Clone)]
 pub struct Prepared {
     /// The plan, after the station's channel map and fixture.
     pub plan: Plan,
@@ -134,6 +136,15 @@ impl Prepared {
             calibration: CalibrationInfo::uncalibrated(),
             calibration_offsets_db: None,
         })
+    }
+
+    /// From now on, analyse only what the plan's checks read ([`Outputs::for_checks`]): a
+    /// plan without distortion checks skips the harmonic and rub-and-buzz analysis (their
+    /// outputs read `null`). For batches that only judge (replay); a station keeps every
+    /// output in its records.
+    pub fn analyze_only_what_checks_read(&mut self) {
+        self.analyzer
+            .set_outputs(Outputs::for_checks(&self.plan.checks));
     }
 
     /// Analyse a capture and judge it. `drive_gain_db` (per plan channel, or empty) is the

@@ -5,6 +5,7 @@
 //! calls an inverse divides by N itself.
 
 pub mod bands;
+pub mod fft;
 pub mod interp;
 pub mod ramp;
 pub mod signals;

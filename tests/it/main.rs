@@ -7,6 +7,7 @@ mod acoustics_elements;
 mod acoustics_network;
 mod acoustics_reference;
 mod analysis_analytic;
+mod analysis_outputs;
 mod calibration_cli;
 mod calibration_file;
 mod calibration_mic;
