@@ -240,38 +240,9 @@ fn a_keyring_that_cannot_take_an_appended_entry_is_left_alone() {
 
 // ---- An outside library verifies a tragus signature ----
 
-/// The reference interpreter: `TRAGUS_REFERENCE_PYTHON` (set by tests/run, which has just
-/// installed the pinned requirements: then it must work), else target/reference-venv's.
-/// `None` (the test says why and passes) only outside tests/run and CI, when there is no
-/// reference environment with `cryptography` yet.
-fn reference_python() -> Option<PathBuf> {
-    let required =
-        std::env::var_os("TRAGUS_REFERENCE_PYTHON").is_some() || std::env::var_os("CI").is_some();
-    let python = std::env::var_os("TRAGUS_REFERENCE_PYTHON")
-        .map(PathBuf::from)
-        .unwrap_or_else(|| root().join("target/reference-venv/bin/python"));
-    let usable = Command::new(&python)
-        .args(["-c", "import cryptography, yaml"])
-        .output()
-        .is_ok_and(|o| o.status.success());
-    if usable {
-        return Some(python);
-    }
-    assert!(
-        !required,
-        "{}: no Python with `cryptography` and PyYAML; run ./tests/run",
-        python.display()
-    );
-    eprintln!(
-        "skipped: {} lacks `cryptography` (./tests/run makes target/reference-venv)",
-        python.display()
-    );
-    None
-}
-
 #[test]
 fn python_cryptography_verifies_a_station_signature_from_the_keyring() {
-    let Some(python) = reference_python() else {
+    let Some(python) = crate::support::common::reference_python("cryptography, yaml") else {
         return;
     };
     let (dir, station, _) = station_dir("");

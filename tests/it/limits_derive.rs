@@ -341,32 +341,6 @@ fn lines_within_the_bound(d: &Derivation) {
     assert_eq!(LINE_REL_TOL, tragus::checks::FREQ_REL_TOL);
 }
 
-/// The reference Python: tests/run's environment (then it must work), else the venv.
-fn numpy_python() -> Option<PathBuf> {
-    let required =
-        std::env::var_os("TRAGUS_REFERENCE_PYTHON").is_some() || std::env::var_os("CI").is_some();
-    let python = std::env::var_os("TRAGUS_REFERENCE_PYTHON")
-        .map(PathBuf::from)
-        .unwrap_or_else(|| root().join("target/reference-venv/bin/python"));
-    let usable = Command::new(&python)
-        .args(["-c", "import numpy"])
-        .output()
-        .is_ok_and(|o| o.status.success());
-    if usable {
-        return Some(python);
-    }
-    assert!(
-        !required,
-        "{}: no Python with numpy; run ./tests/run",
-        python.display()
-    );
-    eprintln!(
-        "skipped: {} lacks numpy (./tests/run makes it)",
-        python.display()
-    );
-    None
-}
-
 /// (d) The numbers of every check recomputed by numpy from the same values: the golden
 /// values (scalars) or curves (responses, with the written lines).
 fn numpy_agrees(d: &Derivation, dir: &Path) {
@@ -403,7 +377,9 @@ fn numpy_agrees(d: &Derivation, dir: &Path) {
     }
     let path = dir.join("limits-stats.json");
     std::fs::write(&path, serde_json::to_string(&checks).unwrap()).unwrap();
-    let Some(python) = numpy_python() else { return };
+    let Some(python) = crate::support::common::reference_python("numpy") else {
+        return;
+    };
     let out = Command::new(python)
         .arg(root().join("tests/reference/limits_stats.py"))
         .arg(&path)

@@ -112,34 +112,6 @@ fn tightened_revision(tree: &Path) -> PathBuf {
     path
 }
 
-/// The reference interpreter: `TRAGUS_REFERENCE_PYTHON` (tests/run), else
-/// target/reference-venv's; it needs PyYAML. `None` (the check is skipped, saying so) only
-/// outside tests/run and CI.
-fn reference_python() -> Option<PathBuf> {
-    let required =
-        std::env::var_os("TRAGUS_REFERENCE_PYTHON").is_some() || std::env::var_os("CI").is_some();
-    let python = std::env::var_os("TRAGUS_REFERENCE_PYTHON")
-        .map(PathBuf::from)
-        .unwrap_or_else(|| root().join("target/reference-venv/bin/python"));
-    let usable = Command::new(&python)
-        .args(["-c", "import yaml"])
-        .output()
-        .is_ok_and(|o| o.status.success());
-    if usable {
-        return Some(python);
-    }
-    assert!(
-        !required,
-        "{}: no Python with PyYAML; run ./tests/run",
-        python.display()
-    );
-    eprintln!(
-        "skipped: {} lacks PyYAML (./tests/run makes target/reference-venv)",
-        python.display()
-    );
-    None
-}
-
 fn records_by_id(report: &Value) -> BTreeMap<i64, &Value> {
     report["records"]
         .as_array()
@@ -278,7 +250,7 @@ fn replay_of_a_demo_store_under_the_same_plan_and_a_tightened_revision() {
         moved.contains_key(&("pass".into(), "fail".into())),
         "no pass → fail under the revision: {moved:?}"
     );
-    if let Some(python) = reference_python() {
+    if let Some(python) = crate::support::common::reference_python("yaml") {
         let judged = tmp.path().join("python.json");
         let py = Command::new(python)
             .arg(root().join("tests/reference/replay_judge.py"))

@@ -189,3 +189,33 @@ pub fn demo_physical_rig(
     )
     .unwrap()
 }
+
+/// The reference interpreter that can `import` the given modules (`imports`, e.g.
+/// `"numpy"` or `"cryptography, yaml"`): `TRAGUS_REFERENCE_PYTHON` (set by tests/run, which
+/// has just installed the pinned requirements: then it must work), else
+/// target/reference-venv's. `None` (the caller's check is skipped, saying so) only outside
+/// tests/run and CI, when there is no such environment yet; under them it panics.
+pub fn reference_python(imports: &str) -> Option<PathBuf> {
+    let required =
+        std::env::var_os("TRAGUS_REFERENCE_PYTHON").is_some() || std::env::var_os("CI").is_some();
+    let python = std::env::var_os("TRAGUS_REFERENCE_PYTHON")
+        .map(PathBuf::from)
+        .unwrap_or_else(|| root().join("target/reference-venv/bin/python"));
+    let usable = Command::new(&python)
+        .args(["-c", &format!("import {imports}")])
+        .output()
+        .is_ok_and(|o| o.status.success());
+    if usable {
+        return Some(python);
+    }
+    assert!(
+        !required,
+        "{}: no Python that can import {imports}; run ./tests/run",
+        python.display()
+    );
+    eprintln!(
+        "skipped: {} cannot import {imports} (./tests/run makes target/reference-venv)",
+        python.display()
+    );
+    None
+}
